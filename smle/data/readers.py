@@ -1,0 +1,404 @@
+"""Readers for price files: daily closes or returns, daily open-high-low-close bars, and
+intraday prices or bars with timestamps.
+
+Each reader takes a path (CSV; Parquet when pyarrow is installed) or a pandas DataFrame,
+picks its columns by argument or by name, checks every row (see :mod:`smle.data.checks`) and
+returns a frame with smle's own column names, sorted by its key:
+
+* :func:`read_daily`: index ``date``; column ``close`` (prices) or ``return_pct`` (returns).
+* :func:`read_ohlc`: index ``date``; columns ``open``, ``high``, ``low``, ``close``.
+* :func:`read_intraday`: index ``timestamp`` (time-zone aware, in the venue's time zone);
+  column ``price``, or ``open``, ``high``, ``low``, ``close`` for bars.
+
+What was repaired (only with ``repair="drop"``) is in ``frame.attrs["repairs"]``, a list of
+:class:`smle.data.checks.Repair`, and in the ``smle.data`` log.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from smle.data import checks
+from smle.data.checks import POSITION, RowChecker
+from smle.errors import SmleInputError, describe
+
+DEFAULT_TIMEZONE = "UTC"
+
+_KEY_NAMES = ("timestamp", "datetime", "date_time", "date", "time", "day", "index")
+_KEY_FRAGMENTS = ("time", "date")
+_PRICE_NAMES = ("price", "close", "last", "settle", "mid")
+_PRICE_FRAGMENTS = ("close", "price")
+_RETURN_NAMES = ("return", "returns", "log_return", "log_returns", "ret")
+_RETURN_FRAGMENTS = ("return",)
+BAR_FIELDS = ("open", "high", "low", "close")
+_BAR_ALIASES = {"open": ("open", "o", "first"), "high": ("high", "h", "max"),
+                "low": ("low", "l", "min"), "close": ("close", "c", "last")}
+
+_RETURN_UNITS = {"percent": 100.0, "decimal": 1.0}
+
+
+# ---------------------------------------------------------------- loading and columns
+
+def load_table(source) -> tuple[pd.DataFrame, str | None]:
+    """A raw frame from a path or a frame, and the file name used in messages.
+
+    A frame's non-default index becomes a column so that it can serve as the key.
+    """
+    if isinstance(source, pd.DataFrame):
+        frame = source
+        if not isinstance(frame.index, pd.RangeIndex):
+            frame = frame.reset_index()
+        return frame.copy(), None
+    if isinstance(source, pd.Series):
+        return load_table(source.to_frame())
+    if not isinstance(source, (str, os.PathLike)):
+        raise SmleInputError(
+            f"source={describe(source)} is not accepted; pass a path to a CSV or Parquet file "
+            f"or a pandas DataFrame")
+    path = Path(source)
+    if not path.exists():
+        raise SmleInputError(f"source={str(path)!r}: no such file")
+    if path.suffix.lower() in (".parquet", ".pq"):
+        try:
+            import pyarrow  # noqa: F401  (only to give a clear message when it is missing)
+        except ImportError as error:
+            raise SmleInputError(
+                f"source={str(path)!r} is a Parquet file, which needs the optional package "
+                f"pyarrow (pip install pyarrow); CSV files need nothing extra") from error
+        frame = pd.read_parquet(path)
+        if not isinstance(frame.index, pd.RangeIndex):
+            frame = frame.reset_index()
+    else:
+        frame = pd.read_csv(path)
+    return frame, path.name
+
+
+def find_column(frame: pd.DataFrame, given: str | None, names, fragments, what: str,
+                argument: str, required: bool = True, exclude=()) -> str | None:
+    """The column named ``given``, else the first whose name matches ``names`` exactly
+    (case and surrounding spaces ignored), else the first containing one of ``fragments``."""
+    columns = [column for column in frame.columns if column not in exclude]
+    if given is not None:
+        if given not in frame.columns:
+            raise SmleInputError(
+                f"{argument}={given!r} is not a column; the columns are {list(frame.columns)}")
+        return given
+    normal = {column: str(column).strip().lower().replace(" ", "_") for column in columns}
+    for name in names:
+        for column in columns:
+            if normal[column] == name:
+                return column
+    for fragment in fragments:
+        for column in columns:
+            if fragment in normal[column]:
+                return column
+    if required:
+        raise SmleInputError(
+            f"no {what} column found among {list(frame.columns)}; name it with {argument}=...")
+    return None
+
+
+def _find_key(frame: pd.DataFrame, given: str | None, argument: str) -> str:
+    if given is None:
+        for column in frame.columns:
+            if pd.api.types.is_datetime64_any_dtype(frame[column]):
+                return column
+    return find_column(frame, given, _KEY_NAMES, _KEY_FRAGMENTS, "date or time", argument)
+
+
+def _start(frame: pd.DataFrame) -> pd.DataFrame:
+    frame = frame.copy()
+    frame[POSITION] = np.arange(len(frame))
+    return frame
+
+
+def _finish(frame: pd.DataFrame, checker: RowChecker, columns: list[str]) -> pd.DataFrame:
+    out = frame[columns].astype(float)
+    out.attrs["positions"] = frame[POSITION].to_numpy()
+    out.attrs["repairs"] = list(checker.repairs)
+    out.attrs["source"] = checker.source
+    return out
+
+
+def _as_numbers(frame: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
+    """Columns as floats; text that is not a number becomes NaN and is then reported."""
+    for column in columns:
+        if not pd.api.types.is_numeric_dtype(frame[column]):
+            frame[column] = pd.to_numeric(frame[column], errors="coerce")
+    return frame
+
+
+# ---------------------------------------------------------------- daily keys
+
+def _daily_keys(frame: pd.DataFrame, key: str, checker: RowChecker) -> pd.DataFrame:
+    raw = frame[key]
+    if pd.api.types.is_integer_dtype(raw):
+        # An integer column (a row number, a trading-day count) is accepted as an ordering key.
+        keys = pd.Index(raw.to_numpy(), name="date")
+    else:
+        parsed = pd.to_datetime(raw, errors="coerce")
+        if isinstance(parsed.dtype, pd.DatetimeTZDtype):
+            parsed = parsed.dt.tz_localize(None)
+        keys = pd.DatetimeIndex(parsed, name="date")
+    frame = frame.set_axis(keys)
+    frame, keys = checks.check_missing_key(frame, keys, checker, raw.set_axis(keys))
+    return frame
+
+
+def read_daily(source, *, date_column: str | None = None, price_column: str | None = None,
+               return_column: str | None = None, returns_in: str = "percent",
+               repair: str = "raise", min_rows: int = 2) -> pd.DataFrame:
+    """Read daily closing prices, or daily log returns.
+
+    Args:
+      source: a CSV or Parquet path, or a DataFrame (a DatetimeIndex is used as the dates).
+      date_column: the column of dates; by default the first datetime column, else one named
+        like date/day/time. An integer column (e.g. a row number) is accepted as an ordering key.
+      price_column: the column of prices; by default one named like price/close/last/settle.
+      return_column: read log returns from this column instead of prices. Detected (a column
+        named like return) only when no price column is found.
+      returns_in: unit of input returns, ``"percent"`` or ``"decimal"`` (log returns either way).
+      repair: ``"raise"`` (default) stops at the first bad row; ``"drop"`` drops bad rows and
+        sorts rows out of order, logging each repair and recording it in ``attrs["repairs"]``.
+      min_rows: fewer usable rows than this is an error (2 prices give 1 return).
+
+    Returns:
+      A DataFrame indexed by ``date`` with the column ``close`` (prices), or ``return_pct``
+      (log returns in percent) when returns were read.
+    """
+    frame, source_name = load_table(source)
+    checker = RowChecker(repair, source_name, "date")
+    key = _find_key(frame, date_column, "date_column")
+    if return_column is None:
+        price = find_column(frame, price_column, _PRICE_NAMES, _PRICE_FRAGMENTS, "price",
+                            "price_column", required=False, exclude=(key,))
+        if price is None:
+            return_column = find_column(frame, None, _RETURN_NAMES, _RETURN_FRAGMENTS,
+                                        "price or return", "price_column or return_column",
+                                        exclude=(key,))
+    elif return_column not in frame.columns:
+        raise SmleInputError(
+            f"return_column={return_column!r} is not a column; the columns are "
+            f"{list(frame.columns)}")
+    frame = _start(frame)
+    frame = _daily_keys(frame, key, checker)
+    if return_column is not None:
+        if returns_in not in _RETURN_UNITS:
+            raise SmleInputError(
+                f"returns_in={returns_in!r} is not accepted; use 'percent' or 'decimal'")
+        frame = _as_numbers(frame, [return_column])
+        values = frame[return_column].to_numpy(dtype=float)
+        frame = checker.apply(frame, ~np.isfinite(values),
+                              f"column '{return_column}' must hold a number in every row",
+                              lambda i: f"{return_column} is missing ({values[i]!r})")
+        frame = checks.check_order(frame, checker)
+        frame["return_pct"] = frame[return_column] * (100.0 / _RETURN_UNITS[returns_in])
+        checks.check_length(len(frame), max(min_rows - 1, 1), "daily returns", source_name)
+        out = _finish(frame, checker, ["return_pct"])
+        out.attrs["return_unit"] = "percent (log return)"
+        return out
+    frame = _as_numbers(frame, [price])
+    frame = frame.rename(columns={price: "close"}) if price != "close" else frame
+    frame = checks.check_prices(frame, ["close"], checker)
+    frame = checks.check_order(frame, checker)
+    checks.check_length(len(frame), min_rows, "daily prices", source_name)
+    return _finish(frame, checker, ["close"])
+
+
+def _bar_columns(frame: pd.DataFrame, columns: dict | None, exclude=()) -> dict:
+    """Map open/high/low/close to the frame's columns, by argument or by name."""
+    columns = dict(columns or {})
+    unknown = set(columns) - set(BAR_FIELDS)
+    if unknown:
+        raise SmleInputError(
+            f"columns={columns!r} has keys {sorted(unknown)}; accepted keys are {BAR_FIELDS}")
+    found = {}
+    for field in BAR_FIELDS:
+        found[field] = find_column(frame, columns.get(field), _BAR_ALIASES[field], (field,),
+                                   field, f"columns={{'{field}': ...}}",
+                                   exclude=tuple(exclude) + tuple(found.values()))
+    return found
+
+
+def read_ohlc(source, *, date_column: str | None = None, columns: dict | None = None,
+              repair: str = "raise", min_rows: int = 2) -> pd.DataFrame:
+    """Read daily open-high-low-close bars.
+
+    Args:
+      source: a CSV or Parquet path, or a DataFrame.
+      date_column: as in :func:`read_daily`.
+      columns: optional mapping from ``"open"``, ``"high"``, ``"low"``, ``"close"`` to the
+        frame's column names; fields not given are found by name (open/high/low/close).
+      repair: ``"raise"`` or ``"drop"``, as in :func:`read_daily`.
+      min_rows: fewer usable days than this is an error.
+
+    Returns:
+      A DataFrame indexed by ``date`` with columns ``open``, ``high``, ``low``, ``close``
+      (prices, all checked: positive, low <= high, open and close inside [low, high]).
+    """
+    frame, source_name = load_table(source)
+    checker = RowChecker(repair, source_name, "date")
+    key = _find_key(frame, date_column, "date_column")
+    mapping = _bar_columns(frame, columns, exclude=(key,))
+    frame = _start(frame)
+    frame = _daily_keys(frame, key, checker)
+    frame = _as_numbers(frame, list(mapping.values()))
+    frame = frame.rename(columns={value: field for field, value in mapping.items()})
+    frame = checks.check_prices(frame, list(BAR_FIELDS), checker)
+    frame = checks.check_bars(frame, checker)
+    frame = checks.check_order(frame, checker)
+    checks.check_length(len(frame), min_rows, "daily bars", source_name)
+    return _finish(frame, checker, list(BAR_FIELDS))
+
+
+# ---------------------------------------------------------------- intraday
+
+_OFFSET_AT_END = re.compile(r"(Z|[+-]\d{2}:?\d{2})$")
+_ISO_START = re.compile(r"^\d{4}-\d{2}-\d{2}([ T]\d{2}:\d{2}(:\d{2}(\.\d+)?)?)?")
+
+
+def _parse_timestamps(raw: pd.Series) -> pd.DatetimeIndex:
+    """Timestamps from a column; unreadable entries become NaT (reported by the caller)."""
+    if pd.api.types.is_datetime64_any_dtype(raw):
+        return pd.DatetimeIndex(raw)
+    present = raw.dropna()
+    sample = str(present.iloc[0]).strip() if len(present) else ""
+    iso = "ISO8601" if _ISO_START.match(sample) else None
+    if _OFFSET_AT_END.search(sample):
+        # Offsets may change within a file (daylight saving): read instants as UTC, then
+        # convert to the venue's zone.
+        return pd.DatetimeIndex(pd.to_datetime(raw, errors="coerce", utc=True, format=iso))
+    try:
+        return pd.DatetimeIndex(pd.to_datetime(raw, errors="coerce", format=iso))
+    except (ValueError, TypeError):
+        return pd.DatetimeIndex(pd.to_datetime(raw, errors="coerce", utc=True, format=iso))
+
+
+def read_intraday(source, *, time_column: str | None = None, price_column: str | None = None,
+                  columns: dict | None = None, timezone: str = DEFAULT_TIMEZONE,
+                  source_timezone: str | None = None, bar_timestamp: str = "end",
+                  bar_length: str | None = None, repair: str = "raise") -> pd.DataFrame:
+    """Read intraday prices or bars with timestamps.
+
+    Args:
+      source: a CSV or Parquet path, or a DataFrame.
+      time_column: the column of timestamps; by default the first datetime column, else one
+        named like timestamp/datetime/time/date.
+      price_column: read one price per row from this column (trades or quotes). When not
+        given and the frame has high, low and close columns, it is read as bars; otherwise a
+        column named like price/close/last is used.
+      columns: for bars, an optional mapping as in :func:`read_ohlc`.
+      timezone: the venue's time zone (IANA name, default ``"UTC"``). Output timestamps are
+        in this zone, and the trading session of :func:`smle.data.prepare_daily` is read in it.
+      source_timezone: the zone of timestamps written without an offset; by default they are
+        taken to be venue time already. Timestamps with an offset are converted exactly.
+      bar_timestamp: for bars, whether a bar's timestamp marks its ``"end"`` (default) or its
+        ``"start"``. Bars stamped at the start are moved to their end, so that every timestamp
+        is the time of the price in ``close``.
+      bar_length: the length of a bar (``"1min"``) for ``bar_timestamp="start"``; by default
+        the most common gap between bars.
+      repair: ``"raise"`` (default) stops at the first bad row; ``"drop"`` drops bad rows,
+        sorts rows out of order and drops repeated timestamps (the first is kept), logging
+        each repair and recording it in ``attrs["repairs"]``.
+
+    Returns:
+      A DataFrame indexed by ``timestamp`` (aware, in ``timezone``), with the column ``price``
+      or the columns ``open``, ``high``, ``low``, ``close``. ``attrs`` holds ``kind``
+      (``"prices"`` or ``"bars"``), ``timezone``, ``source`` and ``repairs``.
+    """
+    frame, source_name = load_table(source)
+    checker = RowChecker(repair, source_name, "timestamp")
+    key = _find_key(frame, time_column, "time_column")
+    bars = False
+    lowered = {str(column).strip().lower() for column in frame.columns}
+    if price_column is None:
+        bars = columns is not None or {"high", "low", "close"} <= lowered
+    if bars:
+        has_open = "open" in lowered or "open" in (columns or {})
+        mapping = (_bar_columns(frame, columns, exclude=(key,)) if has_open
+                   else _bar_columns_without_open(frame, columns, key))
+    else:
+        price = find_column(frame, price_column, _PRICE_NAMES, _PRICE_FRAGMENTS, "price",
+                            "price_column", exclude=(key,))
+        mapping = {"price": price}
+    fields = list(mapping)
+    frame = _start(frame)
+    raw = frame[key]
+    stamps = _parse_timestamps(raw)
+    frame = frame.set_axis(stamps.rename("timestamp"))
+    frame, stamps = checks.check_missing_key(frame, stamps, checker, raw.set_axis(stamps))
+    stamps = _to_zone(stamps, timezone, source_timezone)
+    frame = frame.set_axis(stamps.rename("timestamp"))
+    bad = np.asarray(pd.isna(stamps))
+    if bad.any():
+        zone = source_timezone or timezone
+        frame = checker.apply(
+            frame, bad, f"a timestamp without offset must exist, unambiguously, in {zone}",
+            lambda i: f"timestamp {raw.iloc[int(frame[POSITION].iat[i])]!r} falls in a "
+                      f"daylight-saving change of {zone}")
+    frame = _as_numbers(frame, list(mapping.values()))
+    frame = frame.rename(columns={value: field for field, value in mapping.items()})
+    frame = checks.check_prices(frame, fields, checker)
+    if bars:
+        frame = checks.check_bars(frame, checker)
+    frame = checks.check_order(frame, checker)
+    if bars and bar_timestamp != "end":
+        frame = _shift_bars(frame, bar_timestamp, bar_length)
+    elif bar_timestamp not in ("end", "start"):
+        raise SmleInputError(
+            f"bar_timestamp={bar_timestamp!r} is not accepted; use 'end' or 'start'")
+    checks.check_length(len(frame), 2, "intraday rows", source_name)
+    out = _finish(frame, checker, fields)
+    out.attrs["kind"] = "bars" if bars else "prices"
+    out.attrs["timezone"] = str(timezone)
+    return out
+
+
+def _bar_columns_without_open(frame, columns, key) -> dict:
+    mapping = {}
+    for field in ("high", "low", "close"):
+        mapping[field] = find_column(frame, (columns or {}).get(field), _BAR_ALIASES[field],
+                                     (field,), field, f"columns={{'{field}': ...}}",
+                                     exclude=(key,) + tuple(mapping.values()))
+    return mapping
+
+
+def _to_zone(stamps: pd.DatetimeIndex, timezone: str, source_timezone: str | None):
+    try:
+        if stamps.tz is not None:
+            return stamps.tz_convert(timezone)
+        zone = source_timezone or timezone
+        local = stamps.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
+        return local.tz_convert(timezone)
+    except Exception as error:  # unknown zone names come from several libraries
+        if "tz" in type(error).__name__.lower() or isinstance(error, (KeyError, ValueError)):
+            raise SmleInputError(
+                f"timezone={timezone!r} / source_timezone={source_timezone!r}: not a known "
+                f"time zone ({error}); use an IANA name such as 'UTC' or 'Europe/London'"
+            ) from error
+        raise
+
+
+def _shift_bars(frame: pd.DataFrame, bar_timestamp: str, bar_length: str | None):
+    if bar_timestamp != "start":
+        raise SmleInputError(
+            f"bar_timestamp={bar_timestamp!r} is not accepted; use 'end' or 'start'")
+    if bar_length is None:
+        gaps = np.diff(frame.index.as_unit("ns").asi8)
+        gaps = gaps[gaps > 0]
+        if not len(gaps):
+            raise SmleInputError("bar_length could not be inferred; pass bar_length='1min'")
+        values, counts = np.unique(gaps, return_counts=True)
+        length = pd.Timedelta(int(values[np.argmax(counts)]), unit="ns")
+    else:
+        try:
+            length = pd.Timedelta(bar_length)
+        except ValueError as error:
+            raise SmleInputError(
+                f"bar_length={bar_length!r} is not a duration such as '1min'") from error
+    return frame.set_axis(frame.index + length)
