@@ -8,4 +8,21 @@ from smle import _config
 
 _config.configure()
 
+from smle.errors import SmleInputError  # noqa: E402
+from smle.likelihood import LoglikResult, loglik, simulate  # noqa: E402
+from smle.models import Model, get_model, model_names, register  # noqa: E402
+from smle import reference  # noqa: E402
+
 __version__ = "0.1.0"
+
+__all__ = [
+    "LoglikResult",
+    "Model",
+    "SmleInputError",
+    "get_model",
+    "loglik",
+    "model_names",
+    "reference",
+    "register",
+    "simulate",
+]

@@ -1,0 +1,50 @@
+"""The model registry: models by short name.
+
+``get_model("sv")`` returns a model instance; options are passed to its constructor, e.g.
+``get_model("local-level", init_var=1e8)``. ``model_names()`` lists what is registered.
+A new model is one module that defines a :class:`~smle.models.base.Model` subclass decorated
+with :func:`register`, imported at the bottom of this file.
+"""
+
+from __future__ import annotations
+
+from smle.errors import SmleInputError
+from smle.models.base import Model
+
+_REGISTRY: dict[str, type[Model]] = {}
+
+
+def register(cls: type[Model]) -> type[Model]:
+    """Class decorator adding a model to the registry under ``cls.name``."""
+    if not cls.name:
+        raise ValueError(f"{cls.__name__} has no name")
+    if cls.name in _REGISTRY and _REGISTRY[cls.name] is not cls:
+        raise ValueError(f"a model named '{cls.name}' is already registered")
+    _REGISTRY[cls.name] = cls
+    return cls
+
+
+def model_names() -> list[str]:
+    """Registered short names, sorted."""
+    return sorted(_REGISTRY)
+
+
+def get_model(name, **options) -> Model:
+    """The model registered as ``name`` (a model instance is returned unchanged)."""
+    if isinstance(name, Model):
+        if options:
+            raise SmleInputError("options can only be given with a model name, not a model instance")
+        return name
+    if name not in _REGISTRY:
+        raise SmleInputError(
+            f"model = {name!r} is not a registered model; available: {', '.join(model_names())}"
+        )
+    try:
+        return _REGISTRY[name](**options)
+    except TypeError as error:
+        raise SmleInputError(f"bad options for model '{name}': {error}") from None
+
+
+from smle.models import ar1_noise, sv  # noqa: E402,F401  (registration)
+
+__all__ = ["Model", "get_model", "model_names", "register"]

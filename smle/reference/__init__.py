@@ -1,0 +1,23 @@
+"""Exact (deterministic) likelihood references that the simulated estimators are checked against.
+
+* :func:`kalman_loglik` / :func:`kalman_filter`: linear Gaussian models (Kalman 1960; Durbin and
+  Koopman 2012, chapters 2 and 5), with an exact diffuse start for the random walk.
+* :func:`grid_loglik` / :func:`grid_filter`: any model with a univariate stationary latent state,
+  by a deterministic grid (quadrature) filter (Kitagawa 1987, JASA 82).
+* :func:`log_integral_adaptive`: adaptive Gauss-Hermite quadrature for one-dimensional
+  integrals (Liu and Pierce 1994, Biometrika 81).
+"""
+
+from smle.reference.grid import GridFilterOutput, grid_filter, grid_loglik
+from smle.reference.kalman import KalmanOutput, kalman_filter, kalman_loglik
+from smle.reference.quadrature import log_integral_adaptive
+
+__all__ = [
+    "GridFilterOutput",
+    "KalmanOutput",
+    "grid_filter",
+    "grid_loglik",
+    "kalman_filter",
+    "kalman_loglik",
+    "log_integral_adaptive",
+]
