@@ -9,8 +9,8 @@ has the closed-form law  M = (a + b + sqrt((b - a)^2 - 2 dt log U)) / 2,  U unif
 the minimum likewise with the minus sign), so the high and low are drawn from their exact
 continuous-path law. Drawing each interval's maximum and minimum independently ignores their
 dependence, which only matters when the day's high and low fall in the same one of the 128
-intervals; a 2,000,000-path run at 128, 256 and 1024 steps moved the variances by at most
-0.0015 (less than the tolerances below) and the means by under 0.0002.
+intervals; 2,000,000-path runs at 128, 256 and 1024 steps gave variances within 0.0015 of
+each other (less than the tolerances below) and means within 0.0002 of 1.
 
 Tolerances: 4 Monte Carlo standard errors, the standard error of a sample variance being
 sd((x - mean)^2) / sqrt(N), measured from the same draws (printed on failure).
@@ -95,9 +95,10 @@ def test_garman_klass_efficiency_about_7_4(days):
 def test_rogers_satchell_variance(days):
     # Rogers and Satchell (1991): unbiased. Its variance under a driftless Brownian motion is
     # not taken from the paper but computed by simulation. The brief for this module quoted
-    # "about 0.335"; our own 2,000,000-path runs with exact bridge extremes give 0.3307 +-
-    # 0.0005 (256 steps) and 0.3320 +- 0.0005 (128 steps), so we check against 0.331 with 4
-    # standard errors plus 0.0015 for the spread between those runs. 0.335 lies outside.
+    # "about 0.335"; our own 2,000,000-path runs with exact bridge extremes give 0.3320,
+    # 0.3307 and 0.3311 (128, 256 and 1024 steps; each +- 0.0005), so we check against 0.331
+    # with 4 standard errors plus 0.0015 for the spread between those runs. (0.335 is about
+    # 7 standard errors of those runs away; this test at 200,000 paths cannot tell them apart.)
     open_price, high, low, close = days
     values = rogers_satchell(open_price, high, low, close, unit="decimal")
     mean, mean_error = _mean_and_error(values)
