@@ -80,6 +80,8 @@ class RowChecker:
         self.repairs: list[Repair] = []
 
     def label(self, key) -> str:
+        if isinstance(key, pd.Timestamp) and key.tz is None and key == key.normalize():
+            key = key.date()  # a plain date reads better than "... 00:00:00"
         return f"{self.key_name} {key}"
 
     def apply(self, frame: pd.DataFrame, bad: np.ndarray, rule: str, detail_of,
@@ -147,12 +149,12 @@ def check_prices(frame: pd.DataFrame, columns: list[str], checker: RowChecker) -
         values = frame[column].to_numpy(dtype=float)
         frame = checker.apply(
             frame, ~np.isfinite(values), f"column '{column}' must hold a number in every row",
-            lambda i, c=column, v=values: f"{c} is missing ({v[i]!r})")
+            lambda i, c=column, v=values: f"{c} is missing ({float(v[i])!r})")
     for column in columns:
         values = frame[column].to_numpy(dtype=float)
         frame = checker.apply(
             frame, values <= 0.0, f"prices in column '{column}' must be positive",
-            lambda i, c=column, v=values: f"{c} = {v[i]!r} is not positive")
+            lambda i, c=column, v=values: f"{c} = {float(v[i])!r} is not positive")
     return frame
 
 
@@ -162,7 +164,7 @@ def check_bars(frame: pd.DataFrame, checker: RowChecker) -> pd.DataFrame:
     low = frame["low"].to_numpy(dtype=float)
     frame = checker.apply(
         frame, high < low, "the high must not be below the low",
-        lambda i: f"high = {high[i]!r} is below low = {low[i]!r}")
+        lambda i: f"high = {float(high[i])!r} is below low = {float(low[i])!r}")
     for column in ("open", "close"):
         if column not in frame:
             continue
@@ -173,7 +175,7 @@ def check_bars(frame: pd.DataFrame, checker: RowChecker) -> pd.DataFrame:
             frame, (value < low) | (value > high),
             f"the {column} must lie inside the bar's range [low, high]",
             lambda i, c=column, v=value, lo=low, hi=high:
-                f"{c} = {v[i]!r} is outside [low = {lo[i]!r}, high = {hi[i]!r}]")
+                f"{c} = {float(v[i])!r} is outside [low = {float(lo[i])!r}, high = {float(hi[i])!r}]")
     return frame
 
 

@@ -173,10 +173,11 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
         rule = (f"a session needs at least {min_observations} rows for interval "
                 f"{interval} (min_observations)")
         first = np.flatnonzero(sparse)[0]
+        first_row = keep[starts[first]]
         if repair == "raise":
             raise SmleInputError(
-                f"day {dates[first].date()} (day {first} of the session days; first row "
-                f"{checks.row_name(positions[keep[starts[first]]], intraday.index[keep[starts[first]]], source_name)}): "
+                f"day {dates[first].date()} (session day {first}, starting at "
+                f"{checks.row_name(positions[first_row], f'timestamp {intraday.index[first_row]}', source_name)}): "
                 f"{counts[first]} rows inside the session {session_open}-{session_close}; rule "
                 f"broken: {rule} ({int(sparse.sum())} such day(s) in all). Choose a longer "
                 f"interval, lower min_observations, or pass repair='drop' to drop such days "

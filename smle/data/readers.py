@@ -195,7 +195,7 @@ def read_daily(source, *, date_column: str | None = None, price_column: str | No
         values = frame[return_column].to_numpy(dtype=float)
         frame = checker.apply(frame, ~np.isfinite(values),
                               f"column '{return_column}' must hold a number in every row",
-                              lambda i: f"{return_column} is missing ({values[i]!r})")
+                              lambda i: f"{return_column} is missing ({float(values[i])!r})")
         frame = checks.check_order(frame, checker)
         frame["return_pct"] = frame[return_column] * (100.0 / _RETURN_UNITS[returns_in])
         checks.check_length(len(frame), max(min_rows - 1, 1), "daily returns", source_name)
