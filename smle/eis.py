@@ -93,7 +93,6 @@ class EISInfo(NamedTuple):
       converged: whether the last change fell below the tolerance.
       last_change: largest relative change of the auxiliary parameters at the last iteration.
       r_squared: per-period R^2 of the final regressions, shape (T,).
-      tangent_iterations: iterations of the implicit-gradient solve (0 when not differentiated).
     """
 
     iterations: jax.Array
@@ -287,19 +286,23 @@ def _relative_change(new: Auxiliary, old: Auxiliary):
 
 
 def _iterate_to_fixed_point(update, start: Auxiliary, tol, max_iter: int):
-    """Iterate ``a <- update(a)`` until the relative change is below tol or max_iter is reached."""
+    """Iterate ``a <- update(a)`` until the relative change is below tol or max_iter is reached.
+
+    ``update`` returns ``(new, extra)``; the last ``extra`` (the regressions' R^2) is carried out.
+    """
 
     def cond(carry):
-        _, iteration, change = carry
+        _, _, iteration, change = carry
         return (iteration < max_iter) & (change > tol)
 
     def body(carry):
-        current, iteration, _ = carry
-        new = update(current)
-        return new, iteration + 1, _relative_change(new, current)
+        current, _, iteration, _ = carry
+        new, extra = update(current)
+        return new, extra, iteration + 1, _relative_change(new, current)
 
     inf = jnp.asarray(jnp.inf, start.b_obs.dtype)
-    return jax.lax.while_loop(cond, body, (start, jnp.asarray(0), inf))
+    extra = jnp.zeros_like(start.b_obs)
+    return jax.lax.while_loop(cond, body, (start, extra, jnp.asarray(0), inf))
 
 
 def _neumann_solve(tol, max_iter: int):
@@ -347,21 +350,20 @@ def fit_auxiliary(
 
     def solve(residual_fn, initial):
         def update(a):
-            return jax.tree.map(jnp.add, residual_fn(a), a)
+            return eis_map(state, log_obs_fn, normals, a)
 
-        fixed, iterations, change = _iterate_to_fixed_point(
+        fixed, r_squared, iterations, change = _iterate_to_fixed_point(
             update, initial, settings.tol, settings.max_iter
         )
-        return fixed, (iterations, change)
+        return fixed, (r_squared, iterations, change)
 
-    auxiliary, (iterations, change) = jax.lax.custom_root(
+    auxiliary, (r_squared, iterations, change) = jax.lax.custom_root(
         residual,
         start,
         solve,
         _neumann_solve(1e-13, settings.max_tangent_iter),
         has_aux=True,
     )
-    _, r_squared = eis_map(state, log_obs_fn, normals, jax.lax.stop_gradient(auxiliary))
     info = EISInfo(
         iterations=iterations,
         converged=change <= settings.tol,
@@ -371,12 +373,17 @@ def fit_auxiliary(
     return auxiliary, info
 
 
-def standard_normals(key: jax.Array, n_periods: int, settings: EISSettings) -> jax.Array:
-    """Common random numbers of shape (T, S), with antithetic pairs (s, s + S/2) if asked."""
+def standard_normals(key: jax.Array, n_periods: int, settings: EISSettings):
+    """Two independent sets of common random numbers (fitting, scoring), each of shape (T, S).
+
+    With antithetic draws the pairs are columns (s, s + S/2).
+    """
     if settings.antithetic:
-        half = jax.random.normal(key, (n_periods, settings.n_draws // 2))
-        return jnp.concatenate([half, -half], axis=1)
-    return jax.random.normal(key, (n_periods, settings.n_draws))
+        half = jax.random.normal(key, (2, n_periods, settings.n_draws // 2))
+        both = jnp.concatenate([half, -half], axis=2)
+    else:
+        both = jax.random.normal(key, (2, n_periods, settings.n_draws))
+    return both[0], both[1]
 
 
 def eis_loglik(
@@ -402,9 +409,7 @@ def eis_loglik(
       Richard and Zhang (2007), J. Econometrics 141, 1385-1411.
     """
     n_periods = guess.shape[0]
-    fit_key, score_key = jax.random.split(key)
-    fit_normals = standard_normals(fit_key, n_periods, settings)
-    score_normals = standard_normals(score_key, n_periods, settings)
+    fit_normals, score_normals = standard_normals(key, n_periods, settings)
     auxiliary, info = fit_auxiliary(state, log_obs_fn, fit_normals, guess, settings)
     sampler = assemble(state, auxiliary)
     paths = draw_paths(sampler, score_normals)

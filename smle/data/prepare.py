@@ -334,6 +334,8 @@ def read_daily_table(path) -> pd.DataFrame:
     if not path.exists():
         raise SmleInputError(f"path={str(path)!r}: no such file")
     table = pd.read_csv(path, index_col="date", parse_dates=["date"])
+    if isinstance(table.index, pd.DatetimeIndex):
+        table.index = table.index.as_unit("ns")
     meta = _metadata_path(path)
     if meta.exists():
         with open(meta, encoding="utf-8") as handle:

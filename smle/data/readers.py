@@ -144,7 +144,7 @@ def _daily_keys(frame: pd.DataFrame, key: str, checker: RowChecker) -> pd.DataFr
         parsed = pd.to_datetime(raw, errors="coerce")
         if isinstance(parsed.dtype, pd.DatetimeTZDtype):
             parsed = parsed.dt.tz_localize(None)
-        keys = pd.DatetimeIndex(parsed, name="date")
+        keys = pd.DatetimeIndex(parsed, name="date").as_unit("ns")
     frame = frame.set_axis(keys)
     frame, keys = checks.check_missing_key(frame, keys, checker, raw.set_axis(keys))
     return frame
