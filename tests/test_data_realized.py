@@ -105,10 +105,11 @@ def test_bipower_variation_ignores_jumps_realized_variance_does_not():
 
 
 def test_bipower_variation_is_unbiased_without_jumps(smooth):
-    # BN-S (2004) with the M/(M-1) factor: mean relative bias within 4 standard errors.
+    # BN-S (2004) with the M/(M-1) factor: mean relative bias within 4 standard errors
+    # (about 0.013 at 10 s over 120 days, so a 3 % error in the pi/2 scaling would fail).
     log_price, step_variance, _ = smooth
     iv = step_variance.sum(axis=1)
-    _, bv = _measures(log_price, 60)
+    _, bv = _measures(log_price, 10)
     relative = (bv - iv) / iv
     assert abs(relative.mean()) < 4 * relative.std() / np.sqrt(N_DAYS), relative.mean()
 

@@ -34,7 +34,7 @@ import numpy as np
 import pandas as pd
 
 from smle.data import checks, ranges, readers, realized, units
-from smle.data.checks import POSITION, Repair
+from smle.data.checks import Repair
 from smle.errors import SmleInputError, describe
 
 logger = logging.getLogger("smle.data")
