@@ -209,13 +209,15 @@ def log_weights(sampler: Sampler, log_obs: jax.Array, paths: jax.Array) -> jax.A
 # Regressions
 
 
-def fit_quadratic(paths: jax.Array, targets: jax.Array):
+def fit_quadratic(paths: jax.Array, targets: jax.Array, total_var=None):
     """Least-squares fit of ``targets ~ a + b x - c x^2/2`` per period across draws.
 
     The regressors are centred on each period's draw mean (centring is needed for accuracy in
     float64 when the state's level is far from zero); the normal equations are formed from
     moments that XLA computes in one fused pass over the draws, then mapped back to the raw
-    coefficients. Arrays of shape (T, S); returns (b, c, r_squared), each of shape (T,).
+    coefficients. Arrays of shape (T, S); returns (b, c, r_squared), each of shape (T,), where
+    R^2 is relative to ``total_var`` if given (the variance of the quantity whose regression this
+    is an update of), else to the variance of ``targets``.
     """
     centre = jnp.mean(paths, axis=1)
     d = paths - centre[:, None]
@@ -233,9 +235,9 @@ def fit_quadratic(paths: jax.Array, targets: jax.Array):
     curvature = (s_dd * s_ey - s_de * s_dy) / det
     b = slope - 2.0 * curvature * centre
     c = -2.0 * curvature
-    s_yy = yy - y0 * y0
-    explained = slope * s_dy + curvature * s_ey
-    r_squared = jnp.where(s_yy > 1e-300, explained / jnp.where(s_yy > 1e-300, s_yy, 1.0), 1.0)
+    residual_var = jnp.maximum(yy - y0 * y0 - slope * s_dy - curvature * s_ey, 0.0)
+    total = yy - y0 * y0 if total_var is None else total_var
+    r_squared = jnp.where(total > 1e-300, 1.0 - residual_var / jnp.where(total > 1e-300, total, 1.0), 1.0)
     return b, c, jnp.clip(r_squared, 0.0, 1.0)
 
 
@@ -272,10 +274,18 @@ def newton_start(state: LatentAR1, log_obs_fn, guess: jax.Array, n_newton: int) 
 
 
 def eis_map(state: LatentAR1, log_obs_fn, normals: jax.Array, auxiliary: Auxiliary):
-    """One EIS iteration: draw with the current sampler, regress, return new parameters and R^2."""
+    """One EIS iteration: draw with the current sampler, regress, return new parameters and R^2.
+
+    The regression is run on the residual of log g_t from the current quadratic, and its
+    coefficients are added to the current ones: the same least-squares solution, but with a
+    rounding error proportional to the residual, which vanishes at an exact (Gaussian) fit.
+    """
     paths = draw_paths(assemble(state, auxiliary), normals)
-    b, c, r_squared = fit_quadratic(paths, log_obs_fn(paths))
-    return Auxiliary(b, c), r_squared
+    log_obs = log_obs_fn(paths)
+    current = auxiliary.b_obs[:, None] * paths - 0.5 * auxiliary.c_obs[:, None] * paths**2
+    total_var = jnp.var(log_obs, axis=1)
+    db, dc, r_squared = fit_quadratic(paths, log_obs - current, total_var)
+    return Auxiliary(auxiliary.b_obs + db, auxiliary.c_obs + dc), r_squared
 
 
 def _relative_change(new: Auxiliary, old: Auxiliary):

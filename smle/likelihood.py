@@ -241,7 +241,7 @@ def simulate(model, params: Mapping[str, float], n_periods: int, seed=0):
     key = as_key(seed)
     params_jax = {k: jnp.asarray(v, float) for k, v in checked.items()}
     y, x = _simulate_jit(model, params_jax, int(n_periods), key)
-    return np.asarray(y), np.asarray(x)
+    return np.array(y), np.array(x)
 
 
 @functools.partial(jax.jit, static_argnums=(0, 2))
