@@ -10,12 +10,16 @@ _config.configure()
 
 from smle.errors import SmleInputError  # noqa: E402
 from smle.likelihood import LoglikResult, loglik, simulate  # noqa: E402
+from smle.fit import fit  # noqa: E402
+from smle.results import FitResult  # noqa: E402
 from smle.models import Model, get_model, model_names, register  # noqa: E402
 from smle import reference  # noqa: E402
 
 __version__ = "0.1.0"
 
 __all__ = [
+    "FitResult",
+    "fit",
     "LoglikResult",
     "Model",
     "SmleInputError",

@@ -18,7 +18,7 @@ draws biases log L low by about one Monte Carlo standard deviation).
 
 The auxiliary parameters are the fixed point ``a* = Phi(a*, theta)`` of one EIS iteration. The
 fixed point is found by iteration to a tolerance, and it is differentiated by the implicit
-function theorem (``jax.lax.custom_root``), so the gradient of the returned log-likelihood is the
+function theorem (a custom VJP solving the adjoint equation by fixed-point iteration), so the gradient of the returned log-likelihood is the
 exact gradient of the function that is evaluated: auxiliary parameters re-fitted at every theta
 with the same random numbers.
 
@@ -28,6 +28,7 @@ time and vectorised over draws.
 
 from __future__ import annotations
 
+import functools
 from typing import Any, NamedTuple
 
 import jax
@@ -48,6 +49,7 @@ class EISSettings(NamedTuple):
       max_iter: cap on EIS iterations.
       n_newton: Newton steps towards the posterior mode for the starting sampler.
       max_tangent_iter: cap on the fixed-point iterations of the implicit-gradient solve.
+      tangent_tol: relative tolerance of the implicit-gradient solve.
     """
 
     n_draws: int = 64
@@ -56,6 +58,7 @@ class EISSettings(NamedTuple):
     max_iter: int = 50
     n_newton: int = 5
     max_tangent_iter: int = 200
+    tangent_tol: float = 1e-7
 
 
 class Auxiliary(NamedTuple):
@@ -315,70 +318,88 @@ def _iterate_to_fixed_point(update, start: Auxiliary, tol, max_iter: int):
     return jax.lax.while_loop(cond, body, (start, extra, jnp.asarray(0), inf))
 
 
-def _neumann_solve(tol, max_iter: int):
-    """A solver for (A - I) x = y given the linear map g = A - I, by x <- g(x) + x - y.
+def _solve_adjoint(transposed_map, cotangent, tol, max_iter: int):
+    """Solve ``w = cotangent + A^T w`` by fixed-point iteration, A the EIS map's Jacobian in a.
 
-    Converges when the EIS map is a contraction at its fixed point (its Jacobian A has spectral
-    radius below one), which is the condition for the forward iteration to converge too.
+    Converges when the EIS map is a contraction at its fixed point (spectral radius of A below
+    one), the same condition under which the forward iteration converges.
     """
 
-    def solve(g, y):
-        def cond(carry):
-            _, iteration, change = carry
-            return (iteration < max_iter) & (change > tol)
+    def cond(carry):
+        _, iteration, change = carry
+        return (iteration < max_iter) & (change > tol)
 
-        def body(carry):
-            x, iteration, _ = carry
-            gx = g(x)
-            new = jax.tree.map(lambda xi, gi, yi: gi + xi - yi, x, gx, y)
-            change = jnp.max(jnp.stack([
-                jnp.max(jnp.abs(n - o)) / (1.0 + jnp.max(jnp.abs(n)))
-                for n, o in zip(jax.tree.leaves(new), jax.tree.leaves(x))
-            ]))
-            return new, iteration + 1, change
+    def body(carry):
+        w, iteration, _ = carry
+        new = jax.tree.map(jnp.add, cotangent, transposed_map(w))
+        leaves_new, leaves_old = jax.tree.leaves(new), jax.tree.leaves(w)
+        size = jnp.max(jnp.stack([jnp.max(jnp.abs(n)) for n in leaves_new]))
+        change = jnp.max(jnp.stack([jnp.max(jnp.abs(n - o)) for n, o in zip(leaves_new, leaves_old)])) / (
+            1e-300 + size
+        )
+        return new, iteration + 1, change
 
-        start = jax.tree.map(lambda yi: -yi, y)
-        inf = jnp.asarray(jnp.inf, jax.tree.leaves(y)[0].dtype)
-        x, _, _ = jax.lax.while_loop(cond, body, (start, jnp.asarray(0), inf))
-        return x
+    inf = jnp.asarray(jnp.inf, jax.tree.leaves(cotangent)[0].dtype)
+    w, _, _ = jax.lax.while_loop(cond, body, (cotangent, jnp.asarray(0), inf))
+    return w
 
-    def tangent_solve(g, y):
-        return jax.lax.custom_linear_solve(g, y, solve, transpose_solve=solve)
 
-    return tangent_solve
+@functools.partial(jax.custom_vjp, nondiff_argnums=(0, 1))
+def _fixed_point(log_obs_fn, settings: EISSettings, inputs, normals, start: Auxiliary):
+    """The EIS fixed point a* = Phi(a*; inputs) with diagnostics (R^2, iterations, change).
+
+    ``inputs = (state, obs_args)`` are the differentiable quantities: the latent AR(1)
+    coefficients and whatever ``log_obs_fn(obs_args, paths)`` depends on. The custom VJP applies
+    the implicit function theorem: d a*/d inputs = (I - A)^{-1} d Phi/d inputs.
+    """
+    state, obs_args = inputs
+
+    def update(a):
+        return eis_map(state, functools.partial(log_obs_fn, obs_args), normals, a)
+
+    fixed, r_squared, iterations, change = _iterate_to_fixed_point(update, start, settings.tol, settings.max_iter)
+    return fixed, (r_squared, iterations.astype(r_squared.dtype), change)
+
+
+def _fixed_point_forward(log_obs_fn, settings, inputs, normals, start):
+    out = _fixed_point(log_obs_fn, settings, inputs, normals, start)
+    return out, (inputs, normals, start, out[0])
+
+
+def _fixed_point_backward(log_obs_fn, settings, residuals, cotangents):
+    inputs, normals, start, fixed = residuals
+    fixed_cotangent = cotangents[0]
+
+    def eis_step(inputs_, a):
+        state, obs_args = inputs_
+        return eis_map(state, functools.partial(log_obs_fn, obs_args), normals, a)[0]
+
+    _, vjp = jax.vjp(eis_step, inputs, fixed)
+    adjoint = _solve_adjoint(lambda w: vjp(w)[1], fixed_cotangent, settings.tangent_tol, settings.max_tangent_iter)
+    inputs_cotangent, _ = vjp(adjoint)
+    return inputs_cotangent, jnp.zeros_like(normals), jax.tree.map(jnp.zeros_like, start)
+
+
+_fixed_point.defvjp(_fixed_point_forward, _fixed_point_backward)
 
 
 def fit_auxiliary(
-    state: LatentAR1, log_obs_fn, normals: jax.Array, guess: jax.Array, settings: EISSettings
+    state: LatentAR1, log_obs_fn, obs_args, normals: jax.Array, guess: jax.Array, settings: EISSettings
 ) -> tuple[Auxiliary, EISInfo]:
-    """The EIS auxiliary parameters (differentiable by implicit differentiation) and diagnostics."""
-    start = jax.lax.stop_gradient(newton_start(state, log_obs_fn, guess, settings.n_newton))
+    """The EIS auxiliary parameters (differentiable by implicit differentiation) and diagnostics.
 
-    def residual(auxiliary):
-        new, _ = eis_map(state, log_obs_fn, normals, auxiliary)
-        return jax.tree.map(jnp.subtract, new, auxiliary)
-
-    def solve(residual_fn, initial):
-        def update(a):
-            return eis_map(state, log_obs_fn, normals, a)
-
-        fixed, r_squared, iterations, change = _iterate_to_fixed_point(
-            update, initial, settings.tol, settings.max_iter
-        )
-        return fixed, (r_squared, iterations, change)
-
-    auxiliary, (r_squared, iterations, change) = jax.lax.custom_root(
-        residual,
-        start,
-        solve,
-        _neumann_solve(1e-13, settings.max_tangent_iter),
-        has_aux=True,
+    ``log_obs_fn(obs_args, paths)`` gives log g_t at paths of shape (T, S).
+    """
+    bound = functools.partial(log_obs_fn, obs_args)
+    start = jax.lax.stop_gradient(newton_start(state, bound, guess, settings.n_newton))
+    auxiliary, (r_squared, iterations, change) = _fixed_point(
+        log_obs_fn, settings, (state, obs_args), normals, start
     )
     info = EISInfo(
-        iterations=iterations,
-        converged=change <= settings.tol,
-        last_change=change,
-        r_squared=r_squared,
+        iterations=jax.lax.stop_gradient(iterations).astype(jnp.int32),
+        converged=jax.lax.stop_gradient(change) <= settings.tol,
+        last_change=jax.lax.stop_gradient(change),
+        r_squared=jax.lax.stop_gradient(r_squared),
     )
     return auxiliary, info
 
@@ -399,6 +420,7 @@ def standard_normals(key: jax.Array, n_periods: int, settings: EISSettings):
 def eis_loglik(
     state: LatentAR1,
     log_obs_fn,
+    obs_args,
     guess: jax.Array,
     key: jax.Array,
     settings: EISSettings,
@@ -407,7 +429,9 @@ def eis_loglik(
 
     Args:
       state: the latent AR(1) coefficients implied by the parameters.
-      log_obs_fn: maps paths of shape (T, S) to log g_t at those paths, shape (T, S).
+      log_obs_fn: ``log_obs_fn(obs_args, paths)`` maps paths of shape (T, S) to log g_t at
+        those paths, shape (T, S); a pure function (it is a static argument of the gradient).
+      obs_args: the pytree (parameters, data) that log g_t depends on.
       guess: a rough path for the posterior mode, shape (T,), starting the Newton steps.
       key: JAX PRNG key; the fitting and scoring draws are derived from it.
       settings: static estimator settings.
@@ -420,10 +444,10 @@ def eis_loglik(
     """
     n_periods = guess.shape[0]
     fit_normals, score_normals = standard_normals(key, n_periods, settings)
-    auxiliary, info = fit_auxiliary(state, log_obs_fn, fit_normals, guess, settings)
+    auxiliary, info = fit_auxiliary(state, log_obs_fn, obs_args, fit_normals, guess, settings)
     sampler = assemble(state, auxiliary)
     paths = draw_paths(sampler, score_normals)
-    weights = log_weights(sampler, log_obs_fn(paths), paths)
+    weights = log_weights(sampler, log_obs_fn(obs_args, paths), paths)
     value = logsumexp(weights) - jnp.log(weights.shape[0])
     return EISOutput(value, weights, paths, auxiliary, sampler, info)
 

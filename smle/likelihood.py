@@ -152,11 +152,20 @@ def as_key(seed) -> jax.Array:
 def eis_output(model: Model, settings: eis.EISSettings, params: Mapping, y, key) -> eis.EISOutput:
     """Pure, differentiable EIS evaluation of ``model`` at ``params`` (a mapping of JAX scalars)."""
     data = model.prepare(params, y)
+    return eis.eis_loglik(
+        model.latent(params), _log_obs_function(model), (params, data), model.mode_guess(params, data), key, settings
+    )
 
-    def log_obs_fn(paths):
+
+@functools.lru_cache(maxsize=None)
+def _log_obs_function(model: Model):
+    """``(obs_args, paths) -> log g_t``: one function object per model, so compiled code is reused."""
+
+    def log_obs(obs_args, paths):
+        params, data = obs_args
         return model.log_obs_density(params, data, paths)
 
-    return eis.eis_loglik(model.latent(params), log_obs_fn, model.mode_guess(params, data), key, settings)
+    return log_obs
 
 
 @functools.lru_cache(maxsize=None)

@@ -40,6 +40,8 @@ class Model:
     n_series: ClassVar[int] = 1
     min_periods: ClassVar[int] = 10
     stationary_state: ClassVar[bool] = True
+    expects_returns: ClassVar[bool] = False
+    factor_name: ClassVar[str] = "latent state x_t"
 
     # -- to be supplied by each model ---------------------------------------------------------
     def constraints(self) -> dict[str, Constraint]:
@@ -99,6 +101,20 @@ class Model:
 
         guess = jnp.full((n_periods,), state.init_mean)
         return jnp.sum(log_integral_adaptive(log_integrand, guess, n_nodes=n_nodes))
+
+    # -- the parameter bijection used by the optimiser ---------------------------------------
+    def to_real(self, params: Mapping) -> jax.Array:
+        """Natural parameters -> unconstrained vector (per-parameter bijections by default).
+
+        Models with a joint constraint (GARCH stationarity, say) override this and
+        :meth:`from_real` together.
+        """
+        constraints = self.constraints()
+        return jnp.stack([jnp.asarray(c.to_real(jnp.asarray(params[n], float))) for n, c in constraints.items()])
+
+    def from_real(self, unconstrained: jax.Array) -> dict:
+        """Unconstrained vector -> natural parameters (inverse of :meth:`to_real`)."""
+        return {n: c.from_real(unconstrained[i]) for i, (n, c) in enumerate(self.constraints().items())}
 
     # -- conveniences ------------------------------------------------------------------------
     @property

@@ -31,6 +31,8 @@ class StochasticVolatility(Model):
     name = "sv"
     summary = "log-normal stochastic volatility with Gaussian errors"
     equations = "y_t = exp(x_t/2) eps_t; x_t - mu = phi (x_{t-1} - mu) + sigma_eta eta_t"
+    expects_returns = True
+    factor_name = "log variance x_t"
 
     def constraints(self):
         return {

@@ -1,0 +1,345 @@
+"""Simulated maximum likelihood: :func:`fit`.
+
+The objective is minus the EIS log-likelihood per observation, in the unconstrained
+parameterisation each model declares, with the auxiliary sampler re-fitted at every parameter
+value and the common random numbers held fixed. Its gradient is exact: the EIS fixed point is
+differentiated implicitly (see :mod:`smle.eis`). The optimiser is L-BFGS (optax's two-loop
+recursion) with a weak Wolfe line search; every evaluation of the objective and its gradient is
+one JIT-compiled program, compiled once per (model, settings, data shape). Standard errors come from the inverse
+Hessian of minus the log-likelihood (central differences of the exact gradient), mapped to the
+natural parameters by the delta method.
+
+References: Richard and Zhang (2007), J. Econometrics 141 (EIS); Liu and Nocedal (1989),
+Math. Programming 45 (L-BFGS); Durbin and Koopman (1997), Biometrika 84 (bias correction).
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+import sys
+import time
+from typing import Callable, Mapping
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+import optax
+from scipy import stats
+
+from smle import eis
+from smle.errors import SmleInputError
+from smle.likelihood import as_key, check_observations, check_settings, eis_output
+from smle.models import Model, get_model
+from smle.params import check_params
+from smle.results import FitResult
+
+
+def objective(model: Model, settings: eis.EISSettings, y, key) -> Callable:
+    """Minus the EIS log-likelihood per observation as a function of the unconstrained vector.
+
+    Returns ``(value, aux)`` where ``aux`` carries the EIS output and weight diagnostics at
+    that point (the scoring paths and weights give the smoothed factor at the optimum).
+    """
+    n_periods = y.shape[0]
+
+    def negative_loglik(unconstrained):
+        params = model.from_real(unconstrained)
+        out = eis_output(model, settings, params, y, key)
+        diagnostics = eis.weight_diagnostics(jax.lax.stop_gradient(out.log_weights), settings.antithetic)
+        return -out.value / n_periods, (out, diagnostics)
+
+    return negative_loglik
+
+
+@functools.lru_cache(maxsize=None)
+def compiled_value_and_grad(model: Model, settings: eis.EISSettings):
+    """``(u, y, key) -> ((value, aux), gradient)`` of :func:`objective`, compiled once per data shape.
+
+    One compiled program serves the optimiser's every evaluation, its line search and the
+    Hessian. (A fully traced optax L-BFGS loop inlines the objective three times, in the
+    update, the line search and its start, and took three times as long to compile: 20 s
+    against 6 s for sv at T = 2000.)
+    """
+
+    def run(u, y, key):
+        return jax.value_and_grad(objective(model, settings, y, key), has_aux=True)(u)
+
+    return jax.jit(run)
+
+
+@functools.lru_cache(maxsize=None)
+def _direction_transform(memory_size: int = 10):
+    solver = optax.chain(optax.scale_by_lbfgs(memory_size=memory_size), optax.scale(-1.0))
+    return solver, jax.jit(solver.update)
+
+
+def _lbfgs(evaluate, u0, max_steps, gtol, verbose):
+    """L-BFGS: optax's two-loop recursion for the direction, a weak Wolfe line search.
+
+    ``evaluate(u) -> (value, aux, gradient)``. The line search (bisection and doubling on the
+    Armijo and curvature conditions; Lewis and Overton 2013, Math. Programming 141) keeps
+    s'y > 0 so that the L-BFGS memory stays positive definite.
+    """
+    solver, update = _direction_transform()
+    state = solver.init(u0)
+    u = u0
+    value, aux, grad = evaluate(u)
+    evaluations, steps, stalled = 1, 0, False
+    while steps < max_steps and float(jnp.max(jnp.abs(grad))) > gtol:
+        direction, state = update(grad, state, u)
+        slope = float(jnp.vdot(grad, direction))
+        if not slope < 0:  # not a descent direction: restart the memory with steepest descent
+            state = solver.init(u)
+            direction, slope = -grad, -float(jnp.vdot(grad, grad))
+        lower, upper, alpha = 0.0, math.inf, 1.0
+        accepted = None
+        for _ in range(40):
+            trial = u + alpha * direction
+            t_value, t_aux, t_grad = evaluate(trial)
+            evaluations += 1
+            if not math.isfinite(float(t_value)) or float(t_value) > float(value) + 1e-4 * alpha * slope:
+                upper = alpha
+            elif float(jnp.vdot(t_grad, direction)) < 0.9 * slope:
+                lower = alpha
+            else:
+                accepted = (trial, t_value, t_aux, t_grad)
+                break
+            alpha = 0.5 * (lower + upper) if math.isfinite(upper) else 2.0 * alpha
+        steps += 1
+        if accepted is None:
+            stalled = True
+            break
+        u, value, aux, grad = accepted
+        if verbose:
+            print(f"  step {steps:3d}   -loglik/T {float(value):.8f}   max|grad| {float(jnp.max(jnp.abs(grad))):.2e}",
+                  file=sys.stderr, flush=True)
+    return dict(u=np.asarray(u), value=float(value), aux=aux, grad_norm=float(jnp.max(jnp.abs(grad))),
+                steps=steps, evaluations=evaluations, stalled=stalled, max_steps=max_steps, gtol=gtol)
+
+
+def _hessian(evaluate, u, n_periods, step=1e-4):
+    """Hessian of minus the total log-likelihood in u, by central differences of the exact gradient."""
+    columns = []
+    for i in range(u.shape[0]):
+        e = np.zeros(u.shape[0])
+        e[i] = step
+        plus = np.asarray(evaluate(u + e)[2])
+        minus = np.asarray(evaluate(u - e)[2])
+        columns.append((plus - minus) / (2 * step))
+    hessian = np.column_stack(columns) * n_periods
+    return 0.5 * (hessian + hessian.T)
+
+
+def _weighted_quantiles(paths: np.ndarray, weights: np.ndarray, probabilities) -> np.ndarray:
+    """Per-period weighted quantiles of the draws (paths (T, S), weights (S,) summing to 1)."""
+    order = np.argsort(paths, axis=1)
+    sorted_paths = np.take_along_axis(paths, order, axis=1)
+    cumulative = np.cumsum(weights[order], axis=1)
+    out = []
+    for p in probabilities:
+        index = np.minimum((cumulative < p).sum(axis=1), paths.shape[1] - 1)
+        out.append(sorted_paths[np.arange(paths.shape[0]), index])
+    return np.stack(out)
+
+
+def check_fit_data(model: Model, y) -> np.ndarray:
+    """Observation checks that matter for estimation, beyond :func:`check_observations`."""
+    array = check_observations(model, y)
+    flat = array.reshape(array.shape[0], -1)
+    if np.any(np.ptp(flat, axis=0) == 0):
+        raise SmleInputError(
+            f"y is constant (every value is {flat[0, 0]!r}); a model cannot be estimated from a constant series"
+        )
+    if model.expects_returns and model.n_series == 1:
+        positive = np.all(array > 0)
+        lag_one = np.corrcoef(array[1:], array[:-1])[0, 1]
+        if positive and lag_one > 0.9:
+            raise SmleInputError(
+                f"y looks like prices, not returns (all positive, lag-1 autocorrelation {lag_one:.3f}); "
+                f"model '{model.name}' expects returns: convert with smle.data.log_returns (or "
+                "--prices on the command line)"
+            )
+    return array
+
+
+def fit(
+    model,
+    y,
+    n_draws: int = 64,
+    seed: int = 0,
+    start: Mapping[str, float] | None = None,
+    antithetic: bool = True,
+    tol: float = 1e-8,
+    max_iter: int = 100,
+    max_steps: int = 200,
+    gtol: float = 1e-6,
+    n_seeds: int = 1,
+    level: float = 0.95,
+    verbose: bool = False,
+) -> FitResult:
+    """Estimate a model by simulated maximum likelihood (EIS).
+
+    Args:
+      model: registered model name or instance.
+      y: observations, shape (T,) or (T, n_series); returns in the unit the user gives.
+      n_draws: EIS draws per set (fitting and scoring sets each have ``n_draws``).
+      seed: the common random numbers derive from it; ``n_seeds > 1`` refits with seeds
+        ``seed + 1, ...`` to measure the simulation error of the estimates.
+      start: start values by parameter name (default: the model's, from the data).
+      antithetic: antithetic EIS draws.
+      tol, max_iter: EIS convergence tolerance and iteration cap at every evaluation.
+      max_steps: cap on L-BFGS steps.
+      gtol: convergence when the largest gradient component of minus the log-likelihood per
+        observation, in the unconstrained parameterisation, is below this.
+      n_seeds: number of independent fits for simulation standard errors (1: none).
+      level: confidence level of the intervals.
+      verbose: print optimiser progress to standard error.
+
+    Returns:
+      A :class:`~smle.results.FitResult`.
+    """
+    model = get_model(model)
+    y = check_fit_data(model, y)
+    settings = check_settings(n_draws, antithetic, tol, max_iter)
+    if isinstance(n_seeds, bool) or not isinstance(n_seeds, (int, np.integer)) or n_seeds < 1:
+        raise SmleInputError(f"n_seeds = {n_seeds!r} is not accepted; accepted: an integer >= 1")
+    if not (isinstance(level, float) and 0.5 <= level < 1):
+        raise SmleInputError(f"level = {level!r} is not accepted; accepted: a number in [0.5, 1)")
+    if isinstance(max_steps, bool) or not isinstance(max_steps, (int, np.integer)) or max_steps < 1:
+        raise SmleInputError(f"max_steps = {max_steps!r} is not accepted; accepted: an integer >= 1")
+    if start is None:
+        start_params = model.start_params(y)
+    else:
+        try:
+            start_params = check_params(model.name, model.constraints(), start)
+        except SmleInputError as error:
+            raise SmleInputError(f"start values: {error}") from None
+    key = as_key(seed)
+    y_jax = jnp.asarray(y)
+    started = time.perf_counter()
+    if verbose:
+        print(f"fitting '{model.name}' to {y.shape[0]} periods with {settings.n_draws} EIS draws "
+              "(the first call compiles; later calls of this shape reuse the program)", file=sys.stderr, flush=True)
+    first = _fit_one(model, settings, y_jax, key, start_params, max_steps, gtol, verbose)
+    extra = []
+    for offset in range(1, n_seeds):
+        if verbose:
+            print(f"refit with seed {seed + offset} ({offset + 1}/{n_seeds})", file=sys.stderr, flush=True)
+        extra.append(_fit_one(model, settings, y_jax, as_key(seed + offset), start_params, max_steps, gtol, False))
+    return _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, level,
+                     time.perf_counter() - started)
+
+
+def _evaluator(model, settings, y, key):
+    compiled = compiled_value_and_grad(model, settings)
+
+    def evaluate(u):
+        (value, aux), grad = compiled(jnp.asarray(u), y, key)
+        return value, aux, grad
+
+    return evaluate
+
+
+def _fit_one(model, settings, y, key, start_params, max_steps, gtol, verbose):
+    u0 = jnp.asarray(model.to_real(start_params))
+    return _lbfgs(_evaluator(model, settings, y, key), u0, int(max_steps), float(gtol), verbose)
+
+
+def _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, level, elapsed):
+    names = model.param_names
+    n_periods = y.shape[0]
+    u = first["u"]
+    params = {n: float(v) for n, v in model.from_real(jnp.asarray(u)).items()}
+    converged = first["grad_norm"] <= first["gtol"]
+    if converged:
+        message = "converged: gradient below tolerance"
+    elif first["stalled"]:
+        message = (f"not converged: the line search made no progress (max|grad| = {first['grad_norm']:.2e}, "
+                   f"tolerance {first['gtol']:.0e}); try other start values or more draws")
+    else:
+        message = f"not converged: reached max_steps = {first['max_steps']} (max|grad| = {first['grad_norm']:.2e})"
+
+    hessian = _hessian(_evaluator(model, settings, y_jax, key), u, n_periods)
+    jacobian = np.asarray(jax.jacfwd(lambda v: jnp.stack(list(model.from_real(v).values())))(jnp.asarray(u)))
+    eigenvalues = np.linalg.eigvalsh(hessian)
+    z = stats.norm.ppf(0.5 + level / 2)
+    if np.all(eigenvalues > 0):
+        cov_u = np.linalg.inv(hessian)
+        covariance = jacobian @ cov_u @ jacobian.T
+        se_u = np.sqrt(np.diag(cov_u))
+        std_errors = dict(zip(names, np.sqrt(np.diag(covariance)).tolist()))
+        conf_int = {}
+        for i, n in enumerate(names):
+            bounds = []
+            for sign in (-1.0, 1.0):
+                shifted = u.copy()
+                shifted[i] += sign * z * se_u[i]
+                bounds.append(float(model.from_real(jnp.asarray(shifted))[n]))
+            conf_int[n] = (min(bounds), max(bounds))
+    else:
+        covariance = np.full((len(names), len(names)), np.nan)
+        std_errors = {n: math.nan for n in names}
+        conf_int = {n: (math.nan, math.nan) for n in names}
+        converged = False
+        message += "; the Hessian is not positive definite (no standard errors): the optimum is not a strict maximum"
+
+    out, diagnostics = first["aux"]
+    log_weights = np.asarray(out.log_weights)
+    paths = np.asarray(out.paths)
+    weights = np.exp(log_weights - log_weights.max())
+    weights /= weights.sum()
+    smoothed_mean = paths @ weights
+    lower, upper = _weighted_quantiles(paths, weights, (0.05, 0.95))
+    loglik = float(out.value)
+    nse = float(diagnostics["nse"])
+    k = len(names)
+
+    simulation_std_errors = None
+    seed_estimates = None
+    if extra:
+        seed_estimates = [params] + [
+            {n: float(v) for n, v in model.from_real(jnp.asarray(e["u"])).items()} for e in extra
+        ]
+        simulation_std_errors = {n: float(np.std([s[n] for s in seed_estimates], ddof=1)) for n in names}
+
+    return FitResult(
+        model=model.name,
+        model_options={f: getattr(model, f) for f in getattr(model, "__dataclass_fields__", {})},
+        param_names=list(names),
+        params=params,
+        std_errors=std_errors,
+        conf_int=conf_int,
+        level=level,
+        covariance=covariance,
+        loglik=loglik,
+        nse=nse,
+        n_obs=n_periods,
+        aic=-2 * loglik + 2 * k,
+        bic=-2 * loglik + k * math.log(n_periods),
+        converged=bool(converged),
+        message=message,
+        iterations=first["steps"],
+        n_evaluations=first["evaluations"] + 2 * k,
+        grad_norm=first["grad_norm"],
+        elapsed_seconds=elapsed,
+        start=dict(start_params),
+        eis={
+            "n_draws": settings.n_draws,
+            "antithetic": settings.antithetic,
+            "seed": int(seed),
+            "tol": settings.tol,
+            "iterations": int(out.info.iterations),
+            "converged": bool(out.info.converged),
+            "last_change": float(out.info.last_change),
+            "ess": float(diagnostics["ess"]),
+            "min_r_squared": float(np.min(np.asarray(out.info.r_squared))),
+        },
+        factor_name=model.factor_name,
+        smoothed_mean=smoothed_mean,
+        smoothed_lower=lower,
+        smoothed_upper=upper,
+        log_weights=log_weights,
+        simulation_std_errors=simulation_std_errors,
+        seed_estimates=seed_estimates,
+    )
