@@ -1,0 +1,193 @@
+"""The ``smle`` command line.
+
+    smle fit --model sv data.csv      estimate a model on a column of returns or prices
+    smle models                       list the registered models and their parameters
+    smle demo                         fit the invented demo scenario end to end
+    smle prepare intraday.csv         prices to the aligned daily table of returns and measures
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from smle.errors import SmleInputError
+
+
+def _read_series(path: str, column: str | None, prices: bool, drop_missing: bool) -> tuple[np.ndarray, object, str]:
+    """One numeric column of a CSV file as returns (percent log returns when ``prices``)."""
+    import pandas as pd
+
+    try:
+        frame = pd.read_csv(path)
+    except FileNotFoundError:
+        raise SmleInputError(f"data file {path!r} does not exist") from None
+    except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as error:
+        raise SmleInputError(f"data file {path!r} could not be read as CSV: {error}") from None
+    if column is None:
+        numeric = [c for c in frame.columns if pd.api.types.is_numeric_dtype(frame[c]) and str(c).lower() not in ("rownames", "index", "")]
+        if not numeric:
+            raise SmleInputError(f"{path!r} has no numeric column; its columns are: {', '.join(map(str, frame.columns))}")
+        column = numeric[-1]
+    elif column not in frame.columns:
+        raise SmleInputError(f"--column {column!r} is not in {path!r}; its columns are: {', '.join(map(str, frame.columns))}")
+    series = pd.to_numeric(frame[column], errors="coerce")
+    bad_text = series.isna() & frame[column].notna()
+    if bad_text.any():
+        rows = list(np.flatnonzero(bad_text.to_numpy())[:5] + 2)
+        raise SmleInputError(f"column {column!r} of {path!r} has non-numeric values at file line(s) {rows}")
+    missing = series.isna().to_numpy()
+    if missing.any():
+        rows = list(np.flatnonzero(missing)[:10] + 2)
+        if not drop_missing:
+            raise SmleInputError(
+                f"column {column!r} of {path!r} has {int(missing.sum())} missing value(s), at file line(s) {rows}"
+                f"{' ...' if missing.sum() > 10 else ''}; fix them, or pass --drop-missing to drop those rows"
+            )
+        print(f"dropped {int(missing.sum())} row(s) with a missing {column!r} (file lines {rows}...)", file=sys.stderr)
+        frame = frame.loc[~missing]
+        series = series.loc[~missing]
+    values = series.to_numpy(dtype=float)
+    index = frame.iloc[:, 0].to_numpy() if frame.shape[1] > 1 else np.arange(len(values))
+    unit = "as given"
+    if prices:
+        if np.any(values <= 0):
+            row = int(np.flatnonzero(values <= 0)[0]) + 2
+            raise SmleInputError(f"--prices: column {column!r} has a non-positive price at file line {row}")
+        values = 100.0 * np.diff(np.log(values))
+        index = index[1:]
+        unit = "percent log returns"
+    return values, index, f"{column} ({unit})"
+
+
+def _write_report(result, y, folder: Path, label: str) -> None:
+    """Results JSON and two figures into ``folder``."""
+    from smle import plots
+
+    folder.mkdir(parents=True, exist_ok=True)
+    result.to_json(folder / "result.json")
+    (folder / "summary.txt").write_text(result.summary() + "\n")
+    plots.data_and_factor(result, y, label, folder / "factor.png")
+    plots.log_weights(result, folder / "log_weights.png")
+
+
+def _fit_and_report(model_name, y, label, args) -> int:
+    import smle
+
+    result = smle.fit(model_name, y, n_draws=args.draws, seed=args.seed, n_seeds=args.seeds, verbose=not args.quiet)
+    print(result.summary())
+    if args.report:
+        folder = Path(args.report)
+        _write_report(result, y, folder, label)
+        print(f"\nreport written to {folder}/ (result.json, summary.txt, factor.png, log_weights.png)")
+    return 0 if result.converged else 3
+
+
+def _command_fit(args) -> int:
+    y, _, label = _read_series(args.data, args.column, args.prices, args.drop_missing)
+    return _fit_and_report(args.model, y, label, args)
+
+
+def _command_models(args) -> int:
+    import smle
+
+    for name in smle.model_names():
+        model = smle.get_model(name)
+        print(model.describe())
+        print(f"    equations: {model.equations}\n")
+    return 0
+
+
+def _command_demo(args) -> int:
+    from smle.data import demo_scenario, prepare_from_daily
+
+    folder = Path(args.report or tempfile.mkdtemp(prefix="smle-demo-"))
+    scenario = demo_scenario(seed=args.seed, n_days=args.days, folder=folder / "data")
+    daily = prepare_from_daily(scenario.daily)
+    y = daily["return_pct"].to_numpy()
+    settings = scenario.settings
+    print(f"demo scenario (invented, simulated data): {settings['instrument']} on {settings['venue']}, "
+          f"{len(y)} daily returns in percent; files in {folder / 'data'}")
+    args.report = str(folder / "report")
+    return _fit_and_report(args.model, y, "daily return (percent, demo data)", args)
+
+
+def _command_prepare(args) -> int:
+    from smle.data import prepare_file
+
+    options = {}
+    if args.session_open:
+        options["session_open"] = args.session_open
+    if args.session_close:
+        options["session_close"] = args.session_close
+    if args.timezone:
+        options["timezone"] = args.timezone
+    if args.drop_bad_rows:
+        options["repair"] = "drop"
+    table = prepare_file(args.data, args.output, interval=args.interval, kind=args.kind, **options)
+    print(table.head().to_string())
+    print(f"... {len(table)} daily rows written to {table.attrs['output_path']}")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="smle",
+        description="Simulated maximum likelihood (efficient importance sampling) for latent-factor volatility models.",
+    )
+    commands = parser.add_subparsers(dest="command", required=True)
+
+    def estimation_options(p, default_model="sv"):
+        p.add_argument("--model", default=default_model, help=f"registered model name (default {default_model}; see 'smle models')")
+        p.add_argument("--draws", type=int, default=64, help="EIS draws per set (default 64)")
+        p.add_argument("--seed", type=int, default=0, help="seed of the common random numbers (default 0)")
+        p.add_argument("--seeds", type=int, default=1, help="independent refits for simulation standard errors (default 1)")
+        p.add_argument("--quiet", action="store_true", help="no progress output")
+
+    fit = commands.add_parser("fit", help="estimate a model on a CSV column of returns or prices")
+    fit.add_argument("data", help="CSV file")
+    fit.add_argument("--column", help="column to use (default: the last numeric column)")
+    fit.add_argument("--prices", action="store_true", help="the column holds prices: convert to percent log returns")
+    fit.add_argument("--drop-missing", action="store_true", help="drop rows with a missing value instead of failing")
+    fit.add_argument("--report", help="folder for the report (result.json, summary, figures)")
+    estimation_options(fit)
+    fit.set_defaults(handler=_command_fit)
+
+    models = commands.add_parser("models", help="list the registered models and their parameters")
+    models.set_defaults(handler=_command_models)
+
+    demo = commands.add_parser("demo", help="fit the invented demo scenario (simulated data) end to end")
+    demo.add_argument("--days", type=int, default=750, help="days of demo data (default 750)")
+    demo.add_argument("--report", help="folder for the demo data and report (default: a new temporary folder)")
+    estimation_options(demo)
+    demo.set_defaults(handler=_command_demo)
+
+    prepare = commands.add_parser("prepare", help="prices (intraday or daily bars) to a daily table of returns and measures")
+    prepare.add_argument("data", help="CSV (or Parquet) file of intraday prices/bars, daily bars or closes")
+    prepare.add_argument("--output", help="CSV to write (default: <input>_daily.csv)")
+    prepare.add_argument("--interval", default="5min", help="sampling interval of realized measures (default 5min)")
+    prepare.add_argument("--kind", default="auto", choices=["auto", "intraday", "daily"], help="input kind (default: detect)")
+    prepare.add_argument("--session-open", help="session open, venue time HH:MM (default 09:30)")
+    prepare.add_argument("--session-close", help="session close, venue time HH:MM (default 16:00)")
+    prepare.add_argument("--timezone", help="venue time zone (default UTC)")
+    prepare.add_argument("--drop-bad-rows", action="store_true", help="drop bad rows (logged) instead of failing")
+    prepare.set_defaults(handler=_command_prepare)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.handler(args)
+    except SmleInputError as error:
+        print(f"smle: error: {error}", file=sys.stderr)
+        return 2
+
+
+if __name__ == "__main__":
+    sys.exit(main())
