@@ -1,0 +1,179 @@
+"""Running a study: what is left to do, where it runs, committing each result as it arrives."""
+
+from __future__ import annotations
+
+import sys
+import time
+from pathlib import Path
+from typing import NamedTuple
+
+from smle.errors import SmleInputError
+from smle.study import store as store_module
+from smle.study.backends import make_backend
+from smle.study.spec import Study, check_study, load_study
+
+
+class RunReport(NamedTuple):
+    """What a call of :func:`run_study` did.
+
+    Attributes:
+      store: path of the store.
+      completed, failed: replications finished by this call (failed ones included in neither
+        count of the other).
+      skipped: replications already in the store before the call.
+      remaining: replications still missing after the call (0 when the study is complete).
+      elapsed_seconds: wall time of the call.
+      backend, workers: where it ran.
+    """
+
+    store: str
+    completed: int
+    failed: int
+    skipped: int
+    remaining: int
+    elapsed_seconds: float
+    backend: str
+    workers: int
+
+
+def format_duration(seconds: float) -> str:
+    if seconds != seconds or seconds == float("inf"):
+        return "?"
+    if seconds < 90:
+        return f"{seconds:.0f} s"
+    if seconds < 5400:
+        return f"{seconds / 60:.1f} min"
+    return f"{seconds / 3600:.1f} h"
+
+
+class Progress:
+    """Counts, rate and time remaining, printed to standard error (at most every ``every`` seconds)."""
+
+    def __init__(self, name: str, total: int, already: int, to_run: int, stream=None, every: float = 2.0):
+        self.name, self.total, self.already, self.to_run = name, total, already, to_run
+        self.stream = stream if stream is not None else sys.stderr
+        self.every = every
+        self.done = self.failed = 0
+        self.started = time.perf_counter()
+        self.last = -1e9
+
+    def update(self, status: str) -> None:
+        self.done += 1
+        self.failed += status == "failed"
+        now = time.perf_counter()
+        if now - self.last >= self.every or self.done == self.to_run:
+            self.last = now
+            self.stream.write(self.line(now) + "\n")
+            self.stream.flush()
+
+    def line(self, now: float | None = None) -> str:
+        elapsed = (now or time.perf_counter()) - self.started
+        rate = self.done / elapsed if elapsed > 0 else float("nan")
+        left = (self.to_run - self.done) / rate if rate > 0 else float("nan")
+        return (f"study {self.name}: {self.already + self.done}/{self.total} replications stored"
+                f"{f' ({self.failed} failed this run)' if self.failed else ''}; this run {self.done}/{self.to_run} "
+                f"in {format_duration(elapsed)}, {60 * rate:.1f}/min; about {format_duration(left)} left")
+
+
+def _store_path(study: Study, store) -> Path:
+    path = store if store is not None else study.store
+    if path is None:
+        raise SmleInputError(f"study '{study.name}' names no store: give store= (--store) or [outputs] store in the file")
+    return Path(path)
+
+
+def pending_replications(study: Study, store=None, retry_failed: bool = False) -> list:
+    """``(design, replication)`` pairs not yet stored (failed ones too, with ``retry_failed``), in study order."""
+    path = _store_path(study, store)
+    done = set()
+    if path.exists():
+        connection = store_module.open_read_only(path)
+        try:
+            query = "SELECT design, replication FROM replications" + (" WHERE status = 'ok'" if retry_failed else "")
+            done = {(r[0], r[1]) for r in connection.execute(query)}
+        finally:
+            connection.close()
+    return [(d, r) for d in study.designs for r in range(d.replications) if (d.name, r) not in done]
+
+
+def run_study(
+    study,
+    store=None,
+    backend: str = "pool",
+    workers: int | None = None,
+    scheduler: str | None = None,
+    retry_failed: bool = False,
+    batch_size: int = 1,
+    progress: bool = True,
+    allow_new_version: bool = False,
+    max_replications: int | None = None,
+) -> RunReport:
+    """Run (or resume) a study: every replication not yet in the store is computed and committed.
+
+    Args:
+      study: a :class:`~smle.study.Study` or the path of a study file (TOML).
+      store: path of the SQLite store (default: the study's ``[outputs] store``).
+      backend: ``"inprocess"``, ``"pool"`` (local spawned processes, the default) or ``"dask"``
+        (a new LocalCluster unless ``scheduler`` is given).
+      workers: pool or LocalCluster size (default: the number of cores; 2 for LocalCluster).
+      scheduler: address of a running Dask scheduler (implies ``backend="dask"``).
+      retry_failed: run again the replications stored as failed.
+      batch_size: replications of one design per task.
+      progress: counts, rate and time left on standard error.
+      allow_new_version: continue a store written by another smle version.
+      max_replications: stop after this many (for trials and tests; default: all).
+
+    Returns:
+      A :class:`RunReport`. Bad input raises :class:`~smle.errors.SmleInputError` before
+      anything is written.
+    """
+    started = time.perf_counter()
+    study = check_study(load_study(study) if isinstance(study, (str, Path)) else study)
+    path = _store_path(study, store)
+    if isinstance(batch_size, bool) or not isinstance(batch_size, int) or batch_size < 1:
+        raise SmleInputError(f"batch_size = {batch_size!r} is not accepted; accepted: an integer >= 1")
+    if scheduler is not None and backend == "inprocess":
+        raise SmleInputError(f"scheduler = {scheduler!r} needs backend 'dask' (or the default), not 'inprocess'")
+    store_module.check_compatible(path, study, allow_new_version)
+    todo = pending_replications(study, path, retry_failed)
+    if max_replications is not None:
+        todo = todo[:max_replications]
+    total = sum(d.replications for d in study.designs)
+    already = total - len(pending_replications(study, path, retry_failed=False))
+    executor = make_backend(backend, workers, scheduler)
+    if not todo:
+        if progress:
+            print(f"study {study.name}: all {total} replications are stored in {path}", file=sys.stderr)
+        return RunReport(str(path), 0, 0, already, 0, time.perf_counter() - started, executor.name, 0)
+
+    designs = {d.name: d for d in study.designs}
+    tasks = []
+    for name in designs:
+        reps = [r for d, r in todo if d.name == name]
+        for i in range(0, len(reps), batch_size):
+            tasks.append((designs[name].to_dict(), study.master_seed, reps[i:i + batch_size]))
+
+    completed = failed = 0
+    with executor:  # an unreachable scheduler raises here, before the store is opened for writing
+        writer = store_module.Store(path, study, allow_new_version)
+        try:
+            writer.claim()
+            meter = Progress(study.name, total, already, len(todo)) if progress else None
+            if progress:
+                print(f"study {study.name}: {len(todo)} replications to run on {executor.name} "
+                      f"({executor.workers} worker{'s' if executor.workers != 1 else ''}), store {path}",
+                      file=sys.stderr, flush=True)
+            for row in executor.map(tasks):
+                writer.record(row)
+                completed += row["status"] == "ok"
+                failed += row["status"] == "failed"
+                if meter:
+                    meter.update(row["status"])
+        finally:
+            try:
+                writer.release()
+            finally:
+                writer.close()
+    remaining = len(pending_replications(study, path, retry_failed=False))
+    return RunReport(str(path), completed, failed, already, remaining, time.perf_counter() - started,
+                     executor.name, executor.workers)

@@ -1,0 +1,245 @@
+"""Summaries of a study store: per design and parameter, with Monte Carlo standard errors.
+
+For the n successful replications of a design, estimates theta_r of a parameter with truth
+theta (MCSE: the Monte Carlo standard error of each statistic, from the n replications):
+
+=================  =============================================  ==========================================
+statistic          definition                                     MCSE
+=================  =============================================  ==========================================
+mean               mean(theta_r)                                  sd / sqrt(n)
+bias               mean - theta                                   sd / sqrt(n)
+median             median(theta_r)                                sqrt(pi/2) sd / sqrt(n) (normal approx.)
+sd                 empirical standard deviation (ddof 1)          sd / sqrt(2 (n - 1)) (normal approx.)
+rmse               sqrt(mean((theta_r - theta)^2))                sd((theta_r - theta)^2) / (2 rmse sqrt(n))
+mean_se            mean reported standard error                   sd(se_r) / sqrt(n_se)
+se_ratio           mean_se / sd                                   delta method on the two above
+coverage           share of intervals holding theta               sqrt(p (1 - p) / n_ci)
+convergence_rate   share of fits reporting convergence            sqrt(p (1 - p) / n)
+=================  =============================================  ==========================================
+
+References: Morris, White and Crowther (2019), Statistics in Medicine 38 (simulation studies
+and their Monte Carlo standard errors).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from smle.study import store as store_module
+from smle.study.runner import format_duration
+
+STATISTICS = ("mean", "bias", "median", "sd", "rmse", "mean_se", "se_ratio", "coverage", "convergence_rate")
+
+
+def read_results(store) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    """``(designs, replications, estimates)`` tables of a store, in study order."""
+    connection = store_module.open_read_only(store)
+    try:
+        designs = pd.read_sql_query("SELECT name, position, replications, definition FROM designs ORDER BY position",
+                                    connection)
+        replications = pd.read_sql_query(
+            "SELECT r.* FROM replications r JOIN designs d ON d.name = r.design ORDER BY d.position, r.replication",
+            connection)
+        estimates = pd.read_sql_query(
+            "SELECT e.* FROM estimates e JOIN designs d ON d.name = e.design ORDER BY d.position, e.replication, e.rowid",
+            connection)
+    finally:
+        connection.close()
+    designs["definition"] = designs["definition"].map(json.loads)
+    designs["n_periods"] = designs["definition"].map(lambda d: d["n_periods"])
+    designs["model"] = designs["definition"].map(lambda d: d["model"])
+    return designs, replications, estimates
+
+
+def _proportion(flags: np.ndarray) -> tuple[float, float]:
+    n = flags.size
+    if n == 0:
+        return math.nan, math.nan
+    p = float(np.mean(flags))
+    return p, math.sqrt(p * (1 - p) / n)
+
+
+def parameter_statistics(estimates, truth: float, std_errors=None, lower=None, upper=None, converged=None) -> dict:
+    """The statistics of the module docstring for one design and parameter (arrays over replications)."""
+    theta = np.asarray(estimates, float)
+    theta = theta[np.isfinite(theta)]
+    n = theta.size
+    out = {"n": n}
+    if n == 0:
+        return out | {k: math.nan for s in STATISTICS for k in (s, f"{s}_mcse")}
+    mean = float(np.mean(theta))
+    sd = float(np.std(theta, ddof=1)) if n > 1 else math.nan
+    error2 = (theta - truth) ** 2
+    rmse = math.sqrt(float(np.mean(error2)))
+    out.update(
+        mean=mean, mean_mcse=sd / math.sqrt(n),
+        bias=mean - truth, bias_mcse=sd / math.sqrt(n),
+        median=float(np.median(theta)), median_mcse=math.sqrt(math.pi / 2) * sd / math.sqrt(n),
+        sd=sd, sd_mcse=sd / math.sqrt(2 * (n - 1)) if n > 1 else math.nan,
+        rmse=rmse,
+        rmse_mcse=(float(np.std(error2, ddof=1)) / math.sqrt(n) / (2 * rmse)) if n > 1 and rmse > 0 else math.nan,
+    )
+    se = np.asarray(std_errors if std_errors is not None else [], float)
+    se = se[np.isfinite(se)]
+    if se.size:
+        mean_se = float(np.mean(se))
+        mean_se_mcse = float(np.std(se, ddof=1)) / math.sqrt(se.size) if se.size > 1 else math.nan
+        ratio = mean_se / sd if sd > 0 else math.nan
+        ratio_mcse = ratio * math.hypot(mean_se_mcse / mean_se, out["sd_mcse"] / sd) if sd > 0 else math.nan
+    else:
+        mean_se = mean_se_mcse = ratio = ratio_mcse = math.nan
+    out.update(n_se=int(se.size), mean_se=mean_se, mean_se_mcse=mean_se_mcse, se_ratio=ratio, se_ratio_mcse=ratio_mcse)
+    if lower is not None and upper is not None:
+        lo, hi = np.asarray(lower, float), np.asarray(upper, float)
+        finite = np.isfinite(lo) & np.isfinite(hi)
+        coverage, coverage_mcse = _proportion((lo[finite] <= truth) & (truth <= hi[finite]))
+        out.update(n_ci=int(finite.sum()), coverage=coverage, coverage_mcse=coverage_mcse)
+    else:
+        out.update(n_ci=0, coverage=math.nan, coverage_mcse=math.nan)
+    if converged is not None:
+        rate, rate_mcse = _proportion(np.asarray(converged, float))
+    else:
+        rate = rate_mcse = math.nan
+    out.update(convergence_rate=rate, convergence_rate_mcse=rate_mcse)
+    return out
+
+
+def summarize(store, converged_only: bool = False) -> pd.DataFrame:
+    """One row per (design, parameter): the statistics and their MCSEs, plus counts.
+
+    Args:
+      store: path of a study store.
+      converged_only: use only the replications whose fit reported convergence (the
+        convergence rate is then still over all successful replications).
+    """
+    designs, replications, estimates = read_results(store)
+    rows = []
+    for design in designs.itertuples():
+        reps = replications[replications["design"] == design.name]
+        ok = reps[reps["status"] == "ok"]
+        converged_flags = ok["converged"].to_numpy(dtype=float)
+        used = ok[ok["converged"] == 1] if converged_only else ok
+        est = estimates[estimates["design"] == design.name]
+        est = est[est["replication"].isin(used["replication"])]
+        for parameter in dict.fromkeys(est["parameter"]):
+            e = est[est["parameter"] == parameter]
+            stats = parameter_statistics(e["estimate"], float(e["truth"].iloc[0]), e["std_error"], e["lower"],
+                                         e["upper"], converged_flags)
+            rows.append({"design": design.name, "model": design.model, "n_periods": design.n_periods,
+                         "parameter": parameter, "truth": float(e["truth"].iloc[0]),
+                         "replications_planned": int(design.replications), "replications_ok": int(len(ok)),
+                         "replications_failed": int((reps["status"] == "failed").sum()), **stats})
+    return pd.DataFrame(rows)
+
+
+def _cell(value, mcse, digits=4) -> str:
+    if value is None or not math.isfinite(value):
+        return "–"
+    text = f"{value:.{digits}g}"
+    return text + (f" ± {mcse:.2g}" if mcse is not None and math.isfinite(mcse) else "")
+
+
+def markdown_tables(summary: pd.DataFrame, title: str = "study") -> str:
+    """Markdown: one table per design, parameters as rows, each statistic as "value ± MCSE"."""
+    lines = [f"# Monte Carlo study: {title}", "",
+             "Each cell: statistic ± its Monte Carlo standard error (over the successful replications). "
+             "se/sd: mean reported standard error over the empirical standard deviation. "
+             "Coverage: of the nominal 95% intervals (the level set in the design).", ""]
+    for design, table in summary.groupby("design", sort=False):
+        first = table.iloc[0]
+        lines += [f"## {design}", "",
+                  f"{first['model']}, T = {first['n_periods']}; {first['replications_ok']} of "
+                  f"{first['replications_planned']} replications done, {first['replications_failed']} failed; "
+                  f"convergence rate {_cell(first['convergence_rate'], first['convergence_rate_mcse'], 3)}.", "",
+                  "| parameter | truth | mean | bias | median | sd | rmse | mean se | se/sd | coverage |",
+                  "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|"]
+        for r in table.itertuples():
+            lines.append(f"| {r.parameter} | {r.truth:.4g} | {_cell(r.mean, r.mean_mcse)} | {_cell(r.bias, r.bias_mcse, 3)} "
+                         f"| {_cell(r.median, r.median_mcse)} | {_cell(r.sd, r.sd_mcse, 3)} | {_cell(r.rmse, r.rmse_mcse, 3)} "
+                         f"| {_cell(r.mean_se, r.mean_se_mcse, 3)} | {_cell(r.se_ratio, r.se_ratio_mcse, 3)} "
+                         f"| {_cell(r.coverage, r.coverage_mcse, 3)} |")
+        lines.append("")
+    return "\n".join(lines)
+
+
+def write_summary(store, folder, figures: bool = True, converged_only: bool = False, title: str | None = None) -> dict:
+    """Write ``summary.csv``, ``summary.md`` (and figures) into ``folder``; return the paths written."""
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    summary = summarize(store, converged_only)
+    meta = store_module.read_meta(store)
+    title = title or meta.get("study_name", Path(store).stem)
+    written = {"csv": folder / "summary.csv", "markdown": folder / "summary.md"}
+    summary.to_csv(written["csv"], index=False, float_format="%.10g")
+    written["markdown"].write_text(markdown_tables(summary, title) + "\n")
+    if figures and len(summary):
+        from smle.study import figures as fig
+
+        written["bias_rmse"] = fig.bias_rmse_against_length(summary, folder / "bias_rmse.png", title)
+        written["distributions"] = fig.estimate_distributions(store, folder / "distributions.png", title)
+    return written
+
+
+def export_csv(store, path=None) -> pd.DataFrame:
+    """One row per stored replication: key, seeds, status, fit facts and, per parameter,
+    ``<name>``, ``<name>_se``, ``<name>_lower``, ``<name>_upper`` (and ``<name>_truth``). Written to ``path`` if given."""
+    _, replications, estimates = read_results(store)
+    wide = replications.copy()
+    if len(estimates):
+        pieces = []
+        for column, suffix in (("estimate", ""), ("std_error", "_se"), ("lower", "_lower"), ("upper", "_upper"),
+                               ("truth", "_truth"), ("simulation_std_error", "_simulation_se")):
+            piece = estimates.pivot(index=["design", "replication"], columns="parameter", values=column)
+            piece.columns = [f"{p}{suffix}" for p in piece.columns]
+            pieces.append(piece)
+        wide = wide.merge(pd.concat(pieces, axis=1).reset_index(), on=["design", "replication"], how="left")
+    if path is not None:
+        wide.to_csv(path, index=False, float_format="%.17g")
+    return wide
+
+
+def study_status(store) -> dict:
+    """Where a study stands: per design planned / ok / failed / missing, totals, timing, runner state."""
+    meta = store_module.read_meta(store)
+    designs, replications, _ = read_results(store)
+    per_design = []
+    for d in designs.itertuples():
+        reps = replications[replications["design"] == d.name]
+        ok, failed = int((reps["status"] == "ok").sum()), int((reps["status"] == "failed").sum())
+        per_design.append({"design": d.name, "planned": int(d.replications), "ok": ok, "failed": failed,
+                           "missing": max(0, int(d.replications) - ok - failed),
+                           "converged": int(reps["converged"].fillna(0).sum())})
+    seconds = replications["elapsed_seconds"].dropna()
+    missing = sum(p["missing"] for p in per_design)
+    running = store_module.runner_alive(meta)
+    return {
+        "store": str(store), "study": meta.get("study_name"), "smle_version": meta.get("smle_version"),
+        "schema_version": int(meta["schema_version"]), "created_at": meta.get("created_at"),
+        "last_activity": meta.get("last_activity"), "state": "running" if running else ("complete" if missing == 0 else "stopped"),
+        "runner_pid": int(meta["runner_pid"]) if running else None,
+        "planned": sum(p["planned"] for p in per_design), "ok": sum(p["ok"] for p in per_design),
+        "failed": sum(p["failed"] for p in per_design), "missing": missing,
+        "mean_seconds_per_replication": float(seconds.mean()) if len(seconds) else math.nan,
+        "designs": per_design,
+    }
+
+
+def format_status(status: dict) -> str:
+    """The status as text."""
+    per_rep = status["mean_seconds_per_replication"]
+    head = (f"study {status['study']} ({status['state']}{', process ' + str(status['runner_pid']) if status['runner_pid'] else ''})"
+            f"  store {status['store']}  smle {status['smle_version']}, store schema {status['schema_version']}\n"
+            f"{status['ok']} ok + {status['failed']} failed of {status['planned']} planned, {status['missing']} missing; "
+            f"last result {status['last_activity'] or 'none yet'}; "
+            f"{format_duration(per_rep) if math.isfinite(per_rep) else '?'} per replication on one worker, "
+            f"so about {format_duration(per_rep * status['missing']) if math.isfinite(per_rep) else '?'} of worker time left")
+    width = max([len(d["design"]) for d in status["designs"]] + [6])
+    lines = [head, "", f"{'design':<{width}}  planned       ok   failed  missing  converged"]
+    for d in status["designs"]:
+        lines.append(f"{d['design']:<{width}}  {d['planned']:7d}  {d['ok']:7d}  {d['failed']:7d}  {d['missing']:7d}  {d['converged']:9d}")
+    return "\n".join(lines)
