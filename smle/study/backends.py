@@ -17,6 +17,7 @@ from __future__ import annotations
 import multiprocessing
 import os
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
 
 from smle.errors import SmleInputError, describe
 from smle.study.replication import run_batch, warm_up
@@ -71,7 +72,14 @@ class ProcessPool:
         while pending:
             finished, pending = wait(pending, return_when=FIRST_COMPLETED)
             for future in finished:
-                yield from future.result()
+                try:
+                    rows = future.result()
+                except BrokenProcessPool as error:
+                    raise RuntimeError(
+                        "a worker process of the pool died (out of memory, killed, or a script that starts a study "
+                        "without an `if __name__ == '__main__':` guard, which the 'spawn' start method needs); "
+                        "finished replications are stored: run the study again to resume") from error
+                yield from rows
                 nxt = next(tasks, None)
                 if nxt is not None:
                     pending.add(self.executor.submit(run_batch, *nxt))
@@ -132,10 +140,11 @@ class DaskCluster:
                 future.cancel()
 
 
-def make_backend(backend: str = "pool", workers: int | None = None, scheduler: str | None = None):
+def make_backend(backend: str = "pool", workers: int | None = None, scheduler: str | None = None,
+                 timeout: float = 10.0):
     """A back-end by name: ``"inprocess"``, ``"pool"`` or ``"dask"`` (a scheduler address implies dask)."""
     if scheduler is not None and backend in (None, "pool", "dask"):
-        return DaskCluster(scheduler, workers)
+        return DaskCluster(scheduler, workers, timeout)
     if backend == "inprocess":
         return InProcess()
     if backend == "pool":

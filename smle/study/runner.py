@@ -107,6 +107,8 @@ def run_study(
     progress: bool = True,
     allow_new_version: bool = False,
     max_replications: int | None = None,
+    scheduler_timeout: float = 10.0,
+    stop_after_seconds: float | None = None,
 ) -> RunReport:
     """Run (or resume) a study: every replication not yet in the store is computed and committed.
 
@@ -122,6 +124,9 @@ def run_study(
       progress: counts, rate and time left on standard error.
       allow_new_version: continue a store written by another smle version.
       max_replications: stop after this many (for trials and tests; default: all).
+      scheduler_timeout: seconds to wait for the Dask scheduler to answer.
+      stop_after_seconds: stop taking results after this much wall time (a run of the same
+        study later resumes; replications still computing at the stop are not stored).
 
     Returns:
       A :class:`RunReport`. Bad input raises :class:`~smle.errors.SmleInputError` before
@@ -140,18 +145,20 @@ def run_study(
         todo = todo[:max_replications]
     total = sum(d.replications for d in study.designs)
     already = total - len(pending_replications(study, path, retry_failed=False))
-    executor = make_backend(backend, workers, scheduler)
+    executor = make_backend(backend, workers, scheduler, scheduler_timeout)
     if not todo:
         if progress:
             print(f"study {study.name}: all {total} replications are stored in {path}", file=sys.stderr)
         return RunReport(str(path), 0, 0, already, 0, time.perf_counter() - started, executor.name, 0)
 
     designs = {d.name: d for d in study.designs}
-    tasks = []
+    # Round-robin over designs, so that a study stopped early has every design equally far along.
+    chunks = []
     for name in designs:
         reps = [r for d, r in todo if d.name == name]
-        for i in range(0, len(reps), batch_size):
-            tasks.append((designs[name].to_dict(), study.master_seed, reps[i:i + batch_size]))
+        chunks.append([(designs[name].to_dict(), study.master_seed, reps[i:i + batch_size])
+                       for i in range(0, len(reps), batch_size)])
+    tasks = [c[i] for i in range(max(map(len, chunks))) for c in chunks if i < len(c)]
 
     completed = failed = 0
     with executor:  # an unreachable scheduler raises here, before the store is opened for writing
@@ -163,12 +170,19 @@ def run_study(
                 print(f"study {study.name}: {len(todo)} replications to run on {executor.name} "
                       f"({executor.workers} worker{'s' if executor.workers != 1 else ''}), store {path}",
                       file=sys.stderr, flush=True)
-            for row in executor.map(tasks):
+            rows = executor.map(tasks)
+            for row in rows:
                 writer.record(row)
                 completed += row["status"] == "ok"
                 failed += row["status"] == "failed"
                 if meter:
                     meter.update(row["status"])
+                if stop_after_seconds is not None and time.perf_counter() - started > stop_after_seconds:
+                    if progress:
+                        print(f"study {study.name}: stopping after {format_duration(stop_after_seconds)} as asked",
+                              file=sys.stderr, flush=True)
+                    break
+            rows.close()
         finally:
             try:
                 writer.release()
