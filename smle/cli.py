@@ -38,11 +38,11 @@ def _read_series(path: str, column: str | None, prices: bool, drop_missing: bool
     series = pd.to_numeric(frame[column], errors="coerce")
     bad_text = series.isna() & frame[column].notna()
     if bad_text.any():
-        rows = list(np.flatnonzero(bad_text.to_numpy())[:5] + 2)
+        rows = [int(r) + 2 for r in np.flatnonzero(bad_text.to_numpy())[:5]]
         raise SmleInputError(f"column {column!r} of {path!r} has non-numeric values at file line(s) {rows}")
     missing = series.isna().to_numpy()
     if missing.any():
-        rows = list(np.flatnonzero(missing)[:10] + 2)
+        rows = [int(r) + 2 for r in np.flatnonzero(missing)[:10]]
         if not drop_missing:
             raise SmleInputError(
                 f"column {column!r} of {path!r} has {int(missing.sum())} missing value(s), at file line(s) {rows}"

@@ -1,0 +1,111 @@
+"""The command line, run in-process through smle.cli.main."""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import smle
+from smle import cli
+
+from conftest import JPR_DESIGNS
+
+
+@pytest.fixture(scope="module")
+def returns_csv(tmp_path_factory):
+    y, _ = smle.simulate("sv", JPR_DESIGNS["phi=0.95"], 500, seed=77)
+    folder = tmp_path_factory.mktemp("cli")
+    frame = pd.DataFrame({"date": pd.bdate_range("2031-01-06", periods=500).strftime("%Y-%m-%d"), "ret": 100 * y})
+    path = folder / "returns.csv"
+    frame.to_csv(path, index=False)
+    return path, frame
+
+
+def test_help_everywhere(capsys):
+    for argv in (["--help"], ["fit", "--help"], ["models", "--help"], ["demo", "--help"], ["prepare", "--help"]):
+        with pytest.raises(SystemExit) as exit_info:
+            cli.main(argv)
+        assert exit_info.value.code == 0
+        assert "usage: smle" in capsys.readouterr().out
+
+
+def test_models_lists_the_registry(capsys):
+    assert cli.main(["models"]) == 0
+    out = capsys.readouterr().out
+    for name in smle.model_names():
+        assert name in out
+    assert "-1 < phi < 1" in out
+
+
+def test_fit_prints_the_summary_and_writes_a_report(returns_csv, tmp_path, capsys):
+    path, frame = returns_csv
+    report = tmp_path / "report"
+    code = cli.main(["fit", "--model", "sv", str(path), "--report", str(report), "--quiet"])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "log-likelihood" in out and "not investment advice" in out
+    stored = json.loads((report / "result.json").read_text())
+    assert stored["model"] == "sv" and stored["n_obs"] == len(frame)
+    # the same fit through the library gives the same numbers
+    direct = smle.fit("sv", frame["ret"].to_numpy(), n_draws=64, seed=0)
+    assert stored["params"] == direct.params
+    for figure in ("factor.png", "log_weights.png"):
+        assert (report / figure).stat().st_size > 10_000
+
+
+def test_missing_values_are_located_and_can_be_dropped(returns_csv, tmp_path, capsys):
+    _, frame = returns_csv
+    broken = frame.copy()
+    broken.loc[[3, 10], "ret"] = np.nan
+    path = tmp_path / "missing.csv"
+    broken.to_csv(path, index=False)
+    assert cli.main(["fit", str(path), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "2 missing value(s), at file line(s) [5, 12]" in err and "--drop-missing" in err
+
+
+def test_non_numeric_column_and_prices(returns_csv, tmp_path, capsys):
+    _, frame = returns_csv
+    text = frame.copy().astype({"ret": object})
+    text.loc[7, "ret"] = "n/a?"
+    path = tmp_path / "text.csv"
+    text.to_csv(path, index=False)
+    assert cli.main(["fit", str(path), "--column", "ret", "--quiet"]) == 2
+    assert "non-numeric values at file line(s) [9]" in capsys.readouterr().err
+    prices = pd.DataFrame({"close": 50 * np.exp(np.cumsum(frame["ret"].to_numpy() / 100))})
+    price_path = tmp_path / "prices.csv"
+    prices.to_csv(price_path, index=False)
+    assert cli.main(["fit", str(price_path), "--quiet"]) == 2
+    assert "looks like prices" in capsys.readouterr().err
+    assert cli.main(["fit", str(tmp_path / "absent.csv")]) == 2
+    assert "does not exist" in capsys.readouterr().err
+
+
+def test_drop_missing_fits_the_remaining_rows(returns_csv, tmp_path, capsys):
+    _, frame = returns_csv
+    broken = frame.copy()
+    broken.loc[[3, 10], "ret"] = np.nan
+    path = tmp_path / "missing.csv"
+    broken.to_csv(path, index=False)
+    report = tmp_path / "dropped"
+    assert cli.main(["fit", str(path), "--drop-missing", "--quiet", "--report", str(report)]) == 0
+    assert "dropped 2 row(s)" in capsys.readouterr().err
+    assert json.loads((report / "result.json").read_text())["n_obs"] == len(frame) - 2
+
+
+def test_prepare_turns_demo_intraday_bars_into_a_daily_table(tmp_path, capsys):
+    from smle.data import demo_scenario, read_daily_table
+    from smle.data.demo import SESSION_CLOSE, SESSION_OPEN, VENUE_TIMEZONE
+
+    scenario = demo_scenario(seed=3, n_days=15, folder=tmp_path)
+    out = tmp_path / "daily.csv"
+    code = cli.main(["prepare", str(scenario.files["intraday"]), "--output", str(out), "--interval", "5min",
+                     "--session-open", SESSION_OPEN, "--session-close", SESSION_CLOSE, "--timezone", VENUE_TIMEZONE])
+    assert code == 0
+    table = read_daily_table(out)
+    assert len(table) == 14  # the first day only supplies a previous close
+    assert {"return_pct", "realized_variance_pct2"} <= set(table.columns)
+    # daily returns equal the log change of the demo's daily closes (in percent)
+    closes = scenario.daily["close"].to_numpy()
+    np.testing.assert_allclose(table["return_pct"].to_numpy(), 100 * np.diff(np.log(closes)), atol=1e-6)
