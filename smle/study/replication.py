@@ -53,7 +53,7 @@ def run_replication(design: Design | dict, master_seed: int, replication: int) -
                           max_iter=e.max_iter, max_steps=e.max_steps, gtol=e.gtol, n_seeds=e.n_seeds,
                           level=e.level)
     except Exception as error:  # noqa: BLE001 - a failed replication is a result to keep
-        row.update(status="failed", error=f"{type(error).__name__}: {error}\n{traceback.format_exc(limit=4)}",
+        row.update(status="failed", error=f"{type(error).__name__}: {error}\n{traceback.format_exc(limit=-3)}",
                    elapsed_seconds=time.perf_counter() - started, estimates=[])
     else:
         simulation = result.simulation_std_errors or {}
