@@ -176,6 +176,10 @@ def build_parser() -> argparse.ArgumentParser:
     prepare.add_argument("--timezone", help="venue time zone (default UTC)")
     prepare.add_argument("--drop-bad-rows", action="store_true", help="drop bad rows (logged) instead of failing")
     prepare.set_defaults(handler=_command_prepare)
+
+    from smle.study.cli import add_study_commands
+
+    add_study_commands(commands)
     return parser
 
 

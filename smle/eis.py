@@ -288,7 +288,14 @@ def eis_map(state: LatentAR1, log_obs_fn, normals: jax.Array, auxiliary: Auxilia
     current = auxiliary.b_obs[:, None] * paths - 0.5 * auxiliary.c_obs[:, None] * paths**2
     total_var = jnp.var(log_obs, axis=1)
     db, dc, r_squared = fit_quadratic(paths, log_obs - current, total_var)
-    return Auxiliary(auxiliary.b_obs + db, auxiliary.c_obs + dc), r_squared
+    # a period whose regression is not finite (a draw far in a tail where log g overflows)
+    # keeps its current parameters; at a fixed point of finite regressions this never acts
+    usable = jnp.isfinite(db) & jnp.isfinite(dc)
+    new = Auxiliary(
+        jnp.where(usable, auxiliary.b_obs + db, auxiliary.b_obs),
+        jnp.where(usable, auxiliary.c_obs + dc, auxiliary.c_obs),
+    )
+    return new, jnp.where(usable, r_squared, 0.0)
 
 
 def _relative_change(new: Auxiliary, old: Auxiliary):

@@ -262,9 +262,10 @@ def _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, 
 
     hessian = _hessian(_evaluator(model, settings, y_jax, key), u, n_periods)
     jacobian = np.asarray(jax.jacfwd(lambda v: jnp.stack(list(model.from_real(v).values())))(jnp.asarray(u)))
-    eigenvalues = np.linalg.eigvalsh(hessian)
+    finite = bool(np.all(np.isfinite(hessian)))
+    eigenvalues = np.linalg.eigvalsh(hessian) if finite else np.full(len(names), np.nan)
     z = stats.norm.ppf(0.5 + level / 2)
-    if np.all(eigenvalues > 0):
+    if finite and np.all(eigenvalues > 0):
         cov_u = np.linalg.inv(hessian)
         covariance = jacobian @ cov_u @ jacobian.T
         se_u = np.sqrt(np.diag(cov_u))
@@ -282,7 +283,11 @@ def _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, 
         std_errors = {n: math.nan for n in names}
         conf_int = {n: (math.nan, math.nan) for n in names}
         converged = False
-        message += "; the Hessian is not positive definite (no standard errors): the optimum is not a strict maximum"
+        if finite:
+            message += "; the Hessian is not positive definite (no standard errors): the optimum is not a strict maximum"
+        else:
+            message += ("; the Hessian is not finite (no standard errors): the likelihood could not be evaluated "
+                        "near the estimate, which often means a parameter is at the edge of its region")
 
     out, diagnostics = first["aux"]
     log_weights = np.asarray(out.log_weights)

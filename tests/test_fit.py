@@ -174,3 +174,14 @@ def test_bad_input_to_fit():
     missing[5] = np.nan
     with pytest.raises(SmleInputError, match=r"row\(s\) 5"):
         smle.fit("sv", missing)
+
+
+def test_a_breakdown_near_the_optimum_is_reported_not_raised():
+    # one replication of the most extreme Jacquier-Polson-Rossi cell (phi = 0.98,
+    # Var(h)/E(h)^2 = 10, T = 500, 32 draws) where the EIS regressions of a few periods diverge
+    # near the optimum (found by the JPR study in experiments/): fit must return an honest
+    # "not converged" result rather than raise
+    y, _ = smle.simulate("sv", dict(mu=-8.21, phi=0.98, sigma_eta=0.3082), 500, seed=2317081096)
+    result = smle.fit("sv", y, n_draws=32, seed=3336677159)
+    assert not result.converged
+    assert result.message.startswith("not converged")
