@@ -58,7 +58,7 @@ class EISSettings(NamedTuple):
     max_iter: int = 50
     n_newton: int = 5
     max_tangent_iter: int = 200
-    tangent_tol: float = 1e-7
+    tangent_tol: float = 1e-5
 
 
 class Auxiliary(NamedTuple):
