@@ -213,6 +213,7 @@ def fit(
     else:
         try:
             start_params = check_params(model.name, model.constraints(), start)
+            model.check_joint(start_params)
         except SmleInputError as error:
             raise SmleInputError(f"start values: {error}") from None
     key = as_key(seed)
@@ -271,12 +272,18 @@ def _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, 
         se_u = np.sqrt(np.diag(cov_u))
         std_errors = dict(zip(names, np.sqrt(np.diag(covariance)).tolist()))
         conf_int = {}
+        elementwise = np.allclose(jacobian, np.diag(np.diag(jacobian)), rtol=0, atol=1e-12 * np.abs(jacobian).max())
         for i, n in enumerate(names):
-            bounds = []
-            for sign in (-1.0, 1.0):
-                shifted = u.copy()
-                shifted[i] += sign * z * se_u[i]
-                bounds.append(float(model.from_real(jnp.asarray(shifted))[n]))
+            if elementwise:
+                # built on the unconstrained scale and mapped back: stays inside the region
+                bounds = []
+                for sign in (-1.0, 1.0):
+                    shifted = u.copy()
+                    shifted[i] += sign * z * se_u[i]
+                    bounds.append(float(model.from_real(jnp.asarray(shifted))[n]))
+            else:
+                # a joint bijection (GARCH stationarity): delta-method interval in the parameter
+                bounds = [params[n] - z * std_errors[n], params[n] + z * std_errors[n]]
             conf_int[n] = (min(bounds), max(bounds))
     else:
         covariance = np.full((len(names), len(names)), np.nan)

@@ -133,6 +133,7 @@ def checked_inputs(model, params, y):
     """Resolve the model and validate its parameters and data: ``(model, params, y)``."""
     model = get_model(model)
     checked = check_params(model.name, model.constraints(), params)
+    model.check_joint(checked)
     return model, checked, check_observations(model, y)
 
 
@@ -245,6 +246,7 @@ def simulate(model, params: Mapping[str, float], n_periods: int, seed=0):
     """
     model = get_model(model)
     checked = check_params(model.name, model.constraints(), params)
+    model.check_joint(checked)
     if isinstance(n_periods, bool) or not isinstance(n_periods, (int, np.integer)) or n_periods < 1:
         raise SmleInputError(f"n_periods = {n_periods!r} is not accepted; accepted: a positive integer")
     key = as_key(seed)

@@ -28,7 +28,8 @@ class FitResult:
       params, std_errors: estimates and standard errors by name (natural parameterisation;
         inverse Hessian of minus the log-likelihood, delta method).
       conf_int: intervals by name at ``level``, built on the unconstrained scale and mapped back
-        (so they stay inside the admissible region).
+        (so they stay inside the admissible region) when each parameter has its own bijection;
+        delta-method intervals when the model's bijection is joint.
       covariance: covariance matrix of the estimates (natural parameterisation).
       loglik, nse: the EIS log-likelihood at the estimates and its numerical standard error.
       n_obs, aic, bic: number of periods and information criteria (from ``loglik``).

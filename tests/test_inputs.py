@@ -103,3 +103,14 @@ def test_admissible_parameters_never_give_a_nan(returns, phi, sigma_eta, mu, zer
     y[:zeros] = 0.0
     result = smle.loglik("sv", dict(mu=mu, phi=phi, sigma_eta=sigma_eta), y, n_draws=4)
     assert np.isfinite(result.value) and np.isfinite(result.nse)
+
+
+def test_joint_constraints_are_checked_everywhere(returns):
+    # GARCH covariance stationarity alpha + beta < 1 (Bollerslev 1986) is a joint constraint
+    model = smle.get_model("garch-mix")
+    params = {**model.start_params(returns), "alpha": 0.5, "beta": 0.6}
+    for call in (lambda: smle.loglik(model, params, returns, n_draws=4),
+                 lambda: smle.simulate(model, params, 50),
+                 lambda: smle.fit(model, returns, start=params)):
+        with pytest.raises(SmleInputError, match=r"alpha'\] \+ params\['beta'\] = 0.5 \+ 0.6 .* alpha \+ beta < 1"):
+            call()

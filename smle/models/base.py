@@ -75,6 +75,12 @@ class Model:
         """Model-specific checks on validated finite data; return the data to use."""
         return y
 
+    def check_joint(self, params: Mapping) -> None:
+        """Raise :class:`~smle.errors.SmleInputError` for values that break a joint constraint.
+
+        Called on validated user values after the per-parameter checks (default: none).
+        """
+
     def independent_params(self, params: Mapping):
         """Parameters of the independent-factor case (autocorrelation zero), or None."""
         return None
