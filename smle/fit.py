@@ -25,7 +25,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 import optax
-from scipy import stats
+from scipy.special import ndtri
 
 from smle import eis
 from smle.errors import SmleInputError
@@ -265,7 +265,7 @@ def _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, 
     jacobian = np.asarray(jax.jacfwd(lambda v: jnp.stack(list(model.from_real(v).values())))(jnp.asarray(u)))
     finite = bool(np.all(np.isfinite(hessian)))
     eigenvalues = np.linalg.eigvalsh(hessian) if finite else np.full(len(names), np.nan)
-    z = stats.norm.ppf(0.5 + level / 2)
+    z = float(ndtri(0.5 + level / 2))
     if finite and np.all(eigenvalues > 0):
         cov_u = np.linalg.inv(hessian)
         covariance = jacobian @ cov_u @ jacobian.T

@@ -30,7 +30,7 @@ import numpy as np
 from smle import latent, params as P
 from smle.errors import SmleInputError
 from smle.models import register
-from smle.models.base import Model
+from smle.models.sv import LogVarianceState
 
 LOG_2PI = float(np.log(2 * np.pi))
 
@@ -77,7 +77,7 @@ def check_realized_column(model_name: str, column: np.ndarray, index: int = 1) -
 
 @register
 @dataclasses.dataclass(frozen=True)
-class RealizedStochasticVolatility(Model):
+class RealizedStochasticVolatility(LogVarianceState):
     name = "realized-sv"
     summary = "stochastic volatility of returns and a log realized measure with a bias (realized SV)"
     equations = (
@@ -85,19 +85,13 @@ class RealizedStochasticVolatility(Model):
         "x_t - mu = phi (x_{t-1} - mu) + sigma_eta eta_t"
     )
     n_series = 2
-    factor_name = "log variance x_t"
 
     def constraints(self):
         return {
-            "mu": P.real("mean log variance"),
-            "phi": P.interval(-1.0, 1.0, "stationarity of the log variance"),
-            "sigma_eta": P.positive("volatility of log variance"),
+            **self.state_constraints(),
             "xi": P.real("bias of the log realized measure"),
             "sigma_u": P.positive("noise scale of the log realized measure"),
         }
-
-    def latent(self, params):
-        return latent.stationary(params["mu"], params["phi"], params["sigma_eta"])
 
     def check_data(self, y):
         check_realized_column(self.name, y[:, 1])
@@ -131,6 +125,3 @@ class RealizedStochasticVolatility(Model):
         mu = float(np.log(np.var(y[:, 0])))
         return {"mu": mu, "phi": 0.95, "sigma_eta": 0.2,
                 "xi": float(np.mean(log_measure) - mu), "sigma_u": float(0.5 * np.std(log_measure))}
-
-    def independent_params(self, params):
-        return {**params, "phi": jnp.zeros_like(jnp.asarray(params["phi"]))}

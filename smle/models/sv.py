@@ -25,16 +25,18 @@ from smle.models.base import Model
 LOG_2PI = float(np.log(2 * np.pi))
 
 
-@register
 @dataclasses.dataclass(frozen=True)
-class StochasticVolatility(Model):
-    name = "sv"
-    summary = "log-normal stochastic volatility with Gaussian errors"
-    equations = "y_t = exp(x_t/2) eps_t; x_t - mu = phi (x_{t-1} - mu) + sigma_eta eta_t"
-    expects_returns = True
+class LogVarianceState(Model):
+    """What the SV family shares: a stationary Gaussian AR(1) log variance x_t.
+
+    ``x_t - mu = phi (x_{t-1} - mu) + sigma_eta eta_t``, x_1 from the stationary law; its
+    independent-factor case is phi = 0. Subclasses add their observation equation and any
+    further parameters to :meth:`state_constraints`.
+    """
+
     factor_name = "log variance x_t"
 
-    def constraints(self):
+    def state_constraints(self):
         return {
             "mu": P.real("mean log variance"),
             "phi": P.interval(-1.0, 1.0, "stationarity of the log variance"),
@@ -43,6 +45,21 @@ class StochasticVolatility(Model):
 
     def latent(self, params):
         return latent.stationary(params["mu"], params["phi"], params["sigma_eta"])
+
+    def independent_params(self, params):
+        return {**params, "phi": jnp.zeros_like(jnp.asarray(params["phi"]))}
+
+
+@register
+@dataclasses.dataclass(frozen=True)
+class StochasticVolatility(LogVarianceState):
+    name = "sv"
+    summary = "log-normal stochastic volatility with Gaussian errors"
+    equations = "y_t = exp(x_t/2) eps_t; x_t - mu = phi (x_{t-1} - mu) + sigma_eta eta_t"
+    expects_returns = True
+
+    def constraints(self):
+        return self.state_constraints()
 
     def log_obs_density(self, params, data, x):
         return -0.5 * (LOG_2PI + x + data[:, None] ** 2 * jnp.exp(-x))
@@ -56,6 +73,3 @@ class StochasticVolatility(Model):
     def start_params(self, y):
         y = np.asarray(y, float)
         return {"mu": float(np.log(np.var(y))), "phi": 0.95, "sigma_eta": 0.25}
-
-    def independent_params(self, params):
-        return {**params, "phi": jnp.zeros_like(jnp.asarray(params["phi"]))}

@@ -28,12 +28,12 @@ import numpy as np
 from smle import latent, params as P
 from smle.distributions import standardized_student_t_log_density
 from smle.models import register
-from smle.models.base import Model
+from smle.models.sv import LogVarianceState
 
 
 @register
 @dataclasses.dataclass(frozen=True)
-class StudentTStochasticVolatility(Model):
+class StudentTStochasticVolatility(LogVarianceState):
     name = "sv-t"
     summary = "log-normal stochastic volatility with standardised Student-t errors (nu estimated)"
     equations = (
@@ -41,18 +41,12 @@ class StudentTStochasticVolatility(Model):
         "x_t - mu = phi (x_{t-1} - mu) + sigma_eta eta_t"
     )
     expects_returns = True
-    factor_name = "log variance x_t"
 
     def constraints(self):
         return {
-            "mu": P.real("mean log variance"),
-            "phi": P.interval(-1.0, 1.0, "stationarity of the log variance"),
-            "sigma_eta": P.positive("volatility of log variance"),
+            **self.state_constraints(),
             "nu": P.greater_than(2.0, "degrees of freedom; nu > 2 for a finite error variance"),
         }
-
-    def latent(self, params):
-        return latent.stationary(params["mu"], params["phi"], params["sigma_eta"])
 
     def log_obs_density(self, params, data, x):
         # eps = y exp(-x/2); the Jacobian of y -> eps adds -x/2
@@ -69,6 +63,3 @@ class StudentTStochasticVolatility(Model):
     def start_params(self, y):
         y = np.asarray(y, float)
         return {"mu": float(np.log(np.var(y))), "phi": 0.95, "sigma_eta": 0.2, "nu": 10.0}
-
-    def independent_params(self, params):
-        return {**params, "phi": jnp.zeros_like(jnp.asarray(params["phi"]))}
