@@ -144,7 +144,7 @@ def run_study(
     if max_replications is not None:
         todo = todo[:max_replications]
     total = sum(d.replications for d in study.designs)
-    already = total - len(pending_replications(study, path, retry_failed=False))
+    already = total - len(pending_replications(study, path, retry_failed))  # rows kept as they are
     executor = make_backend(backend, workers, scheduler, scheduler_timeout)
     if not todo:
         if progress:
