@@ -114,7 +114,7 @@ def main():
     ]
     for label, rule, ms, ratio, iterations, before, after in rows:
         lines.append(f"| {label} | {rule} | {ms:.1f} | {ratio:.2f} | {iterations} | {before:.1f} | {after:.1f} |")
-    lines += ["", f"Target: garch-mix (ig) within 3x of sv. Measured: "
+    lines += ["", "Target: garch-mix (ig) within 3x of sv. Measured: "
               + ", ".join(f"{rule}: {ratio:.2f}x" for label, rule, ms, ratio, *_ in rows if label == 'garch-mix (ig)'),
               "", "## The ig link alone: W(x) for a (2000, 64) array of states", "",
               "| computation | ms |", "|---|---:|"]

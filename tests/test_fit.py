@@ -1,7 +1,6 @@
 """fit(): exact gradients, published estimates, agreement with the grid-filter maximiser, recovery."""
 
 import importlib
-import math
 
 import jax
 import jax.numpy as jnp

@@ -15,7 +15,7 @@ from smle.distributions import normal_to_inverse_gaussian
 from smle.errors import SmleInputError
 from smle.models import get_model
 
-from _model_checks import N_DRAWS, assert_eis_matches, assert_eis_matches_grid, binomial_bound, coverage_misses, eis_across_seeds
+from _model_checks import N_DRAWS, assert_eis_matches, assert_eis_matches_grid, binomial_bound, eis_across_seeds
 
 BASE = dict(mu=0.03, ar1=0.05, omega=0.05, alpha=0.06, beta=0.90, gamma=-0.4)
 IG = {**BASE, "lambda": 1.5, "rho": 0.9}

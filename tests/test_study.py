@@ -5,9 +5,7 @@ Designs are small (sv, T = 200, n_draws = 16, a few replications) to keep the fi
 
 import argparse
 import dataclasses
-import math
 import sqlite3
-import textwrap
 
 import numpy as np
 import pytest
