@@ -297,7 +297,7 @@ def _check_log_weights(log_weights, argument: str = "log_weights") -> np.ndarray
     if not np.all(np.isfinite(lw)):
         where = int(np.flatnonzero(~np.isfinite(lw))[0])
         raise SmleInputError(
-            f"{argument}[{where}] = {lw[where]!r} is not finite; log weights must all be "
+            f"{argument}[{where}] = {float(lw[where])!r} is not finite; log weights must all be "
             "finite (a weight of 0 or infinity points to a failed EIS run)")
     if lw.size and np.ptp(lw) == 0.0:
         raise SmleInputError(
