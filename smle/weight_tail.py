@@ -200,8 +200,10 @@ def fit_generalized_pareto(exceedances) -> GeneralizedParetoFit:
     for fixed theta, xi(theta) = mean log(1 + theta y) and beta = xi / theta, leaving a
     one-dimensional maximisation over theta > -1 / max(y). It is located on a wide grid of
     theta * max(y) and refined with a bounded scalar search. Reliable for xi in about
-    (-0.5, 3) and beyond on the positive side; for xi < -1 the likelihood is unbounded and
-    no maximum-likelihood estimate exists (the fit then stops near the edge).
+    (-0.5, 3) and beyond on the positive side. For xi < -1 the likelihood is unbounded at
+    the edge beta / xi -> -max(y) and no maximum-likelihood estimate exists; the value
+    returned is then a local maximum or the edge of the search (theta max(y) = -1 + 1e-8),
+    to be read only as 'bounded tail', and the standard errors are nan.
 
     Args:
       exceedances: 1-d array of values y_i >= 0 (amounts over a threshold), at least
