@@ -126,8 +126,8 @@ def test_wald_type_one_error_at_the_boundary():
 
     Source: binomial law of the rejection count; the standard error of a 5% rate over 400
     samples is sqrt(0.05 0.95 / 400) = 0.0109; accept within 3 standard errors,
-    [0.017, 0.083]. (Measured: 0.0275 with this seed; 0.0455 (LR 0.0525) over 2000 samples with another
-    seed; with 500 exceedances the Wald test is conservative, 0.034 over 800 samples.)
+    [0.017, 0.083]. (Measured: 0.0275 with this seed; 0.0455, LR 0.0525, over 2000 samples
+    with another seed; with 500 exceedances the Wald test is conservative, 0.034 over 800.)
     """
     rng = np.random.default_rng(2026)
     n_samples, nominal = 400, 0.05
