@@ -24,6 +24,8 @@ import tempfile
 import time
 from pathlib import Path
 
+from machine import cpu_model  # experiments/machine.py
+
 RESULTS = Path(__file__).resolve().parent / "results"
 DESIGN = dict(mu=-7.36, phi=0.95, sigma_eta=0.26)
 
@@ -55,17 +57,9 @@ def _child(cache_dir: str, n_repeats: int) -> dict:
 
 
 def _machine() -> dict:
-    cpu = "unknown"
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                cpu = line.split(":", 1)[1].strip()
-                break
-    except OSError:
-        pass
     import jax
 
-    return dict(cpu=cpu, cores=os.cpu_count(), python=platform.python_version(), jax=jax.__version__,
+    return dict(cpu=cpu_model(), cores=os.cpu_count(), python=platform.python_version(), jax=jax.__version__,
                 load_average=os.getloadavg(), date=time.strftime("%Y-%m-%d %H:%M"))
 
 

@@ -39,6 +39,7 @@ import sys
 import tempfile
 import time
 from pathlib import Path
+from machine import cpu_model  # experiments/machine.py
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
@@ -60,14 +61,6 @@ OPTIONS = {"max_wait_s": 30.0, "pf_budget_s": 55.0}  # set from the command line
 # Machine and load
 
 
-def cpu_model() -> str:
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or "unknown"
 
 
 def _busy_seconds() -> tuple[float, float]:

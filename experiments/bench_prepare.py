@@ -26,18 +26,12 @@ import pandas as pd
 
 from smle.data import demo_scenario, prepare_daily, prepare_file
 
+from machine import cpu_model  # experiments/machine.py
+
 REPEATS = 7
 VENUE = {"timezone": "Europe/London", "session_open": "09:00", "session_close": "15:30"}
 
 
-def _cpu_model() -> str:
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or "unknown"
 
 
 def _time(function, repeats=REPEATS):
@@ -69,7 +63,7 @@ def main() -> dict:
         "interval": "5min", "subsamples": 5, "target_s": 2.0,
         "timings": timings,
         "meets_target": timings["from_csv"]["median_s"] < 2.0,
-        "machine": {"nproc": os.cpu_count(), "cpu_model": _cpu_model(),
+        "machine": {"nproc": os.cpu_count(), "cpu_model": cpu_model(),
                     "python": platform.python_version(), "numpy": np.__version__,
                     "pandas": pd.__version__, "platform": platform.platform(),
                     "note": "a shared 2-core machine; other work may have run concurrently"},
