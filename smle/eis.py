@@ -565,7 +565,7 @@ def control_variate_correction(
     free = [j for j, coefficient in enumerate(fixed) if coefficient is None]
     target = target - jnp.mean(target)
     n_units = units.shape[0]
-    coefficients = [jnp.asarray(c if c is not None else 0.0, value.dtype) for c in fixed]
+    coefficients = [jnp.asarray(0.0 if c is None else c, value.dtype) for c in fixed]
     if free:
         regressors = control_units[:, free]
         regressors = regressors - jnp.mean(regressors, axis=0)

@@ -182,7 +182,7 @@ def fit(
     verbose: bool = False,
     n_score_draws: int | None = None,
     control_variates: str | None = None,
-    cv_coefficient: float = 1.0,
+    cv_coefficient="regression",
 ) -> FitResult:
     """Estimate a model by simulated maximum likelihood (EIS).
 
