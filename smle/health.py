@@ -121,7 +121,8 @@ class HealthReport:
     """Everything :func:`check` measured.
 
     Attributes:
-      model: the model's registry name; params: the parameters checked (natural scale).
+      model, model_options: the model's registry name and constructor options.
+      params: the parameters checked (natural scale).
       n_periods: T; n_draws: S of the seed runs; n_seeds: R; seed: the base seed;
       antithetic, tol, max_iter: EIS settings.
       seeds: the seeds of the seed runs.
@@ -152,6 +153,7 @@ class HealthReport:
     """
 
     model: str
+    model_options: dict
     params: dict
     n_periods: int
     n_draws: int
@@ -627,7 +629,8 @@ def _report(model, checked, y, settings, seeds, main, r_squared, tail_result, ta
         if judged:
             reason += ", and the NSE falls as 1/sqrt(S)"
     return HealthReport(
-        model=model.name, params=dict(checked), n_periods=int(y.shape[0]), n_draws=settings.n_draws,
+        model=model.name, model_options={f: getattr(model, f) for f in getattr(model, "__dataclass_fields__", {})},
+        params=dict(checked), n_periods=int(y.shape[0]), n_draws=settings.n_draws,
         n_seeds=n_seeds, seed=seeds[0], antithetic=settings.antithetic, tol=settings.tol,
         max_iter=settings.max_iter, seeds=seeds, values=values, single_nse=single, loglik_mean=mean,
         loglik_sd=sd, nse_of_mean=sd / math.sqrt(n_seeds), nse_single=nse_single,
