@@ -54,7 +54,7 @@ def main():
     lines = [
         "# Likelihood health check (smle.check)",
         "",
-        f"Machine: {cpu_model()}; n_draws 64 (antithetic), 20 seeds, 2000 tail draws (fitted on as many), "
+        f"Machine: {cpu_model()}; n_draws 64 (antithetic), 20 seeds, 2000 tail scoring draws (sampler fitted on 64), "
         "NSE grid S = 16, 32, 64, 128, 256. Seconds include compilation where the persistent cache was cold.",
         "",
         "| case | T | verdict | sd over seeds | single-run NSE | ESS / 64 | k-hat | Wald p (5%) | slope | seconds |",

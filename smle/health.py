@@ -150,6 +150,15 @@ class HealthReport:
         with the largest (None when not measured).
       findings: one sentence per check.
       verdict: 'healthy', 'doubtful' or 'unreliable'; reason: the decisive findings in words.
+      control_variates: the control variates of the seed and grid runs (None: none); with them,
+        ``values``, ``loglik_sd`` and ``single_nse`` are of the corrected estimate, and
+        values_uncorrected, loglik_sd_uncorrected: the plain EIS estimates of the same runs;
+        variance_reduction: ``loglik_sd_uncorrected^2 / loglik_sd^2`` measured across seeds;
+        variance_reduction_range: its rough 95% interval (the ratio read as F(R-1, R-1), as if
+        the two spreads were independent);
+        cv_coefficient_across_seeds: with the independent control, the coefficient minimising the
+        spread across seeds, cov(plain, error) / var(error), and variance_reduction_at_best the
+        factor it gives on the same seeds (optimistic: fitted and judged on the same runs).
     """
 
     model: str
@@ -193,6 +202,13 @@ class HealthReport:
     findings: list
     verdict: str
     reason: str
+    control_variates: str | None = None
+    values_uncorrected: np.ndarray | None = None
+    loglik_sd_uncorrected: float = math.nan
+    variance_reduction: float = math.nan
+    variance_reduction_range: tuple = (math.nan, math.nan)
+    cv_coefficient_across_seeds: float = math.nan
+    variance_reduction_at_best: float = math.nan
 
     # -- conveniences ----------------------------------------------------------------------------
     @property
@@ -253,6 +269,7 @@ class HealthReport:
             f"  NSE of the mean of the seeds {self.nse_of_mean:.4f}   bias-corrected mean "
             f"{self.loglik_bias_corrected:.4f}",
             f"  ESS per run: mean {self.ess.mean():.1f} of {self.n_draws} (min {self.ess.min():.1f})",
+            *self._control_variate_lines(),
             rule,
             f"weight tail ({self.tail_draws} scoring draws, {self.tail_scoring}; ESS {self.tail_ess:.1f})",
         ]
@@ -304,6 +321,19 @@ class HealthReport:
     def __str__(self) -> str:
         return self.summary()
 
+    def _control_variate_lines(self) -> list[str]:
+        if not self.control_variates:
+            return []
+        low, high = self.variance_reduction_range
+        lines = [f"  control variates {self.control_variates!r}: spread {self.loglik_sd:.4f} with, "
+                 f"{self.loglik_sd_uncorrected:.4f} without; variance reduction x{self.variance_reduction:.2f} "
+                 f"(rough 95% interval {low:.2f}-{high:.2f})"]
+        if math.isfinite(self.cv_coefficient_across_seeds):
+            lines.append(f"  independent control: best coefficient across seeds {self.cv_coefficient_across_seeds:.3f}"
+                         f" (reduction x{self.variance_reduction_at_best:.2f} on these seeds, optimistic; "
+                         "loglik uses 1 by default)")
+        return lines
+
     def _label(self, index: int) -> str:
         if self.dates is not None:
             return f"{self.dates[index]}"
@@ -338,14 +368,15 @@ class _Run(NamedTuple):
     iterations: int
     converged: bool
     last_change: float
+    value_uncorrected: float
+    independent_error: float
 
 
-def _evaluate(model, params, y, n_draws, seed, settings, n_score_draws=None):
+def _evaluate(model, params, y, n_draws, seed, settings, n_score_draws=None, control_variates=None):
     """The one place the health check calls :func:`smle.loglik`."""
-    # A larger scoring set is drawn here by a run with as many fitting draws.
-    draws = n_draws if n_score_draws is None else n_score_draws
-    return likelihood.loglik(model, params, y, n_draws=draws, seed=seed, antithetic=settings.antithetic,
-                             tol=settings.tol, max_iter=settings.max_iter)
+    return likelihood.loglik(model, params, y, n_draws=n_draws, seed=seed, antithetic=settings.antithetic,
+                             tol=settings.tol, max_iter=settings.max_iter, n_score_draws=n_score_draws,
+                             control_variates=control_variates)
 
 
 @functools.lru_cache(maxsize=None)
@@ -460,6 +491,7 @@ def check(
     tol: float = 1e-6,
     max_iter: int = 50,
     level: float = 0.05,
+    control_variates: str | None = None,
     progress: Callable[[str], None] | None = None,
 ) -> HealthReport:
     """The health check of the EIS log-likelihood of ``model`` at ``params`` on ``y``.
@@ -480,6 +512,10 @@ def check(
       dates: one label per period, overriding the index of ``y``.
       antithetic, tol, max_iter: EIS settings, as in :func:`smle.loglik`.
       level: significance level of the tail tests.
+      control_variates: None, "independent", "draws" or "both" (as in :func:`smle.loglik`): the seed
+        and grid runs then use the corrected estimator, and the report adds the spread without
+        the correction, the measured variance-reduction factor with a rough interval and, with the
+        independent control, its best coefficient estimated across seeds.
       progress: called with one line of text at each stage.
 
     Returns:
@@ -497,6 +533,8 @@ def check(
         "tail_draws", tail_draws, MIN_TAIL_DRAWS,
         f"scoring draws for the Pareto tail fit; {FULL_TAIL_DRAWS} for the tests down to the largest 1%",
         antithetic)
+    likelihood.check_control(resolved, control_variates)
+    likelihood.check_settings(n_draws, antithetic, tol, max_iter, tail_draws)
     grid = _check_grid(draws_grid, antithetic)
     if not 0.0 < level < 1.0:
         raise SmleInputError(f"level = {describe(level)} is not accepted; accepted: a significance level in (0, 1)")
@@ -510,14 +548,17 @@ def check(
         nonlocal r_squared
         for s in seeds:
             if (draws, s) not in runs:
-                result = _evaluate(resolved, checked, y_array, draws, s, settings)
+                result = _evaluate(resolved, checked, y_array, draws, s, settings, control_variates=control_variates)
+                plain = result.value if result.value_uncorrected is None else result.value_uncorrected
+                error = math.nan if result.independent_error is None else result.independent_error
                 runs[draws, s] = _Run(result.value, result.nse, result.ess, result.iterations, result.converged,
-                                      result.last_change)
+                                      result.last_change, plain, error)
                 if draws == settings.n_draws and s == seed:
                     r_squared = result.r_squared
         return [runs[draws, s] for s in seeds]
 
-    say(f"seed runs: {n_seeds} seeds at {settings.n_draws} draws")
+    say(f"seed runs: {n_seeds} seeds at {settings.n_draws} draws"
+        + (f", control variates {control_variates!r}" if control_variates else ""))
     main = seed_runs(settings.n_draws)
     say(f"tail run: {tail_draws} scoring draws")
     tail_result = _evaluate(resolved, checked, y_array, settings.n_draws, seed, settings, n_score_draws=tail_draws)
@@ -527,11 +568,30 @@ def check(
         scaling_runs[draws] = seed_runs(draws)
     say("assembling the report")
     return _report(resolved, checked, y_array, settings, seeds, main, r_squared, tail_result, tail_draws,
-                   scaling_runs, labels, level)
+                   scaling_runs, labels, level, control_variates)
+
+
+def _control_variate_summary(main: list, n_seeds: int) -> dict:
+    """Spread without the correction, variance-reduction factor with a rough F interval, best coefficient."""
+    plain = np.array([r.value_uncorrected for r in main])
+    corrected = np.array([r.value for r in main])
+    sd_plain, sd_corrected = float(plain.std(ddof=1)), float(corrected.std(ddof=1))
+    factor = sd_plain**2 / sd_corrected**2 if sd_corrected > 0 else math.inf
+    # rough: treats the two spreads as independent, so that their variance ratio is F(R-1, R-1)
+    f_low, f_high = stats.f.ppf([0.025, 0.975], n_seeds - 1, n_seeds - 1)
+    out = dict(values_uncorrected=plain, loglik_sd_uncorrected=sd_plain, variance_reduction=float(factor),
+               variance_reduction_range=(float(factor / f_high), float(factor / f_low)),
+               cv_coefficient_across_seeds=math.nan, variance_reduction_at_best=math.nan)
+    errors = np.array([r.independent_error for r in main])
+    if np.all(np.isfinite(errors)) and errors.std() > 0:
+        beta = float(np.cov(plain, errors)[0, 1] / np.var(errors, ddof=1))
+        out["cv_coefficient_across_seeds"] = beta
+        out["variance_reduction_at_best"] = float(np.var(plain, ddof=1) / np.var(plain - beta * errors, ddof=1))
+    return out
 
 
 def _report(model, checked, y, settings, seeds, main, r_squared, tail_result, tail_draws, scaling_runs, labels,
-            level) -> HealthReport:
+            level, control_variates) -> HealthReport:
     n_seeds = len(seeds)
     values = np.array([r.value for r in main])
     single = np.array([r.nse for r in main])
@@ -638,7 +698,9 @@ def _report(model, checked, y, settings, seeds, main, r_squared, tail_result, ta
         ess=np.array([r.ess for r in main]), iterations=np.array([r.iterations for r in main]),
         converged=np.array([r.converged for r in main]), last_change=np.array([r.last_change for r in main]),
         r_squared=np.asarray(r_squared), tail_draws=tail_draws,
-        tail_scoring="fitted on as many draws",
+        tail_scoring=f"sampler fitted on {settings.n_draws} draws",
+        control_variates=control_variates,
+        **(_control_variate_summary(main, n_seeds) if control_variates else {}),
         tail_ess=float(tail_result.ess), tail_log_weights=lw, degenerate=degenerate, tail=tail,
         period_shares=shares, top_periods=top, dates=labels, scaling=scaling, scaling_slope=slope,
         scaling_slope_se=slope_se, scaling_holds_from=holds_from, findings=findings, verdict=verdict,

@@ -76,7 +76,7 @@ def _command_check(args) -> int:
 
     report = smle.check(model, params, y, n_draws=args.draws, n_seeds=args.seeds, seed=args.seed,
                         tail_draws=args.tail_draws, draws_grid=_parse_grid(args.grid), dates=dates,
-                        progress=None if args.quiet else progress)
+                        control_variates=args.control_variates, progress=None if args.quiet else progress)
     print(f"data: {args.data}, {label}")
     print(report.summary())
     if args.report:
@@ -109,6 +109,8 @@ def add_check_command(commands) -> None:
                        help="scoring draws of the weight-tail run (default 2000; least 100)")
     check.add_argument("--grid", default="16,32,64,128,256",
                        help="draws at which the NSE is measured (default 16,32,64,128,256; 'none' skips)")
+    check.add_argument("--control-variates", choices=["independent", "draws", "both"],
+                       help="check the corrected estimator; the report adds the measured variance reduction")
     check.add_argument("--report", help="folder for check.txt, check.json and the figures")
     check.add_argument("--quiet", action="store_true", help="no progress lines on standard error")
     check.set_defaults(handler=_command_check)

@@ -44,7 +44,8 @@ def healthy_report(sv_data):
 def test_well_specified_sv_is_healthy(healthy_report, sv_data):
     report = healthy_report
     # Measured at this design and data: spread over 10 seeds 0.044, single-run NSE 0.044,
-    # k-hat 0.46 from 2000 weights, no threshold rejecting, slope -0.64 (se 0.15).
+    # k-hat 0.30 from 2000 scoring weights (sampler fitted on 64), no threshold rejecting, slope
+    # -0.64 (se 0.15).
     assert report.verdict == "healthy", report.reason
     assert report.tail.verdict == "healthy" and len(report.tail.tests) == 4  # 1%, 5%, 10%, 20%
     assert report.converged.all()
@@ -94,14 +95,32 @@ def test_infinite_variance_sampler_is_not_healthy():
     """
     params = dict(mu=0.0, phi=0.0, sigma_eta=2.0)
     y, _ = smle.simulate("sv", params, 500, seed=3)
-    tail_run = smle.loglik("sv", params, y, n_draws=2000, seed=0)
-    assert tail_run.c_obs.max() * params["sigma_eta"] ** 2 >= 1.0  # measured 6.5: infinite variance
+    tail_run = smle.loglik("sv", params, y, n_draws=64, n_score_draws=2000, seed=0)  # the check's tail run
+    assert tail_run.c_obs.max() * params["sigma_eta"] ** 2 >= 1.0  # infinite variance by the derivation above
     report = smle.check("sv", params, y, n_draws=64, n_seeds=N_SEEDS, seed=0, tail_draws=2000, draws_grid=None)
-    # measured: k-hat 1.69, Wald rejects at 5%-20%, spread 2.9 against single-run NSE 0.8
+    # measured: k-hat 2.95, spread 2.9 against single-run NSE 0.8
     assert report.verdict == "unreliable", report.reason
     assert report.tail.verdict != "healthy" and report.k_hat > 0.7
     assert report.nse_ratio < report.nse_ratio_range[0]  # the single-run NSE understates the error
     assert "variance" in report.reason
+
+
+def test_control_variates_report_the_measured_reduction(sv_data):
+    y = sv_data.to_numpy()
+    report = smle.check("sv", PARAMS, y, n_draws=64, n_seeds=N_SEEDS, tail_draws=200, draws_grid=None,
+                        control_variates="both")
+    # the uncorrected values are the plain estimator at the same seeds (seed runs of healthy_report)
+    plain = np.array([smle.loglik("sv", PARAMS, y, n_draws=64, seed=s).value for s in range(N_SEEDS)])
+    np.testing.assert_allclose(report.values_uncorrected, plain, rtol=0, atol=1e-9)
+    corrected = smle.loglik("sv", PARAMS, y, n_draws=64, seed=4, control_variates="both")
+    assert report.values[4] == corrected.value
+    factor = np.var(plain, ddof=1) / np.var(report.values, ddof=1)
+    assert report.variance_reduction == pytest.approx(factor, rel=1e-9)
+    # the rough interval divides the factor by the F(9, 9) quantiles (scipy.stats.f)
+    low, high = report.variance_reduction_range
+    assert low == pytest.approx(factor / stats.f.ppf(0.975, 9, 9), rel=1e-9)
+    assert high == pytest.approx(factor / stats.f.ppf(0.025, 9, 9), rel=1e-9)
+    assert "variance reduction" in report.summary()
 
 
 def test_exact_linear_gaussian_weights_are_degenerate_and_healthy():
