@@ -14,11 +14,14 @@ from smle.fit import fit  # noqa: E402
 from smle.results import FitResult  # noqa: E402
 from smle.models import Model, get_model, model_names, register  # noqa: E402
 from smle import reference  # noqa: E402
+from smle.health import HealthReport, check  # noqa: E402
 
 __version__ = "0.1.0"
 
 __all__ = [
     "FitResult",
+    "HealthReport",
+    "check",
     "fit",
     "LoglikResult",
     "Model",

@@ -4,6 +4,7 @@
     smle models                       list the registered models and their parameters
     smle demo                         fit the invented demo scenario end to end
     smle prepare intraday.csv         prices to the aligned daily table of returns and measures
+    smle check data.csv --params ...  health check of the simulated likelihood (smle/health_cli.py)
 """
 
 from __future__ import annotations
@@ -180,6 +181,9 @@ def build_parser() -> argparse.ArgumentParser:
     from smle.study.cli import add_study_commands
 
     add_study_commands(commands)
+    from smle.health_cli import add_check_command
+
+    add_check_command(commands)
     return parser
 
 
