@@ -1,14 +1,15 @@
-"""Figures of a likelihood health check (:class:`smle.health.HealthReport`), drawn off-screen."""
+"""Figures of a likelihood health check (:class:`smle.health.HealthReport`), drawn off-screen.
+
+The figures are ``matplotlib.figure.Figure`` objects saved to files, never pyplot figures: drawing
+them leaves the caller's pyplot state and backend alone (a notebook keeps showing its own figures).
+"""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-import matplotlib
-
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
+import numpy as np
+from matplotlib.figure import Figure
 
 _INK, _ACCENT, _BAND = "#33506e", "#8c3b1e", "#e3a857"
 FILES = ("loglik_seeds.png", "weight_tail.png", "nse_scaling.png", "period_contributions.png")
@@ -17,13 +18,13 @@ FILES = ("loglik_seeds.png", "weight_tail.png", "nse_scaling.png", "period_contr
 def _save(figure, path) -> Path:
     figure.tight_layout()
     figure.savefig(path, dpi=110)
-    plt.close(figure)
     return Path(path)
 
 
 def loglik_across_seeds(report, path) -> Path:
     """log L_hat per seed with its single-run NSE, the mean and the band mean +- one spread sd."""
-    figure, axis = plt.subplots(figsize=(8, 4))
+    figure = Figure(figsize=(8, 4))
+    axis = figure.subplots()
     seeds = np.asarray(report.seeds)
     axis.axhspan(report.loglik_mean - report.loglik_sd, report.loglik_mean + report.loglik_sd, color=_BAND,
                  alpha=0.35, label=f"mean +- sd over seeds ({report.loglik_sd:.3f})")
@@ -44,7 +45,8 @@ def weight_tail(report, path) -> Path:
     A generalised Pareto tail with shape xi > 0 falls with slope -1/xi far out; the line of
     xi = 1/2 (slope -2), the edge of a finite variance, is drawn for comparison.
     """
-    figure, axis = plt.subplots(figsize=(7, 5))
+    figure = Figure(figsize=(7, 5))
+    axis = figure.subplots()
     if report.degenerate:
         axis.text(0.5, 0.5, "all weights equal (exact sampler):\nno tail to show", ha="center", va="center",
                   transform=axis.transAxes)
@@ -81,7 +83,8 @@ def weight_tail(report, path) -> Path:
 
 def nse_against_draws(report, path) -> Path:
     """NSE from the spread over seeds against S, and NSE sqrt(S), which is flat under 1/sqrt(S)."""
-    figure, (left, right) = plt.subplots(1, 2, figsize=(11, 4))
+    figure = Figure(figsize=(11, 4))
+    left, right = figure.subplots(1, 2)
     if not report.scaling:
         for axis in (left, right):
             axis.text(0.5, 0.5, "not measured (draws_grid=None)", ha="center", va="center", transform=axis.transAxes)
@@ -118,7 +121,8 @@ def nse_against_draws(report, path) -> Path:
 
 def period_contributions(report, path) -> Path:
     """Each period's share of the variance of the log weight, and the EIS regression R^2 per period."""
-    figure, (top, bottom) = plt.subplots(2, 1, figsize=(10, 6), sharex=True)
+    figure = Figure(figsize=(10, 6))
+    top, bottom = figure.subplots(2, 1, sharex=True)
     t = np.arange(report.n_periods)
     top.vlines(t, 0, report.period_shares, color=_INK, lw=0.8)
     for p in report.top_periods[:5]:

@@ -150,6 +150,27 @@ def test_report_text_json_and_figures(healthy_report, tmp_path):
         assert (tmp_path / "check" / name).stat().st_size > 10_000
 
 
+
+def test_figures_leave_the_callers_backend_alone(healthy_report, tmp_path):
+    # A notebook shows its own figures through its backend; drawing the report's figures must not
+    # switch it (it once forced Agg on import, after which plt.show() displayed nothing inline).
+    import importlib
+
+    import matplotlib
+    import matplotlib.pyplot as plt
+
+    from smle import health_plots
+
+    before = matplotlib.get_backend()
+    plt.switch_backend("svg")
+    try:
+        importlib.reload(health_plots)  # as if first imported now, under the caller's backend
+        healthy_report.figures(tmp_path / "figures")
+        assert matplotlib.get_backend() == "svg"
+        assert plt.get_fignums() == []  # no pyplot figure left open
+    finally:
+        plt.switch_backend(before)
+
 def test_bad_inputs_say_what_is_needed(sv_data):
     y = sv_data.to_numpy()
     cases = [
