@@ -331,7 +331,7 @@ class HealthReport:
         if math.isfinite(self.cv_coefficient_across_seeds):
             lines.append(f"  independent control: best coefficient across seeds {self.cv_coefficient_across_seeds:.3f}"
                          f" (reduction x{self.variance_reduction_at_best:.2f} on these seeds, optimistic; "
-                         "loglik uses 1 by default)")
+                         "loglik regresses it per run by default)")
         return lines
 
     def _label(self, index: int) -> str:
