@@ -36,6 +36,9 @@ class _GaussianNoise:
     def mode_guess(self, params, data):
         return jnp.asarray(data, float)
 
+    def obs_cdf(self, params, data, x):
+        return jax.scipy.stats.norm.cdf((data[:, None] - x) / params["sigma_eps"])
+
 
 @register
 @dataclasses.dataclass(frozen=True)
