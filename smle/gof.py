@@ -19,6 +19,8 @@ is common practice, not a property of the tests):
 * the Berkowitz (2001, J. Business & Economic Statistics 19, 465-474) likelihood-ratio test: the
   exact Gaussian AR(1) likelihood of the scores maximised over (mean, variance, AR coefficient)
   against (0, 1, 0), chi-squared(3);
+* the Jarque-Bera test of normality of the scores (Jarque and Bera 1987, International Statistical
+  Review 55): skewness and excess kurtosis, chi-squared(2) (scipy.stats.jarque_bera);
 * a tail test in the manner of Berkowitz's censored test, here on both tails: scores inside
   (Phi^{-1}(p), Phi^{-1}(1 - p)) are censored (only their count enters), the tails keep their
   normal density, and the LR of (mean, variance) against (0, 1) is chi-squared(2). It reacts to
@@ -165,7 +167,7 @@ def berkowitz_test(scores) -> dict:
                 variance=float(math.exp(best.x[1])), rho=float(math.tanh(best.x[2])))
 
 
-def tail_test(scores, tail_probability: float = 0.05) -> dict:
+def tail_test(scores, tail_probability: float = 0.01) -> dict:
     """Two-tailed censored LR test of the scores' tails against N(0, 1), chi-squared(2).
 
     Scores inside ``(Phi^{-1}(p), Phi^{-1}(1 - p))`` are censored; the likelihood of N(mu, s^2)
@@ -338,7 +340,7 @@ def diagnose(
     seed: int = 0,
     lags: Sequence[int] = (5, 10, 20),
     arch_lags: int = 5,
-    tail_probability: float = 0.05,
+    tail_probability: float = 0.01,
     progress: Callable[[str], None] | None = None,
 ) -> Diagnostics:
     """Goodness of fit of a fitted model: filter, PITs, normal scores and residual tests.
@@ -402,6 +404,8 @@ def diagnose(
         tests.append(TestResult("Kolmogorov-Smirnov", f"{label} PITs", float(ks.statistic), None, float(ks.pvalue)))
         b = berkowitz_test(z)
         tests.append(TestResult("Berkowitz LR", f"{label} scores", b["statistic"], 3, b["p_value"]))
+        jb = stats.jarque_bera(z)
+        tests.append(TestResult("Jarque-Bera", f"{label} scores", float(jb.statistic), 2, float(jb.pvalue)))
         tail = tail_test(z, tail_probability)
         tests.append(TestResult(f"tails LR ({tail_probability:.0%} each)", f"{label} scores",
                                 tail["statistic"], 2, tail["p_value"]))
