@@ -128,7 +128,9 @@ class RealizedStochasticVolatility(LogVarianceState):
 
     def obs_cdf(self, params, data, x):
         """CDFs of the return and of the realized measure given x_t, shape (T, S, 2)."""
+        from smle.distributions import normal_cdf  # here, not at the top: keeps this hook self-contained
+
         returns, log_measure = data
-        return_cdf = jax.scipy.stats.norm.cdf(returns[:, None] * jnp.exp(-0.5 * x))
-        measure_cdf = jax.scipy.stats.norm.cdf((log_measure[:, None] - params["xi"] - x) / params["sigma_u"])
+        return_cdf = normal_cdf(returns[:, None] * jnp.exp(-0.5 * x))
+        measure_cdf = normal_cdf((log_measure[:, None] - params["xi"] - x) / params["sigma_u"])
         return jnp.stack([return_cdf, measure_cdf], axis=-1)
