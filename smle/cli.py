@@ -4,6 +4,7 @@
     smle models                       list the registered models and their parameters
     smle demo                         fit the invented demo scenario end to end
     smle prepare intraday.csv         prices to the aligned daily table of returns and measures
+    smle check data.csv --params ...  health check of the simulated likelihood (smle/health_cli.py)
     smle diagnose result.json         goodness of fit of a saved fit: PITs, residual tests, figures
 """
 
@@ -231,6 +232,9 @@ def build_parser() -> argparse.ArgumentParser:
     from smle.study.cli import add_study_commands
 
     add_study_commands(commands)
+    from smle.health_cli import add_check_command
+
+    add_check_command(commands)
     return parser
 
 

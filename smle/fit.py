@@ -30,31 +30,34 @@ from scipy.special import ndtri
 
 from smle import eis
 from smle.errors import SmleInputError
-from smle.likelihood import as_key, check_observations, check_settings, eis_output
+from smle.likelihood import ControlSpec, as_key, check_control, check_observations, check_settings, controlled_output
 from smle.models import Model, get_model
 from smle.params import check_params
 from smle.results import FitResult
 
+NO_CONTROL = ControlSpec()
 
-def objective(model: Model, settings: eis.EISSettings, y, key) -> Callable:
+
+def objective(model: Model, settings: eis.EISSettings, y, key, control: ControlSpec = NO_CONTROL) -> Callable:
     """Minus the EIS log-likelihood per observation as a function of the unconstrained vector.
 
-    Returns ``(value, aux)`` where ``aux`` carries the EIS output and weight diagnostics at
-    that point (the scoring paths and weights give the smoothed factor at the optimum).
+    With control variates it is the corrected log-likelihood. Returns ``(value, aux)`` where
+    ``aux`` carries the EIS output, weight diagnostics and the control-variate facts at that
+    point (the scoring paths and weights give the smoothed factor at the optimum).
     """
     n_periods = y.shape[0]
 
     def negative_loglik(unconstrained):
         params = model.from_real(unconstrained)
-        out = eis_output(model, settings, params, y, key)
+        out, extra = controlled_output(model, settings, control, params, y, key)
         diagnostics = eis.weight_diagnostics(jax.lax.stop_gradient(out.log_weights), settings.antithetic)
-        return -out.value / n_periods, (out, diagnostics)
+        return -extra["value"] / n_periods, (out, diagnostics, jax.lax.stop_gradient(extra))
 
     return negative_loglik
 
 
 @functools.lru_cache(maxsize=None)
-def compiled_value_and_grad(model: Model, settings: eis.EISSettings):
+def compiled_value_and_grad(model: Model, settings: eis.EISSettings, control: ControlSpec = NO_CONTROL):
     """``(u, y, key) -> ((value, aux), gradient)`` of :func:`objective`, compiled once per data shape.
 
     One compiled program serves the optimiser's every evaluation, its line search and the
@@ -64,7 +67,7 @@ def compiled_value_and_grad(model: Model, settings: eis.EISSettings):
     """
 
     def run(u, y, key):
-        return jax.value_and_grad(objective(model, settings, y, key), has_aux=True)(u)
+        return jax.value_and_grad(objective(model, settings, y, key, control), has_aux=True)(u)
 
     return jax.jit(run)
 
@@ -178,6 +181,9 @@ def fit(
     n_seeds: int = 1,
     level: float = 0.95,
     verbose: bool = False,
+    n_score_draws: int | None = None,
+    control_variates: str | None = None,
+    cv_coefficient="regression",
 ) -> FitResult:
     """Estimate a model by simulated maximum likelihood (EIS).
 
@@ -196,13 +202,17 @@ def fit(
       n_seeds: number of independent fits for simulation standard errors (1: none).
       level: confidence level of the intervals.
       verbose: print optimiser progress to standard error.
+      n_score_draws: paths of the EIS scoring set, if not ``n_draws``.
+      control_variates, cv_coefficient: maximise the control-variate corrected log-likelihood
+        (see :func:`smle.loglik`); "independent" about doubles the cost of an evaluation.
 
     Returns:
       A :class:`~smle.results.FitResult`.
     """
     model = get_model(model)
     y = check_fit_data(model, y)
-    settings = check_settings(n_draws, antithetic, tol, max_iter)
+    settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
+    control = check_control(model, control_variates, cv_coefficient)
     if isinstance(n_seeds, bool) or not isinstance(n_seeds, (int, np.integer)) or n_seeds < 1:
         raise SmleInputError(f"n_seeds = {n_seeds!r} is not accepted; accepted: an integer >= 1")
     if not (isinstance(level, float) and 0.5 <= level < 1):
@@ -223,18 +233,19 @@ def fit(
     if verbose:
         print(f"fitting '{model.name}' to {y.shape[0]} periods with {settings.n_draws} EIS draws "
               "(the first call compiles; later calls of this shape reuse the program)", file=sys.stderr, flush=True)
-    first = _fit_one(model, settings, y_jax, key, start_params, max_steps, gtol, verbose)
+    first = _fit_one(model, settings, control, y_jax, key, start_params, max_steps, gtol, verbose)
     extra = []
     for offset in range(1, n_seeds):
         if verbose:
             print(f"refit with seed {seed + offset} ({offset + 1}/{n_seeds})", file=sys.stderr, flush=True)
-        extra.append(_fit_one(model, settings, y_jax, as_key(seed + offset), start_params, max_steps, gtol, False))
-    return _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, level,
+        extra.append(_fit_one(model, settings, control, y_jax, as_key(seed + offset), start_params, max_steps, gtol,
+                              False))
+    return _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start_params, level,
                      time.perf_counter() - started)
 
 
-def _evaluator(model, settings, y, key):
-    compiled = compiled_value_and_grad(model, settings)
+def _evaluator(model, settings, control, y, key):
+    compiled = compiled_value_and_grad(model, settings, control)
 
     def evaluate(u):
         (value, aux), grad = compiled(jnp.asarray(u), y, key)
@@ -243,12 +254,12 @@ def _evaluator(model, settings, y, key):
     return evaluate
 
 
-def _fit_one(model, settings, y, key, start_params, max_steps, gtol, verbose):
+def _fit_one(model, settings, control, y, key, start_params, max_steps, gtol, verbose):
     u0 = jnp.asarray(model.to_real(start_params))
-    return _lbfgs(_evaluator(model, settings, y, key), u0, int(max_steps), float(gtol), verbose)
+    return _lbfgs(_evaluator(model, settings, control, y, key), u0, int(max_steps), float(gtol), verbose)
 
 
-def _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, level, elapsed):
+def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start_params, level, elapsed):
     names = model.param_names
     n_periods = y.shape[0]
     u = first["u"]
@@ -262,7 +273,7 @@ def _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, 
     else:
         message = f"not converged: reached max_steps = {first['max_steps']} (max|grad| = {first['grad_norm']:.2e})"
 
-    hessian = _hessian(_evaluator(model, settings, y_jax, key), u, n_periods)
+    hessian = _hessian(_evaluator(model, settings, control, y_jax, key), u, n_periods)
     jacobian = np.asarray(jax.jacfwd(lambda v: jnp.stack(list(model.from_real(v).values())))(jnp.asarray(u)))
     finite = bool(np.all(np.isfinite(hessian)))
     eigenvalues = np.linalg.eigvalsh(hessian) if finite else np.full(len(names), np.nan)
@@ -297,15 +308,15 @@ def _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, 
             message += ("; the Hessian is not finite (no standard errors): the likelihood could not be evaluated "
                         "near the estimate, which often means a parameter is at the edge of its region")
 
-    out, diagnostics = first["aux"]
+    out, diagnostics, cv_extra = first["aux"]
     log_weights = np.asarray(out.log_weights)
     paths = np.asarray(out.paths)
     weights = np.exp(log_weights - log_weights.max())
     weights /= weights.sum()
     smoothed_mean = paths @ weights
     lower, upper = _weighted_quantiles(paths, weights, (0.05, 0.95))
-    loglik = float(out.value)
-    nse = float(diagnostics["nse"])
+    loglik = float(cv_extra["value"])
+    nse = float(cv_extra["nse"]) if control.label is not None else float(diagnostics["nse"])
     k = len(names)
 
     simulation_std_errors = None
@@ -348,6 +359,8 @@ def _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, 
             "last_change": float(out.info.last_change),
             "ess": float(diagnostics["ess"]),
             "min_r_squared": float(np.min(np.asarray(out.info.r_squared))),
+            "n_score_draws": settings.score_draws,
+            **_control_facts(control, settings, out, diagnostics, cv_extra),
         },
         factor_name=model.factor_name,
         smoothed_mean=smoothed_mean,
@@ -358,3 +371,18 @@ def _assemble(model, settings, y, y_jax, key, seed, first, extra, start_params, 
         seed_estimates=seed_estimates,
         observations=np.array(y, dtype=float),
     )
+
+
+def _control_facts(control: ControlSpec, settings, out, diagnostics, extra) -> dict:
+    """The control-variate entries of ``FitResult.eis`` (none without control variates)."""
+    if control.label is None:
+        return {}
+    facts = {
+        "control_variates": control.label,
+        "loglik_uncorrected": float(out.value),
+        "nse_uncorrected": float(diagnostics["nse"]),
+        "cv_coefficients": dict(zip(control.names(settings.antithetic), np.asarray(extra["coefficients"]).tolist())),
+    }
+    if "independent_error" in extra:
+        facts["independent_error"] = float(extra["independent_error"])
+    return facts

@@ -10,7 +10,7 @@ from __future__ import annotations
 import dataclasses
 import functools
 import math
-from typing import Mapping
+from typing import Mapping, NamedTuple
 
 import jax
 import jax.numpy as jnp
@@ -41,6 +41,13 @@ class LoglikResult:
       paths: the scoring paths of the latent state, shape (T, S).
       b_obs, c_obs: fitted auxiliary parameters, shape (T,).
       r_squared: per-period R^2 of the final EIS regressions, shape (T,).
+      n_score_draws: paths in the scoring set (``log_weights`` and ``paths`` have this many).
+      control_variates: the control variates applied (None, "independent", "draws" or "both");
+        with any, ``value`` and ``nse`` are the corrected ones.
+      value_uncorrected, nse_uncorrected: the plain EIS estimate and its NSE.
+      cv_coefficients: the control-variate coefficients by name ("independent", "draws_he2", ...).
+      independent_error: with the independent control, the EIS estimate at the independent
+        parameters minus its exact value, with the same random numbers (the error corrected for).
     """
 
     value: float
@@ -57,6 +64,12 @@ class LoglikResult:
     b_obs: np.ndarray
     c_obs: np.ndarray
     r_squared: np.ndarray
+    n_score_draws: int | None = None
+    control_variates: str | None = None
+    value_uncorrected: float | None = None
+    nse_uncorrected: float | None = None
+    cv_coefficients: dict | None = None
+    independent_error: float | None = None
 
     @property
     def value_bias_corrected(self) -> float:
@@ -70,9 +83,10 @@ class LoglikResult:
 
     def __repr__(self) -> str:
         flag = "converged" if self.converged else "NOT converged"
+        control = f", control_variates={self.control_variates!r}" if self.control_variates else ""
         return (
-            f"LoglikResult(value={self.value:.4f}, nse={self.nse:.4f}, ess={self.ess:.1f}/{self.n_draws}, "
-            f"{flag} in {self.iterations} iterations)"
+            f"LoglikResult(value={self.value:.4f}, nse={self.nse:.4f}, ess={self.ess:.1f}/{self.log_weights.shape[0]}"
+            f"{control}, {flag} in {self.iterations} iterations)"
         )
 
 
@@ -113,20 +127,86 @@ def check_observations(model: Model, y) -> np.ndarray:
     return model.check_data(array)
 
 
-def check_settings(n_draws, antithetic, tol, max_iter) -> eis.EISSettings:
-    """Validate estimator settings and return them as :class:`~smle.eis.EISSettings`."""
+def _check_draws(argument: str, n_draws, antithetic) -> None:
     if isinstance(n_draws, bool) or not isinstance(n_draws, (int, np.integer)) or n_draws < MIN_DRAWS:
-        raise SmleInputError(f"n_draws = {n_draws!r} is not accepted; accepted: an integer >= {MIN_DRAWS}")
+        raise SmleInputError(f"{argument} = {n_draws!r} is not accepted; accepted: an integer >= {MIN_DRAWS}")
     if antithetic and n_draws % 2:
         raise SmleInputError(
-            f"n_draws = {n_draws} must be even with antithetic draws (pairs); "
+            f"{argument} = {n_draws} must be even with antithetic draws (pairs); "
             "use an even number or antithetic=False"
         )
+
+
+def check_settings(n_draws, antithetic, tol, max_iter, n_score_draws=None) -> eis.EISSettings:
+    """Validate estimator settings and return them as :class:`~smle.eis.EISSettings`."""
+    _check_draws("n_draws", n_draws, antithetic)
+    if n_score_draws is not None:
+        _check_draws("n_score_draws", n_score_draws, antithetic)
     if not (isinstance(tol, (int, float)) and math.isfinite(tol) and tol > 0):
         raise SmleInputError(f"tol = {tol!r} is not accepted; accepted: a positive number such as 1e-6")
     if isinstance(max_iter, bool) or not isinstance(max_iter, (int, np.integer)) or max_iter < 1:
         raise SmleInputError(f"max_iter = {max_iter!r} is not accepted; accepted: an integer >= 1")
-    return eis.EISSettings(n_draws=int(n_draws), antithetic=bool(antithetic), tol=float(tol), max_iter=int(max_iter))
+    score = None if n_score_draws is None or int(n_score_draws) == int(n_draws) else int(n_score_draws)
+    return eis.EISSettings(n_draws=int(n_draws), antithetic=bool(antithetic), tol=float(tol), max_iter=int(max_iter),
+                           n_score_draws=score)
+
+
+CONTROL_VARIATES = (None, "independent", "draws", "both")
+
+
+class ControlSpec(NamedTuple):
+    """Which control variates to apply (static: part of the compiled program's identity).
+
+    Attributes:
+      independent: the independent-factor control (EIS at the parameters with the factor
+        autocorrelation set to zero, same random numbers, against its exact likelihood).
+      draws: the pooled Hermite statistics of the scoring normals.
+      coefficient: the independent control's coefficient; None: the run's log-weight regression.
+    """
+
+    independent: bool = False
+    draws: bool = False
+    coefficient: float | None = None
+
+    @property
+    def label(self) -> str | None:
+        if self.independent and self.draws:
+            return "both"
+        return "independent" if self.independent else ("draws" if self.draws else None)
+
+    def names(self, antithetic: bool) -> list[str]:
+        out = ["independent"] if self.independent else []
+        if self.draws:
+            out += [f"draws_he{k}" for k in eis.HERMITE_ORDERS[antithetic]]
+        return out
+
+
+def check_control(model: Model, control_variates, cv_coefficient="regression") -> ControlSpec:
+    """Validate the control-variate choice for ``model`` and return a :class:`ControlSpec`."""
+    if control_variates not in CONTROL_VARIATES:
+        raise SmleInputError(
+            f"control_variates = {control_variates!r} is not accepted; accepted: "
+            + ", ".join(repr(c) for c in CONTROL_VARIATES)
+        )
+    independent = control_variates in ("independent", "both")
+    if independent and not model.has_independent_case:
+        raise SmleInputError(
+            f"control_variates = {control_variates!r}: model '{model.name}' has no independent-factor case "
+            "(its state is not stationary, so there is no autocorrelation to set to zero); "
+            "use control_variates='draws'"
+        )
+    if isinstance(cv_coefficient, str) and cv_coefficient == "regression":
+        coefficient = None
+    elif isinstance(cv_coefficient, (int, float, np.floating)) and not isinstance(cv_coefficient, bool) \
+            and math.isfinite(cv_coefficient):
+        coefficient = float(cv_coefficient)
+    else:
+        raise SmleInputError(
+            f"cv_coefficient = {cv_coefficient!r} is not accepted; accepted: 'regression' (the slope of the log "
+            "weights on the independent case's log weights, from this run) or a finite number such as 1.0"
+        )
+    return ControlSpec(independent=independent, draws=control_variates in ("draws", "both"), coefficient=coefficient)
+
 
 
 def checked_inputs(model, params, y):
@@ -169,14 +249,64 @@ def _log_obs_function(model: Model):
     return log_obs
 
 
+def controlled_output(model: Model, settings: eis.EISSettings, control: ControlSpec, params: Mapping, y, key):
+    """EIS evaluation with control variates: ``(out, extra)``, pure and differentiable.
+
+    ``extra`` holds the corrected value and NSE, the coefficients, and with the independent
+    control the error of EIS at the independent-factor parameters (same random numbers).
+    Without control variates the corrected value is ``out.value``.
+    """
+    out = eis_output(model, settings, params, y, key)
+    controls, errors, fixed, extra = [], [], [], {}
+    if control.independent:
+        independent = model.independent_params(params)
+        out_independent = eis_output(model, settings, independent, y, key)
+        exact = model.independent_loglik(params, y)
+        error = out_independent.value - exact
+        # w0_s / L0 = exp(log w0_s - value0) exp(value0 - log L0): no overflow for any usable run
+        controls.append(jnp.exp(out_independent.log_weights - out_independent.value) * jnp.exp(error))
+        errors.append(error)
+        coefficient = control.coefficient
+        if coefficient is None:
+            coefficient = log_weight_slope(out.log_weights, out_independent.log_weights)
+        fixed.append(coefficient)
+        extra["independent_error"] = error
+    if control.draws:
+        _, score_normals = eis.standard_normals(key, out.paths.shape[0], settings)
+        statistics = eis.draw_statistics(score_normals, settings.antithetic)
+        for j in range(statistics.shape[1]):
+            controls.append(statistics[:, j])
+            errors.append(jnp.mean(statistics[:, j]))
+            fixed.append(None)
+    if controls:
+        value, nse, coefficients = eis.control_variate_correction(
+            out.log_weights, out.value, jnp.stack(controls, axis=1), jnp.stack(errors), tuple(fixed), settings.antithetic
+        )
+        extra.update(value=value, nse=nse, coefficients=coefficients)
+    else:
+        extra["value"] = out.value
+    return out, extra
+
+
+def log_weight_slope(log_weights: jax.Array, control_log_weights: jax.Array) -> jax.Array:
+    """Least-squares slope of log weights on a control's log weights over the same draws.
+
+    Log weights are close to jointly normal where the weights are heavy-tailed, so this slope is
+    a stable estimate of the variance-minimising control coefficient (zero for a constant control).
+    """
+    a = log_weights - jnp.mean(log_weights)
+    b = control_log_weights - jnp.mean(control_log_weights)
+    return jnp.sum(a * b) / (jnp.sum(b * b) + 1e-300)
+
+
 @functools.lru_cache(maxsize=None)
-def compiled_eis(model: Model, settings: eis.EISSettings):
-    """The JIT-compiled EIS kernel for a model and settings (compiled once per data shape)."""
+def compiled_eis(model: Model, settings: eis.EISSettings, control: ControlSpec = ControlSpec()):
+    """The JIT-compiled EIS kernel for a model, settings and control variates (once per data shape)."""
 
     def run(params, y, key):
-        out = eis_output(model, settings, params, y, key)
+        out, extra = controlled_output(model, settings, control, params, y, key)
         diagnostics = eis.weight_diagnostics(out.log_weights, settings.antithetic)
-        return out, diagnostics
+        return out, diagnostics, extra
 
     return jax.jit(run)
 
@@ -190,6 +320,9 @@ def loglik(
     antithetic: bool = True,
     tol: float = 1e-6,
     max_iter: int = 50,
+    n_score_draws: int | None = None,
+    control_variates: str | None = None,
+    cv_coefficient="regression",
 ) -> LoglikResult:
     """EIS estimate of the log-likelihood of ``model`` at ``params`` on observations ``y``.
 
@@ -197,11 +330,24 @@ def loglik(
       model: a registered model name (see ``smle.model_names()``) or a model instance.
       params: parameter values by name, in the model's natural parameterisation.
       y: observations, shape (T,) (or (T, n_series) for multi-series models).
-      n_draws: simulated paths per draw set (the fitting set and the scoring set each have S).
+      n_draws: simulated paths S of the fitting draw set (and of the scoring set by default).
       seed: non-negative integer or JAX PRNG key; the common random numbers derive from it.
       antithetic: pair each draw with its negation.
       tol: EIS convergence tolerance on the relative change of the auxiliary parameters.
       max_iter: cap on EIS iterations.
+      n_score_draws: paths of the scoring set, if not ``n_draws`` (a larger set is cheap: one pass).
+      control_variates: None; "independent" (EIS at the parameters with the factor
+        autocorrelation set to zero, with the same random numbers, corrected by its exact
+        likelihood: closed form or adaptive Gauss-Hermite); "draws" (pooled Hermite statistics
+        of the scoring normals, of known mean zero); or "both". ``value`` and ``nse`` are then
+        the corrected estimate and its NSE (delta method on the regression residuals).
+      cv_coefficient: coefficient of the independent control. "regression" (default): the
+        least-squares slope of this run's log weights on the independent case's log weights
+        (same draws); it tracks the coefficient that minimises the variance across seeds
+        (measured for garch-mix, T = 2000: 0.98, 0.87, 0.68, 0.41, 0.11 against 1.01, 0.89,
+        0.68, 0.42, 0.11 at rho = 0.1, 0.3, 0.5, 0.7, 0.9). A number fixes it: 1.0 subtracts the
+        independent case's error as it is, which at rho = 0.9 made the variance 7 times larger.
+        (A regression of the weights themselves, not their logs, is thrown off by heavy tails.)
 
     Returns:
       A :class:`LoglikResult`.
@@ -210,19 +356,29 @@ def loglik(
       Richard and Zhang (2007), J. Econometrics 141; Durbin and Koopman (1997), Biometrika 84.
     """
     model, checked, y = checked_inputs(model, params, y)
-    settings = check_settings(n_draws, antithetic, tol, max_iter)
+    settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
+    control = check_control(model, control_variates, cv_coefficient)
     key = as_key(seed)
     params_jax = {k: jnp.asarray(v, float) for k, v in checked.items()}
-    out, diagnostics = compiled_eis(model, settings)(params_jax, jnp.asarray(y), key)
-    value = float(out.value)
+    out, diagnostics, extra = compiled_eis(model, settings, control)(params_jax, jnp.asarray(y), key)
+    value = float(extra["value"])
     if not math.isfinite(value):
         raise FloatingPointError(
             f"the EIS log-likelihood of model '{model.name}' is not finite at params={checked}; "
             "the sampler failed (check the data scale, e.g. returns in percent, and the parameters)"
         )
+    corrected = {}
+    if control.label is not None:
+        corrected = dict(
+            control_variates=control.label,
+            value_uncorrected=float(out.value),
+            nse_uncorrected=float(diagnostics["nse"]),
+            cv_coefficients=dict(zip(control.names(settings.antithetic), np.asarray(extra["coefficients"]).tolist())),
+            independent_error=float(extra["independent_error"]) if "independent_error" in extra else None,
+        )
     return LoglikResult(
         value=value,
-        nse=float(diagnostics["nse"]),
+        nse=float(extra["nse"]) if control.label is not None else float(diagnostics["nse"]),
         ess=float(diagnostics["ess"]),
         iterations=int(out.info.iterations),
         converged=bool(out.info.converged),
@@ -235,6 +391,8 @@ def loglik(
         b_obs=np.asarray(out.auxiliary.b_obs),
         c_obs=np.asarray(out.auxiliary.c_obs),
         r_squared=np.asarray(out.info.r_squared),
+        n_score_draws=settings.score_draws,
+        **corrected,
     )
 
 

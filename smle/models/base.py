@@ -124,6 +124,11 @@ class Model:
 
     # -- conveniences ------------------------------------------------------------------------
     @property
+    def has_independent_case(self) -> bool:
+        """Whether the model declares an independent-factor case (:meth:`independent_params`)."""
+        return type(self).independent_params is not Model.independent_params
+
+    @property
     def param_names(self) -> tuple[str, ...]:
         return tuple(self.constraints())
 

@@ -1,0 +1,150 @@
+"""Figures of a likelihood health check (:class:`smle.health.HealthReport`), drawn off-screen."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+_INK, _ACCENT, _BAND = "#33506e", "#8c3b1e", "#e3a857"
+FILES = ("loglik_seeds.png", "weight_tail.png", "nse_scaling.png", "period_contributions.png")
+
+
+def _save(figure, path) -> Path:
+    figure.tight_layout()
+    figure.savefig(path, dpi=110)
+    plt.close(figure)
+    return Path(path)
+
+
+def loglik_across_seeds(report, path) -> Path:
+    """log L_hat per seed with its single-run NSE, the mean and the band mean +- one spread sd."""
+    figure, axis = plt.subplots(figsize=(8, 4))
+    seeds = np.asarray(report.seeds)
+    axis.axhspan(report.loglik_mean - report.loglik_sd, report.loglik_mean + report.loglik_sd, color=_BAND,
+                 alpha=0.35, label=f"mean +- sd over seeds ({report.loglik_sd:.3f})")
+    axis.axhline(report.loglik_mean, color=_ACCENT, lw=1.0, label=f"mean {report.loglik_mean:.3f}")
+    axis.errorbar(seeds, report.values, yerr=report.single_nse, fmt="o", ms=4, color=_INK, capsize=2,
+                  label="one run +- its own NSE")
+    axis.set_xlabel("seed")
+    axis.set_ylabel("log-likelihood estimate (natural log)")
+    axis.set_title(f"EIS log-likelihood across {report.n_seeds} seeds ({report.model}, {report.n_draws} draws)")
+    axis.legend(fontsize=8, loc="best")
+    axis.grid(alpha=0.3)
+    return _save(figure, path)
+
+
+def weight_tail(report, path) -> Path:
+    """Empirical survival function of the largest weights on log-log axes, with the fitted Pareto tail.
+
+    A generalised Pareto tail with shape xi > 0 falls with slope -1/xi far out; the line of
+    xi = 1/2 (slope -2), the edge of a finite variance, is drawn for comparison.
+    """
+    figure, axis = plt.subplots(figsize=(7, 5))
+    if report.degenerate:
+        axis.text(0.5, 0.5, "all weights equal (exact sampler):\nno tail to show", ha="center", va="center",
+                  transform=axis.transAxes)
+        axis.set_axis_off()
+        axis.set_title(f"Importance weights ({report.tail_draws} draws)")
+        return _save(figure, path)
+    lw = np.asarray(report.tail_log_weights)
+    relative = np.sort(np.exp(lw - lw.max()))[::-1]
+    n = relative.size
+    keep = max(int(0.2 * n), 2)
+    survival = np.arange(1, n + 1) / n
+    axis.loglog(relative[:keep], survival[:keep], "o", ms=3, color=_INK, label=f"largest {keep} of {n} weights")
+    k = report.tail.k_hat
+    fit = k.fit
+    threshold = relative[k.n_tail]
+    fraction = k.n_tail / n
+    grid = np.geomspace(threshold * (1 + 1e-6), relative[0], 200)
+    excess = grid - threshold
+    if abs(fit.xi) > 1e-9:
+        base = np.maximum(1 + fit.xi * excess / fit.beta, 1e-300)
+        tail = fraction * base ** (-1 / fit.xi)
+    else:
+        tail = fraction * np.exp(-excess / fit.beta)
+    axis.loglog(grid, tail, color=_ACCENT, lw=1.4, label=f"fitted Pareto tail, k-hat = {fit.xi:.2f}")
+    edge = fraction * (grid / threshold) ** -2.0
+    axis.loglog(grid, edge, color="grey", ls="--", lw=1.0, label="xi = 1/2 (edge of finite variance)")
+    axis.set_xlabel("weight relative to the largest weight (log scale)")
+    axis.set_ylabel("fraction of draws with a weight at least this large (log scale)")
+    axis.set_title(f"Tail of the importance weights ({report.tail.verdict}; {n} draws)")
+    axis.legend(fontsize=8, loc="lower left")
+    axis.grid(alpha=0.3, which="both")
+    return _save(figure, path)
+
+
+def nse_against_draws(report, path) -> Path:
+    """NSE from the spread over seeds against S, and NSE sqrt(S), which is flat under 1/sqrt(S)."""
+    figure, (left, right) = plt.subplots(1, 2, figsize=(11, 4))
+    if not report.scaling:
+        for axis in (left, right):
+            axis.text(0.5, 0.5, "not measured (draws_grid=None)", ha="center", va="center", transform=axis.transAxes)
+            axis.set_axis_off()
+        return _save(figure, path)
+    draws = np.array([r.n_draws for r in report.scaling], float)
+    sd = np.array([r.sd for r in report.scaling])
+    single = np.array([r.single_nse for r in report.scaling])
+    scaled = np.array([r.scaled for r in report.scaling])
+    low = np.array([r.scaled_low for r in report.scaling])
+    high = np.array([r.scaled_high for r in report.scaling])
+    left.loglog(draws, np.maximum(sd, 1e-300), "o-", color=_INK, label="spread over seeds")
+    left.loglog(draws, np.maximum(single, 1e-300), "s:", color=_ACCENT, ms=4, label="single-run NSE (rms)")
+    left.loglog(draws, sd[-1] * np.sqrt(draws[-1] / draws), "--", color="grey", label="1/sqrt(S) through largest S")
+    left.set_xlabel("draws S (log scale)")
+    left.set_ylabel("NSE of log-likelihood (log units, log scale)")
+    left.set_title(f"NSE against draws (slope {report.scaling_slope:.2f}; -0.5 expected)")
+    left.legend(fontsize=8)
+    left.grid(alpha=0.3, which="both")
+    right.errorbar(draws, scaled, yerr=[scaled - low, high - scaled], fmt="o-", color=_INK, capsize=3,
+                   label="NSE sqrt(S) with 95% interval")
+    right.axhline(scaled[-1], color="grey", ls="--", lw=1.0, label="value at the largest S")
+    off = [not r.consistent for r in report.scaling]
+    if any(off):
+        right.plot(draws[off], scaled[off], "x", color=_ACCENT, ms=10, mew=2, label="off the 1/sqrt(S) law")
+    right.set_xscale("log")
+    right.set_xlabel("draws S (log scale)")
+    right.set_ylabel("NSE x sqrt(S) (log units)")
+    right.set_title(f"Scaled NSE: flat from S = {report.scaling_holds_from}")
+    right.legend(fontsize=8)
+    right.grid(alpha=0.3)
+    return _save(figure, path)
+
+
+def period_contributions(report, path) -> Path:
+    """Each period's share of the variance of the log weight, and the EIS regression R^2 per period."""
+    figure, (top, bottom) = plt.subplots(2, 1, figsize=(10, 6), sharex=True)
+    t = np.arange(report.n_periods)
+    top.vlines(t, 0, report.period_shares, color=_INK, lw=0.8)
+    for p in report.top_periods[:5]:
+        top.annotate(p.date or str(p.index), (p.index, p.share), fontsize=7, color=_ACCENT,
+                     xytext=(3, 3), textcoords="offset points")
+    top.axhline(0, color="grey", lw=0.6)
+    top.set_ylabel("share of var(log weight)")
+    top.set_title(f"Periods driving the weight variance ({report.tail_draws} scoring draws)"
+                  + (": none, weights equal" if report.degenerate else ""))
+    bottom.plot(t, report.r_squared, color=_ACCENT, lw=0.8)
+    bottom.set_ylabel("EIS regression R^2")
+    bottom.set_ylim(min(0.0, float(np.min(report.r_squared))), 1.02)
+    if report.dates:
+        ticks = np.linspace(0, report.n_periods - 1, 6).astype(int)
+        bottom.set_xticks(ticks, [report.dates[i] for i in ticks], fontsize=8)
+        bottom.set_xlabel("date")
+    else:
+        bottom.set_xlabel("period")
+    for axis in (top, bottom):
+        axis.grid(alpha=0.3)
+    return _save(figure, path)
+
+
+def all_figures(report, folder) -> list[Path]:
+    """The four figures of a health report, written into ``folder``."""
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    makers = (loglik_across_seeds, weight_tail, nse_against_draws, period_contributions)
+    return [make(report, folder / name) for make, name in zip(makers, FILES)]

@@ -1,0 +1,220 @@
+"""The likelihood health check (smle.check, smle check).
+
+Outside sources: the deterministic grid filter (Kitagawa 1987) and the Kalman filter as exact
+likelihoods; scipy.stats for the chi-square and F laws; the exact second moment of Gaussian
+importance weights derived in the docstring of the infinite-variance test; the Jacquier, Polson
+and Rossi (1994, JBES) sampling design. Shapes reuse tests/conftest.py: T in {40, 500}, S in
+{32, 64} plus the health check's own 128, 256 and 2000.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+import smle
+from smle import cli, health
+from smle.errors import SmleInputError
+from smle.health_cli import EXIT_CODES
+from smle.reference import grid_loglik, kalman_loglik
+from smle.results import CAUTION, FitResult
+
+from conftest import JPR_DESIGNS
+
+PARAMS = JPR_DESIGNS["phi=0.95"]
+N_SEEDS = 10
+
+
+@pytest.fixture(scope="module")
+def sv_data():
+    y, _ = smle.simulate("sv", PARAMS, 500, seed=17)
+    return pd.Series(y, index=pd.bdate_range("2031-01-06", periods=500))
+
+
+@pytest.fixture(scope="module")
+def healthy_report(sv_data):
+    return smle.check("sv", PARAMS, sv_data, n_draws=64, n_seeds=N_SEEDS, seed=0, tail_draws=2000,
+                      draws_grid=(32, 64, 128, 256))
+
+
+def test_well_specified_sv_is_healthy(healthy_report, sv_data):
+    report = healthy_report
+    # Measured at this design and data: spread over 10 seeds 0.044, single-run NSE 0.044,
+    # k-hat 0.30 from 2000 scoring weights (sampler fitted on 64), no threshold rejecting, slope
+    # -0.64 (se 0.15).
+    assert report.verdict == "healthy", report.reason
+    assert report.tail.verdict == "healthy" and len(report.tail.tests) == 4  # 1%, 5%, 10%, 20%
+    assert report.converged.all()
+    # the spread is an honest error bar: the mean over seeds agrees with the grid filter
+    # (Kitagawa 1987, 1000 nodes) within 4 NSE of the mean, after the bias +NSE^2/2 of a log mean
+    # (Durbin and Koopman 1997); measured difference -0.018 against an NSE of the mean of 0.014
+    exact = grid_loglik("sv", PARAMS, sv_data.to_numpy(), n_grid=1000)
+    assert abs(report.loglik_bias_corrected - exact) < 4 * report.nse_of_mean
+    # the seed runs are smle.loglik at seeds 0..9, untouched
+    again = smle.loglik("sv", PARAMS, sv_data.to_numpy(), n_draws=64, seed=3)
+    assert report.values[3] == again.value and report.single_nse[3] == again.nse
+    assert report.loglik_sd == pytest.approx(np.std(report.values, ddof=1), rel=1e-12)
+    # the agreement range of single-run NSE / spread is the chi-square law of a sample sd
+    dof = N_SEEDS - 1
+    assert report.nse_ratio_range[1] == pytest.approx(np.sqrt(dof / stats.chi2.ppf(0.005, dof)), rel=1e-12)
+    # NSE sqrt(S) within a factor 3 across S = 32..256 (measured 0.35-0.76)
+    scaled = [row.scaled for row in report.scaling]
+    assert max(scaled) / min(scaled) < 3.0
+    # dates come from the DatetimeIndex of the Series
+    assert report.dates[0] == "2031-01-06" and report.top_periods[0].date == report.dates[report.top_periods[0].index]
+
+
+def test_period_terms_rebuild_the_engine_weights(sv_data):
+    y = sv_data.to_numpy()
+    result = smle.loglik("sv", PARAMS, y, n_draws=64, seed=5)
+    terms = health.period_terms("sv", PARAMS, y, result)
+    total = terms.sum(axis=0)
+    # log w = log chi_1 + sum_t term_t: the terms differ from the engine's weights by one constant
+    offset = result.log_weights - total
+    assert np.ptp(offset) < 1e-8 * np.abs(result.log_weights).max()
+    shares = health.variance_shares(terms)
+    assert shares.sum() == pytest.approx(1.0, abs=1e-10)
+    # a share is a covariance over the variance: check one against numpy's covariance
+    t = int(np.argmax(shares))
+    assert shares[t] == pytest.approx(np.cov(terms[t], total, bias=True)[0, 1] / np.var(total), rel=1e-9)
+
+
+def test_infinite_variance_sampler_is_not_healthy():
+    """sv with phi = 0 and sigma_eta = 2: periods are independent, so the weight is a product of
+    per-period weights w_t = g_t(x) p(x) / q_t(x), q_t = N with precision P = 1/s^2 + c_t
+    (s = sigma_eta; chi_{t+1} is constant when phi = 0). Then
+        E_q w_t^2 = int g_t^2 p^2 / q_t  ∝  int g_t(x)^2 exp(-(x - mu)^2 / (2 s^2) + c_t x^2 / 2 + lin.) dx,
+    and g_t(x)^2 = exp(-x - y_t^2 e^-x) / (2 pi) falls only exponentially as x -> +inf, so the
+    variance is infinite as soon as one c_t >= 1 / s^2; the tail index is then
+    xi_t = c_t s^2 / (1 + c_t s^2) >= 1/2 (from P(w_t > u) ~ u^(-P / c_t)). EIS fits c_t near the
+    curvature of log g_t, about 1/2 or more, against 1 / s^2 = 1/4.
+    """
+    params = dict(mu=0.0, phi=0.0, sigma_eta=2.0)
+    y, _ = smle.simulate("sv", params, 500, seed=3)
+    tail_run = smle.loglik("sv", params, y, n_draws=64, n_score_draws=2000, seed=0)  # the check's tail run
+    assert tail_run.c_obs.max() * params["sigma_eta"] ** 2 >= 1.0  # infinite variance by the derivation above
+    report = smle.check("sv", params, y, n_draws=64, n_seeds=N_SEEDS, seed=0, tail_draws=2000, draws_grid=None)
+    # measured: k-hat 2.95, spread 2.9 against single-run NSE 0.8
+    assert report.verdict == "unreliable", report.reason
+    assert report.tail.verdict != "healthy" and report.k_hat > 0.7
+    assert report.nse_ratio < report.nse_ratio_range[0]  # the single-run NSE understates the error
+    assert "variance" in report.reason
+
+
+def test_control_variates_report_the_measured_reduction(sv_data):
+    y = sv_data.to_numpy()
+    report = smle.check("sv", PARAMS, y, n_draws=64, n_seeds=N_SEEDS, tail_draws=200, draws_grid=None,
+                        control_variates="both")
+    # the uncorrected values are the plain estimator at the same seeds (seed runs of healthy_report)
+    plain = np.array([smle.loglik("sv", PARAMS, y, n_draws=64, seed=s).value for s in range(N_SEEDS)])
+    np.testing.assert_allclose(report.values_uncorrected, plain, rtol=0, atol=1e-9)
+    corrected = smle.loglik("sv", PARAMS, y, n_draws=64, seed=4, control_variates="both")
+    assert report.values[4] == corrected.value
+    factor = np.var(plain, ddof=1) / np.var(report.values, ddof=1)
+    assert report.variance_reduction == pytest.approx(factor, rel=1e-9)
+    # the rough interval divides the factor by the F(9, 9) quantiles (scipy.stats.f)
+    low, high = report.variance_reduction_range
+    assert low == pytest.approx(factor / stats.f.ppf(0.975, 9, 9), rel=1e-9)
+    assert high == pytest.approx(factor / stats.f.ppf(0.025, 9, 9), rel=1e-9)
+    assert "variance reduction" in report.summary()
+
+
+def test_exact_linear_gaussian_weights_are_degenerate_and_healthy():
+    # EIS is exact for ar1-noise: every weight equal, the value the Kalman-filter likelihood
+    model = smle.get_model("ar1-noise")
+    params = dict(mu=0.3, phi=0.9, sigma_eta=0.4, sigma_eps=1.1)
+    y, _ = smle.simulate(model, params, 40, seed=2)
+    report = smle.check(model, params, y, n_draws=32, n_seeds=3, tail_draws=100, draws_grid=(32, 64))
+    assert report.degenerate and report.tail is None
+    assert report.verdict == "healthy" and "equal" in report.reason
+    exact = float(kalman_loglik(y, model.latent(params), params["sigma_eps"] ** 2))
+    assert report.loglik_mean == pytest.approx(exact, abs=1e-8)
+    assert "exact" in report.summary() and np.all(report.period_shares == 0)
+
+
+def test_report_text_json_and_figures(healthy_report, tmp_path):
+    report = healthy_report
+    text = report.summary()
+    assert text.endswith(CAUTION) and "verdict: healthy" in text and "2031-" in text
+    written = report.write(tmp_path / "check")
+    stored = json.loads((tmp_path / "check" / "check.json").read_text())
+    assert stored["verdict"] == "healthy" and stored["values"] == report.values.tolist()
+    assert stored["tail"]["k_hat"]["k_hat"] == report.k_hat and stored["caution"] == CAUTION
+    assert len(stored["scaling"]) == 4 and stored["scaling"][0]["n_draws"] == 32
+    for name in ("loglik_seeds.png", "weight_tail.png", "nse_scaling.png", "period_contributions.png"):
+        assert (tmp_path / "check" / name) in written
+        assert (tmp_path / "check" / name).stat().st_size > 10_000
+
+
+def test_bad_inputs_say_what_is_needed(sv_data):
+    y = sv_data.to_numpy()
+    cases = [
+        (dict(n_seeds=2), ["n_seeds = 2", ">= 3"]),
+        (dict(tail_draws=50), ["tail_draws = 50", ">= 100", "2000"]),
+        (dict(tail_draws=201), ["tail_draws = 201", "even"]),
+        (dict(draws_grid=(64,)), ["draws_grid", "at least 2"]),
+        (dict(draws_grid="many"), ["draws_grid", "integer"]),
+        (dict(dates=["2031-01-06"] * 3), ["dates has 3 entries", "500 periods"]),
+        (dict(n_draws=3), ["n_draws = 3"]),
+        (dict(level=1.5), ["level = 1.5"]),
+    ]
+    for options, words in cases:
+        with pytest.raises(SmleInputError) as error:
+            smle.check("sv", PARAMS, y, **options)
+        for word in words:
+            assert word in str(error.value), (options, str(error.value))
+    with pytest.raises(SmleInputError, match="sigma_eta"):
+        smle.check("sv", dict(mu=-7.36, phi=0.95), y)
+
+
+@pytest.fixture(scope="module")
+def returns_csv(tmp_path_factory, sv_data):
+    path = tmp_path_factory.mktemp("check") / "returns.csv"
+    pd.DataFrame({"date": sv_data.index.strftime("%Y-%m-%d"), "ret": sv_data.to_numpy()}).to_csv(path, index=False)
+    return path
+
+
+def _saved_fit(path, params):
+    """A saved fit carrying only what `smle check --from-fit` reads (model, options, params)."""
+    names = list(params)
+    nan = float("nan")
+    FitResult(
+        model="sv", model_options={}, param_names=names, params=dict(params), std_errors=dict.fromkeys(names, nan),
+        conf_int={n: (nan, nan) for n in names}, level=0.95, covariance=np.zeros((3, 3)), loglik=nan, nse=nan,
+        n_obs=500, aic=nan, bic=nan, converged=True, message="", iterations=0, n_evaluations=0, grad_norm=nan,
+        elapsed_seconds=0.0, start=dict(params), eis={}, factor_name="", smoothed_mean=np.zeros(1),
+        smoothed_lower=np.zeros(1), smoothed_upper=np.zeros(1), log_weights=np.zeros(1),
+    ).to_json(path)
+
+
+def test_command_line(returns_csv, tmp_path, capsys):
+    with pytest.raises(SystemExit) as exit_info:
+        cli.main(["check", "--help"])
+    assert exit_info.value.code == 0 and "exit status: 0 healthy" in capsys.readouterr().out
+    text = ",".join(f"{k}={v}" for k, v in PARAMS.items())
+    common = ["--seeds", "3", "--tail-draws", "200", "--grid", "none", "--quiet"]
+    code = cli.main(["check", str(returns_csv), "--params", text, "--report", str(tmp_path / "r"), *common])
+    out = capsys.readouterr().out
+    direct = smle.check("sv", PARAMS, pd.read_csv(returns_csv)["ret"].to_numpy(), n_seeds=3, tail_draws=200,
+                        draws_grid=None)
+    assert code == EXIT_CODES[direct.verdict]
+    stored = json.loads((tmp_path / "r" / "check.json").read_text())
+    assert stored["values"] == direct.values.tolist() and stored["dates"][0] == "2031-01-06"
+    assert "smle check" in out and out.rstrip().endswith(f"{CAUTION}\n\nreport written to {tmp_path / 'r'}/ "
+                                                          "(check.txt, check.json, loglik_seeds.png, weight_tail.png, "
+                                                          "nse_scaling.png, period_contributions.png)")
+    # the same through a saved fit
+    _saved_fit(tmp_path / "fit.json", PARAMS)
+    assert cli.main(["check", str(returns_csv), "--from-fit", str(tmp_path / "fit.json"), *common]) == code
+    assert capsys.readouterr().out.count(f"{direct.loglik_mean:.4f}") >= 1
+    # bad input: exit status 2 and a message naming the option
+    for argv, word in ((["--params", "mu=-7.36,phi"], "--params item 'phi'"),
+                       ([], "exactly one of --params"),
+                       (["--params", text, "--grid", "16,x"], "--grid '16,x'"),
+                       (["--from-fit", str(tmp_path / "none.json")], "does not exist")):
+        assert cli.main(["check", str(returns_csv), *argv, "--quiet"]) == 2
+        assert word in capsys.readouterr().err
