@@ -532,52 +532,51 @@ def draw_statistics(normals: jax.Array, antithetic: bool) -> jax.Array:
     return jnp.stack(columns, axis=1)
 
 
+def log_weight_coefficients(log_weights: jax.Array, regressors: jax.Array, antithetic: bool) -> jax.Array:
+    """Control-variate coefficients: least squares of the log weights on the controls, shape (k,).
+
+    ``regressors`` (S, k) are per-draw control quantities on the log scale (a control case's log
+    weights, or statistics of the normals). With antithetic draws the regression is over pair
+    means: their odd parts cancel in the estimate, so only the even parts should set the
+    coefficients. To first order the error of ``log mean w`` is the mean of the centred log
+    weights, so these are the variance-minimising coefficients; log weights are close to jointly
+    normal where the weights themselves are heavy-tailed, which makes the regression stable where
+    one on the weights is not (measured: see ``experiments/results/control_variates.md``).
+    """
+    target = pair_units(log_weights, antithetic)
+    design = pair_units(regressors, antithetic)
+    target = target - jnp.mean(target)
+    design = design - jnp.mean(design, axis=0)
+    gram = design.T @ design
+    # a tiny ridge keeps the solve finite when a control is constant (the exact Gaussian case,
+    # where every weight is equal); it changes nothing measurable otherwise
+    ridge = 1e-12 * (jnp.trace(gram) / gram.shape[0]) + 1e-300
+    return jnp.linalg.solve(gram + ridge * jnp.eye(gram.shape[0], dtype=gram.dtype), design.T @ target)
+
+
 def control_variate_correction(
     log_weights: jax.Array,
     value: jax.Array,
     controls: jax.Array,
     errors: jax.Array,
-    fixed: tuple,
+    coefficients: jax.Array,
     antithetic: bool,
 ):
-    """Correct ``value = log mean w`` by control variates, with the corrected NSE.
+    """Correct ``value = log mean w`` by control variates and give the corrected NSE.
 
-    Each control j has per-draw values ``controls[:, j]`` (shape (S, k)) whose estimate on these
-    draws is off its known value by ``errors[j]`` on the log scale. The corrected estimate is
-    ``value - sum_j beta_j errors[j]``. To first order ``value - log L`` is the mean of
-    ``u_s - 1`` with ``u_s = w_s / mean(w)``, so the coefficients with ``fixed[j] = None`` are the
-    least-squares regression of the units of ``u`` on the units of the controls (after subtracting
-    the controls with fixed coefficients), and the NSE is the residual standard deviation over
-    sqrt(number of units), with the regression's degrees of freedom. The coefficients depend
-    smoothly on the parameters, so the corrected value is differentiable like ``value``.
+    Each control j has per-draw values ``controls[:, j]`` (shape (S, k)) on the weight scale
+    (``w0_s / L0`` for a control case, a statistic of mean zero for the draws), and its estimate
+    on these draws is off its known value by ``errors[j]`` on the log scale. The corrected
+    estimate is ``value - coefficients . errors``; its NSE is the delta method applied to the
+    units of ``w_s / mean(w) - coefficients . controls_s``. The coefficients depend smoothly on
+    the parameters, so the corrected value is differentiable like ``value``.
 
-    Returns ``(corrected_value, corrected_nse, coefficients (k,))``.
+    Returns ``(corrected_value, corrected_nse)``.
 
-    References: Hammersley and Handscomb (1964), Monte Carlo Methods, ch. 5 (control variates by
-    regression); Durbin and Koopman (1997), Biometrika 84 (the delta method for log L).
+    References: Hammersley and Handscomb (1964), Monte Carlo Methods, ch. 5 (control variates);
+    Durbin and Koopman (1997), Biometrika 84 (the delta method for log L).
     """
-    units = pair_units(jnp.exp(log_weights - value), antithetic)
-    control_units = pair_units(controls, antithetic)
-    target = units
-    for j, coefficient in enumerate(fixed):
-        if coefficient is not None:
-            target = target - coefficient * control_units[:, j]
-    free = [j for j, coefficient in enumerate(fixed) if coefficient is None]
-    target = target - jnp.mean(target)
+    units = pair_units(jnp.exp(log_weights - value) - controls @ coefficients, antithetic)
     n_units = units.shape[0]
-    coefficients = [jnp.asarray(0.0 if c is None else c, value.dtype) for c in fixed]
-    if free:
-        regressors = control_units[:, free]
-        regressors = regressors - jnp.mean(regressors, axis=0)
-        gram = regressors.T @ regressors
-        # a tiny ridge keeps the solve finite when a control is constant (the exact Gaussian
-        # case, where every weight is equal); it changes nothing measurable otherwise
-        ridge = 1e-12 * (jnp.trace(gram) / len(free) + 1e-300)
-        beta = jnp.linalg.solve(gram + ridge * jnp.eye(len(free), dtype=gram.dtype), regressors.T @ target)
-        target = target - regressors @ beta
-        for position, j in enumerate(free):
-            coefficients[j] = beta[position]
-    coefficients = jnp.stack(coefficients)
-    dof = n_units - len(free) - 1
-    nse = jnp.sqrt(jnp.sum(target * target) / dof / n_units)
-    return value - jnp.dot(coefficients, errors), nse, coefficients
+    nse = jnp.std(units, ddof=1) / jnp.sqrt(n_units)
+    return value - jnp.dot(coefficients, errors), nse

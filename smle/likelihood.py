@@ -257,7 +257,7 @@ def controlled_output(model: Model, settings: eis.EISSettings, control: ControlS
     Without control variates the corrected value is ``out.value``.
     """
     out = eis_output(model, settings, params, y, key)
-    controls, errors, fixed, extra = [], [], [], {}
+    controls, log_controls, errors, extra = [], [], [], {}
     if control.independent:
         independent = model.independent_params(params)
         out_independent = eis_output(model, settings, independent, y, key)
@@ -265,38 +265,34 @@ def controlled_output(model: Model, settings: eis.EISSettings, control: ControlS
         error = out_independent.value - exact
         # w0_s / L0 = exp(log w0_s - value0) exp(value0 - log L0): no overflow for any usable run
         controls.append(jnp.exp(out_independent.log_weights - out_independent.value) * jnp.exp(error))
+        log_controls.append(out_independent.log_weights)
         errors.append(error)
-        coefficient = control.coefficient
-        if coefficient is None:
-            coefficient = log_weight_slope(out.log_weights, out_independent.log_weights)
-        fixed.append(coefficient)
         extra["independent_error"] = error
     if control.draws:
         _, score_normals = eis.standard_normals(key, out.paths.shape[0], settings)
         statistics = eis.draw_statistics(score_normals, settings.antithetic)
         for j in range(statistics.shape[1]):
             controls.append(statistics[:, j])
+            log_controls.append(statistics[:, j])
             errors.append(jnp.mean(statistics[:, j]))
-            fixed.append(None)
     if controls:
-        value, nse, coefficients = eis.control_variate_correction(
-            out.log_weights, out.value, jnp.stack(controls, axis=1), jnp.stack(errors), tuple(fixed), settings.antithetic
+        coefficients = eis.log_weight_coefficients(out.log_weights, jnp.stack(log_controls, axis=1), settings.antithetic)
+        if control.independent and control.coefficient is not None:
+            if control.draws:  # the independent coefficient fixed, the draws' regressed on the rest
+                rest = out.log_weights - control.coefficient * log_controls[0]
+                coefficients = jnp.concatenate([
+                    jnp.asarray([control.coefficient]),
+                    eis.log_weight_coefficients(rest, jnp.stack(log_controls[1:], axis=1), settings.antithetic),
+                ])
+            else:
+                coefficients = jnp.asarray([control.coefficient])
+        value, nse = eis.control_variate_correction(
+            out.log_weights, out.value, jnp.stack(controls, axis=1), jnp.stack(errors), coefficients, settings.antithetic
         )
         extra.update(value=value, nse=nse, coefficients=coefficients)
     else:
         extra["value"] = out.value
     return out, extra
-
-
-def log_weight_slope(log_weights: jax.Array, control_log_weights: jax.Array) -> jax.Array:
-    """Least-squares slope of log weights on a control's log weights over the same draws.
-
-    Log weights are close to jointly normal where the weights are heavy-tailed, so this slope is
-    a stable estimate of the variance-minimising control coefficient (zero for a constant control).
-    """
-    a = log_weights - jnp.mean(log_weights)
-    b = control_log_weights - jnp.mean(control_log_weights)
-    return jnp.sum(a * b) / (jnp.sum(b * b) + 1e-300)
 
 
 @functools.lru_cache(maxsize=None)
@@ -339,13 +335,13 @@ def loglik(
       control_variates: None; "independent" (EIS at the parameters with the factor
         autocorrelation set to zero, with the same random numbers, corrected by its exact
         likelihood: closed form or adaptive Gauss-Hermite); "draws" (pooled Hermite statistics
-        of the scoring normals, of known mean zero); or "both". ``value`` and ``nse`` are then
-        the corrected estimate and its NSE (delta method on the regression residuals).
-      cv_coefficient: coefficient of the independent control. "regression" (default): the
-        least-squares slope of this run's log weights on the independent case's log weights
-        (same draws); it tracks the coefficient that minimises the variance across seeds
-        (measured for garch-mix, T = 2000: 0.98, 0.87, 0.68, 0.41, 0.11 against 1.01, 0.89,
-        0.68, 0.42, 0.11 at rho = 0.1, 0.3, 0.5, 0.7, 0.9). A number fixes it: 1.0 subtracts the
+        of the scoring normals, of known mean zero; coefficients by the same log-weight
+        regression); or "both". ``value`` and ``nse`` are then the corrected estimate and its
+        NSE (delta method on the corrected weights).
+      cv_coefficient: coefficient of the independent control. "regression" (default): from the
+        least-squares regression of this run's log weights (antithetic pair means) on the
+        independent case's (same draws) and on the draw statistics; it tracks the coefficient
+        that minimises the variance across seeds (experiments/results/control_variates.md). A number fixes it: 1.0 subtracts the
         independent case's error as it is, which at rho = 0.9 made the variance 7 times larger.
         (A regression of the weights themselves, not their logs, is thrown off by heavy tails.)
 
