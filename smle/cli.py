@@ -95,7 +95,8 @@ def _diagnose(result, y, args):
 def _fit_and_report(model_name, y, label, args) -> int:
     import smle
 
-    result = smle.fit(model_name, y, n_draws=args.draws, seed=args.seed, n_seeds=args.seeds, verbose=not args.quiet)
+    result = smle.fit(model_name, y, n_draws=args.draws, seed=args.seed, n_seeds=args.seeds, verbose=not args.quiet,
+                      control_variates=args.control_variates)
     print(result.summary())
     if args.report:
         folder = Path(args.report)
@@ -185,6 +186,8 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("--seed", type=int, default=0, help="seed of the common random numbers (default 0)")
         p.add_argument("--seeds", type=int, default=1, help="independent refits for simulation standard errors (default 1)")
         p.add_argument("--quiet", action="store_true", help="no progress output")
+        p.add_argument("--control-variates", choices=["independent", "draws", "both"], default=None,
+                       help="maximise the control-variate corrected likelihood (default: none)")
         p.add_argument("--particles", type=int, default=2000,
                        help="particles of the goodness-of-fit filter written with --report (default 2000; 0: none)")
 

@@ -155,6 +155,7 @@ class FitResult:
             f"EIS at the estimate: {eis['n_draws']} draws{' (antithetic)' if eis['antithetic'] else ''}, "
             f"seed {eis['seed']}, {eis['iterations']} iterations, ESS {eis['ess']:.1f}, "
             f"min R^2 {eis['min_r_squared']:.3f}",
+            *_control_lines(eis),
             rule,
             CAUTION,
         ]
@@ -162,6 +163,15 @@ class FitResult:
 
     def __str__(self) -> str:
         return self.summary()
+
+
+def _control_lines(eis: dict) -> list[str]:
+    """The summary's line on control variates (none without them)."""
+    if not eis.get("control_variates"):
+        return []
+    coefficients = ", ".join(f"{k} {v:.3f}" for k, v in eis.get("cv_coefficients", {}).items())
+    return [f"control variates {eis['control_variates']!r} ({coefficients}): uncorrected log-likelihood "
+            f"{eis['loglik_uncorrected']:.4f}, NSE {eis['nse_uncorrected']:.4f}"]
 
 
 def _equal(a, b) -> bool:
