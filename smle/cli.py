@@ -5,6 +5,7 @@
     smle demo                         fit the invented demo scenario end to end
     smle prepare intraday.csv         prices to the aligned daily table of returns and measures
     smle check data.csv --params ...  health check of the simulated likelihood (smle/health_cli.py)
+    smle diagnose result.json         goodness of fit of a saved fit: PITs, residual tests, figures
 """
 
 from __future__ import annotations
@@ -65,8 +66,8 @@ def _read_series(path: str, column: str | None, prices: bool, drop_missing: bool
     return values, index, f"{column} ({unit})"
 
 
-def _write_report(result, y, folder: Path, label: str) -> None:
-    """Results JSON and two figures into ``folder``."""
+def _write_report(result, y, folder: Path, label: str, args=None) -> list[str]:
+    """Results JSON, two figures and the goodness-of-fit report into ``folder``; the file names."""
     from smle import plots
 
     folder.mkdir(parents=True, exist_ok=True)
@@ -74,23 +75,60 @@ def _write_report(result, y, folder: Path, label: str) -> None:
     (folder / "summary.txt").write_text(result.summary() + "\n")
     plots.data_and_factor(result, y, label, folder / "factor.png")
     plots.log_weights(result, folder / "log_weights.png")
+    names = ["result.json", "summary.txt", "factor.png", "log_weights.png"]
+    if args is not None and getattr(args, "particles", 0):
+        diagnostics = _diagnose(result, y, args)
+        names += [path.name for path in diagnostics.write(folder)]
+    return names
+
+
+def _diagnose(result, y, args):
+    import smle
+
+    progress = None if args.quiet else (lambda message: print(message, file=sys.stderr, flush=True))
+    diagnostics = smle.diagnose(result, y, n_particles=args.particles, seed=args.seed, progress=progress)
+    print()
+    print(diagnostics.summary())
+    return diagnostics
 
 
 def _fit_and_report(model_name, y, label, args) -> int:
     import smle
 
-    result = smle.fit(model_name, y, n_draws=args.draws, seed=args.seed, n_seeds=args.seeds, verbose=not args.quiet)
+    result = smle.fit(model_name, y, n_draws=args.draws, seed=args.seed, n_seeds=args.seeds, verbose=not args.quiet,
+                      control_variates=args.control_variates)
     print(result.summary())
     if args.report:
         folder = Path(args.report)
-        _write_report(result, y, folder, label)
-        print(f"\nreport written to {folder}/ (result.json, summary.txt, factor.png, log_weights.png)")
+        names = _write_report(result, y, folder, label, args)
+        print(f"\nreport written to {folder}/ ({', '.join(names)})")
     return 0 if result.converged else 3
 
 
 def _command_fit(args) -> int:
     y, _, label = _read_series(args.data, args.column, args.prices, args.drop_missing)
     return _fit_and_report(args.model, y, label, args)
+
+
+def _command_diagnose(args) -> int:
+    import smle
+
+    try:
+        result = smle.FitResult.from_json(args.result)
+    except FileNotFoundError:
+        raise SmleInputError(f"result file {args.result!r} does not exist") from None
+    except (ValueError, KeyError, TypeError) as error:
+        raise SmleInputError(f"{args.result!r} is not a result written by 'smle fit --report': {error}") from None
+    y = None
+    if args.data:
+        y, _, _ = _read_series(args.data, args.column, args.prices, args.drop_missing)
+    elif result.observations is None:
+        raise SmleInputError(f"{args.result!r} stores no observations; give the data with --data")
+    diagnostics = _diagnose(result, y, args)
+    if args.report:
+        names = [path.name for path in diagnostics.write(args.report)]
+        print(f"\ndiagnostics written to {args.report}/ ({', '.join(names)})")
+    return 0
 
 
 def _command_models(args) -> int:
@@ -148,6 +186,10 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("--seed", type=int, default=0, help="seed of the common random numbers (default 0)")
         p.add_argument("--seeds", type=int, default=1, help="independent refits for simulation standard errors (default 1)")
         p.add_argument("--quiet", action="store_true", help="no progress output")
+        p.add_argument("--control-variates", choices=["independent", "draws", "both"], default=None,
+                       help="maximise the control-variate corrected likelihood (default: none)")
+        p.add_argument("--particles", type=int, default=2000,
+                       help="particles of the goodness-of-fit filter written with --report (default 2000; 0: none)")
 
     fit = commands.add_parser("fit", help="estimate a model on a CSV column of returns or prices")
     fit.add_argument("data", help="CSV file")
@@ -177,6 +219,18 @@ def build_parser() -> argparse.ArgumentParser:
     prepare.add_argument("--timezone", help="venue time zone (default UTC)")
     prepare.add_argument("--drop-bad-rows", action="store_true", help="drop bad rows (logged) instead of failing")
     prepare.set_defaults(handler=_command_prepare)
+
+    diagnose = commands.add_parser("diagnose", help="goodness of fit of a saved fit (PITs, residual tests, figures)")
+    diagnose.add_argument("result", help="result.json written by 'smle fit --report' (or FitResult.to_json)")
+    diagnose.add_argument("--data", help="CSV of the observations (default: those stored in the result)")
+    diagnose.add_argument("--column", help="column of --data to use (default: the last numeric column)")
+    diagnose.add_argument("--prices", action="store_true", help="the --data column holds prices (percent log returns)")
+    diagnose.add_argument("--drop-missing", action="store_true", help="drop rows of --data with a missing value")
+    diagnose.add_argument("--particles", type=int, default=2000, help="particles of the filter (default 2000)")
+    diagnose.add_argument("--seed", type=int, default=0, help="seed of the filter (default 0)")
+    diagnose.add_argument("--report", help="folder for diagnostics.txt, diagnostics.json and the figures")
+    diagnose.add_argument("--quiet", action="store_true", help="no progress output")
+    diagnose.set_defaults(handler=_command_diagnose)
 
     from smle.study.cli import add_study_commands
 

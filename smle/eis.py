@@ -356,8 +356,22 @@ def _solve_adjoint(transposed_map, cotangent, tol, max_iter: int):
         return new, iteration + 1, change
 
     inf = jnp.asarray(jnp.inf, jax.tree.leaves(cotangent)[0].dtype)
-    w, _, _ = jax.lax.while_loop(cond, body, (cotangent, jnp.asarray(0), inf))
-    return w
+    w, _, change = jax.lax.while_loop(cond, body, (cotangent, jnp.asarray(0), inf))
+    finite = jnp.all(jnp.stack([jnp.all(jnp.isfinite(leaf)) for leaf in jax.tree.leaves(w)]))
+
+    def krylov(_):
+        # the iteration diverged (a numerical spectral radius of A at or above one, seen for an
+        # ill-conditioned exact case): solve (I - A^T) w = cotangent by restarted GMRES instead
+        def operator(v):
+            return jax.tree.map(jnp.subtract, v, transposed_map(v))
+
+        solution, _ = jax.scipy.sparse.linalg.gmres(
+            operator, cotangent, x0=cotangent, tol=tol, atol=0.0, restart=20, maxiter=max(1, max_iter // 20),
+            solve_method="batched",
+        )
+        return solution
+
+    return jax.lax.cond(finite & (change <= tol), lambda _: w, krylov, None)
 
 
 @functools.partial(jax.custom_vjp, nondiff_argnums=(0, 1))

@@ -15,6 +15,7 @@ Math. Programming 45 (L-BFGS); Durbin and Koopman (1997), Biometrika 84 (bias co
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import math
 import sys
@@ -328,7 +329,8 @@ def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start
 
     return FitResult(
         model=model.name,
-        model_options={f: getattr(model, f) for f in getattr(model, "__dataclass_fields__", {})},
+        # constructor options only (dataclasses.fields leaves out the ClassVar attributes)
+        model_options={f.name: getattr(model, f.name) for f in dataclasses.fields(model)},
         param_names=list(names),
         params=params,
         std_errors=std_errors,
@@ -367,6 +369,7 @@ def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start
         log_weights=log_weights,
         simulation_std_errors=simulation_std_errors,
         seed_estimates=seed_estimates,
+        observations=np.array(y, dtype=float),
     )
 
 

@@ -44,6 +44,8 @@ class FitResult:
       log_weights: log importance weights at the estimates.
       simulation_std_errors, seed_estimates: with ``n_seeds > 1``, the spread of the estimates
         across independent random numbers and the estimates themselves.
+      observations: the data the model was fitted to, shape (T,) or (T, n_series), or None
+        (stored in the JSON so that a saved result can be diagnosed on its own).
     """
 
     model: str
@@ -74,6 +76,7 @@ class FitResult:
     log_weights: np.ndarray
     simulation_std_errors: dict | None = None
     seed_estimates: list | None = None
+    observations: np.ndarray | None = None
 
     @property
     def loglik_bias_corrected(self) -> float:
@@ -87,6 +90,8 @@ class FitResult:
             value = getattr(self, field.name)
             if field.name in _ARRAYS:
                 value = np.asarray(value).tolist()
+            elif field.name == "observations":
+                value = None if value is None else np.asarray(value).tolist()
             elif field.name == "conf_int":
                 value = {k: list(v) for k, v in value.items()}
             out[field.name] = value
@@ -107,6 +112,8 @@ class FitResult:
         for name in _ARRAYS:
             data[name] = np.asarray(data[name], dtype=float)
         data["conf_int"] = {k: tuple(v) for k, v in data["conf_int"].items()}
+        if data.get("observations") is not None:
+            data["observations"] = np.asarray(data["observations"], dtype=float)
         return cls(**data)
 
     @classmethod
@@ -148,6 +155,7 @@ class FitResult:
             f"EIS at the estimate: {eis['n_draws']} draws{' (antithetic)' if eis['antithetic'] else ''}, "
             f"seed {eis['seed']}, {eis['iterations']} iterations, ESS {eis['ess']:.1f}, "
             f"min R^2 {eis['min_r_squared']:.3f}",
+            *_control_lines(eis),
             rule,
             CAUTION,
         ]
@@ -157,11 +165,23 @@ class FitResult:
         return self.summary()
 
 
+def _control_lines(eis: dict) -> list[str]:
+    """The summary's line on control variates (none without them)."""
+    if not eis.get("control_variates"):
+        return []
+    coefficients = ", ".join(f"{k} {v:.3f}" for k, v in eis.get("cv_coefficients", {}).items())
+    return [f"control variates {eis['control_variates']!r} ({coefficients}): uncorrected log-likelihood "
+            f"{eis['loglik_uncorrected']:.4f}, NSE {eis['nse_uncorrected']:.4f}"]
+
+
 def _equal(a, b) -> bool:
     """Exact equality of two results' contents (arrays and NaNs included); used by tests."""
     for field in dataclasses.fields(FitResult):
         x, y = getattr(a, field.name), getattr(b, field.name)
-        if field.name in _ARRAYS:
+        if field.name == "observations" and (x is None or y is None):
+            if (x is None) != (y is None):
+                return False
+        elif field.name in _ARRAYS or field.name == "observations":
             if not np.array_equal(np.asarray(x), np.asarray(y), equal_nan=True):
                 return False
         elif isinstance(x, float) and isinstance(y, float) and math.isnan(x) and math.isnan(y):

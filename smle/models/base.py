@@ -137,3 +137,21 @@ class Model:
         for pname, constraint in self.constraints().items():
             lines.append(f"    {constraint.region(pname):<28} {constraint.meaning}")
         return "\n".join(lines)
+
+    # -- goodness of fit (particle filter, PITs) -------------------------------------------------
+    def obs_cdf(self, params: Mapping, data, x: jax.Array) -> jax.Array:
+        """Conditional CDF ``F(y_t | x_t)`` of each observation at paths ``x`` of shape (T, S).
+
+        Returns shape (T, S) for one series, or (T, S, n_series) with each series' own
+        conditional CDF given x_t. Needed for probability integral transforms
+        (:func:`smle.diagnose`); optional for estimation.
+        """
+        raise NotImplementedError(f"model '{self.name}' has no conditional CDF (obs_cdf)")
+
+    def period_data(self, data, t):
+        """The prepared data of period ``t`` alone, leading dimension 1 (``t`` may be traced).
+
+        The default slices every leaf of ``data`` along its first axis; models whose prepared
+        data hold leaves that are not indexed by time override this.
+        """
+        return jax.tree.map(lambda leaf: jax.lax.dynamic_slice_in_dim(leaf, t, 1, axis=0), data)

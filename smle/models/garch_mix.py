@@ -359,3 +359,28 @@ class GarchMix(Model):
             nig_log_density(residual, jnp.sqrt(shape + gamma**2) / scale, gamma / scale, -gamma * scale,
                             jnp.sqrt(shape) * scale)
         )
+
+    # -- goodness of fit -------------------------------------------------------------------------
+    def obs_cdf(self, params, data, x):
+        """CDF of the return given x_t (normal given W_t), and of the realized measure when enabled."""
+        from smle.distributions import normal_cdf  # here, not at the top: keeps this hook self-contained
+
+        gamma = params["gamma"]
+        log_c = 0.5 * jnp.log1p(gamma**2 * self.mixing_variance(params))
+        log_w = self.log_mixing(params, data, x)
+        scaled = (data.residual * jnp.exp(-0.5 * jnp.log(data.variance)))[:, None] * jnp.exp(log_c)
+        w = jnp.exp(log_w)
+        return_cdf = normal_cdf((scaled - gamma * (w - 1.0)) * jnp.exp(-0.5 * log_w))
+        if not self.realized:
+            return return_cdf
+        log_h = jnp.log(data.variance)[:, None]
+        measure_cdf = normal_cdf((data.log_measure[:, None] - params["xi"] - log_h - log_w) / params["sigma_u"])
+        return jnp.stack([return_cdf, measure_cdf], axis=-1)
+
+    def period_data(self, data, t):
+        """Period t's residual, variance and realized measure; the log W table is not indexed by time."""
+        def one(leaf):
+            return None if leaf is None else jax.lax.dynamic_slice_in_dim(leaf, t, 1, axis=0)
+
+        return data._replace(residual=one(data.residual), variance=one(data.variance),
+                             log_measure=one(data.log_measure))

@@ -125,3 +125,12 @@ class RealizedStochasticVolatility(LogVarianceState):
         mu = float(np.log(np.var(y[:, 0])))
         return {"mu": mu, "phi": 0.95, "sigma_eta": 0.2,
                 "xi": float(np.mean(log_measure) - mu), "sigma_u": float(0.5 * np.std(log_measure))}
+
+    def obs_cdf(self, params, data, x):
+        """CDFs of the return and of the realized measure given x_t, shape (T, S, 2)."""
+        from smle.distributions import normal_cdf  # here, not at the top: keeps this hook self-contained
+
+        returns, log_measure = data
+        return_cdf = normal_cdf(returns[:, None] * jnp.exp(-0.5 * x))
+        measure_cdf = normal_cdf((log_measure[:, None] - params["xi"] - x) / params["sigma_u"])
+        return jnp.stack([return_cdf, measure_cdf], axis=-1)

@@ -73,3 +73,8 @@ class StochasticVolatility(LogVarianceState):
     def start_params(self, y):
         y = np.asarray(y, float)
         return {"mu": float(np.log(np.var(y))), "phi": 0.95, "sigma_eta": 0.25}
+
+    def obs_cdf(self, params, data, x):
+        from smle.distributions import normal_cdf  # here, not at the top: keeps this hook self-contained
+
+        return normal_cdf(data[:, None] * jnp.exp(-0.5 * x))

@@ -63,3 +63,11 @@ class StudentTStochasticVolatility(LogVarianceState):
     def start_params(self, y):
         y = np.asarray(y, float)
         return {"mu": float(np.log(np.var(y))), "phi": 0.95, "sigma_eta": 0.2, "nu": 10.0}
+
+    def obs_cdf(self, params, data, x):
+        # P(T <= t) of a Student-t with nu degrees of freedom through the regularised incomplete
+        # beta function: the tail 0.5 I_{nu / (nu + t^2)}(nu / 2, 1 / 2) (Abramowitz and Stegun 26.7.1)
+        nu = params["nu"]
+        t = data[:, None] * jnp.exp(-0.5 * x) * jnp.sqrt(nu / (nu - 2.0))
+        tail = 0.5 * jax.scipy.special.betainc(0.5 * nu, 0.5, nu / (nu + t**2))
+        return jnp.where(t > 0, 1.0 - tail, tail)

@@ -1,0 +1,317 @@
+"""A particle filter guided by per-period Gaussian proposals: filtered factor, one-step
+predictive densities and probability integral transforms (PITs).
+
+For a model with latent Gaussian AR(1) state ``x_t`` (transition ``p(x_t | x_{t-1})``, start
+``N(init_mean, init_var)``) and observation density ``g_t(y_t | x_t)``, each period uses the
+proposal
+
+    q_t(x_t | x_{t-1})  proportional to  p(x_t | x_{t-1}) exp(b_t x_t - c_t x_t^2 / 2),
+
+a Gaussian with closed-form moments. The kernel ``(b_t, c_t)`` is a second-order expansion of
+``log g_t(y_t | x)`` about the mode of ``log g_t(y_t | x) + log N(x; init_mean, init_var)``
+(a few vectorised Newton steps, curvature clipped at a small positive value). It is built from
+``y_t`` alone, never from later observations, so the filter's output at ``t`` uses
+``y_1..y_t`` only. With ``chi_t(x_{t-1}) = integral p(x | x_{t-1}) exp(b_t x - c_t x^2/2) dx``
+(closed form) and ``W_{t-1}^i`` the normalised weights of the particles ``x_{t-1}^i``:
+
+    v_t^i     = W_{t-1}^i chi_t(x_{t-1}^i) / exp(b_t x_t^i - c_t (x_t^i)^2 / 2)
+    p(y_t | y_1..y_{t-1})  ~  sum_i v_t^i g_t(y_t | x_t^i)           (one-step predictive density)
+    W_t^i     = v_t^i g_t(y_t | x_t^i) / sum_j v_t^j g_t(y_t | x_t^j)
+
+and the sum of the log predictive densities estimates the log-likelihood (its exponential
+unbiasedly; Del Moral 2004, Feynman-Kac Formulae, ch. 7; Pitt and Shephard 1999, JASA 94, on
+guided proposals). The particles are resampled by systematic resampling (Kitagawa 1996, J.
+Comput. Graph. Statist. 5) when the effective sample size falls below ``resample_threshold``
+times the number of particles (1.0: every period), with the resampling uniform from the key.
+
+PIT of ``y_t`` under its one-step predictive law:
+``F(y_t | y_1..y_{t-1}) = integral p(x_t | y_1..y_{t-1}) F(y_t | x_t) dx_t``, with the model's
+conditional CDF ``F(y_t | x_t)`` (:meth:`smle.models.base.Model.obs_cdf`). It is estimated by
+``sum_i W_{t-1}^i F(y_t | x~_t^i)`` with ``x~_t^i`` drawn from the transition
+``p(x_t | x_{t-1}^i)`` (the same standard normal draws as the proposal, shifted and scaled). This
+is the predictive mixture itself, with no importance ratio: each term lies in [0, 1], so the
+estimate is a probability and its variance is at most ``1 / (4 ESS_{t-1})``, which the ratio
+form ``sum_i v_t^i F(y_t | x_t^i) / sum_i v_t^i`` (also correct) does not guarantee when the
+proposal moves away from the prediction (informative realized measures). Multi-series models
+give one PIT per series, each of its marginal one-step predictive law.
+
+Everything is pure JAX: ``lax.scan`` over time, arrays over particles, one compiled program per
+(model, number of particles, data shape).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import functools
+import math
+from typing import Callable, Mapping, NamedTuple
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+
+from smle.errors import SmleInputError
+from smle.likelihood import as_key, checked_inputs
+from smle.models import Model
+
+MIN_PARTICLES = 100
+NEWTON_STEPS = 8
+MIN_CURVATURE = 1e-8
+QUANTILES = (0.05, 0.95)
+
+
+class FilterOutput(NamedTuple):
+    """What the compiled filter returns (JAX arrays, leading dimension T).
+
+    Attributes:
+      filtered_mean: E[x_t | y_1..y_t], shape (T,).
+      filtered_quantiles: 5% and 95% quantiles of x_t given y_1..y_t, shape (2, T).
+      log_predictive: log p(y_t | y_1..y_{t-1}), shape (T,).
+      pit: PIT of each series under its one-step predictive law, shape (T, n_series)
+        (zeros when the model has no ``obs_cdf``).
+      ess: effective sample size of the weights after period t's observation, shape (T,).
+      resampled: whether the particles were resampled after period t, shape (T,).
+    """
+
+    filtered_mean: jax.Array
+    filtered_quantiles: jax.Array
+    log_predictive: jax.Array
+    pit: jax.Array
+    ess: jax.Array
+    resampled: jax.Array
+
+
+def has_obs_cdf(model: Model) -> bool:
+    """Whether the model supplies its conditional CDF (needed for PITs)."""
+    return type(model).obs_cdf is not Model.obs_cdf
+
+
+def proposal_kernels(model: Model, params: Mapping, data, n_steps: int = NEWTON_STEPS,
+                     min_curvature: float = MIN_CURVATURE):
+    """Per-period Gaussian kernels ``(b_t, c_t)``, shape (T,) each, from y_t alone.
+
+    Newton steps to the mode of ``log g_t(y_t | x) + log N(x; init_mean, init_var)`` (the
+    state's start law: the stationary law where there is one), each step bounded by two
+    standard deviations of that law and with the curvature of the sum floored at the prior's,
+    then ``c_t = max(-d^2 log g_t / dx^2, min_curvature)`` and ``b_t = d log g_t / dx + c_t x*``
+    at the mode ``x*``. The kernel is ``exp(b_t x - c_t x^2 / 2)``.
+    """
+    state = model.latent(params)
+    prior_mean, prior_var = state.init_mean, state.init_var
+    prior_sd = jnp.sqrt(prior_var)
+
+    def total_log_g(x):  # x: (T,); each period's term depends on its own x only
+        return jnp.sum(model.log_obs_density(params, data, x[:, None]))
+
+    def derivatives(x):
+        return jax.jvp(jax.grad(total_log_g), (x,), (jnp.ones_like(x),))
+
+    def newton(x, _):
+        first, second = derivatives(x)
+        gradient = first - (x - prior_mean) / prior_var
+        curvature = jnp.maximum(-second, 0.0) + 1.0 / prior_var
+        step = jnp.clip(gradient / curvature, -2.0 * prior_sd, 2.0 * prior_sd)
+        return x + step, None
+
+    start = jnp.asarray(model.mode_guess(params, data), float)
+    mode, _ = jax.lax.scan(newton, start, None, length=n_steps)
+    first, second = derivatives(mode)
+    c = jnp.maximum(-second, min_curvature)
+    b = first + c * mode
+    return b, c
+
+
+def systematic_ancestors(log_weights: jax.Array, uniform: jax.Array) -> jax.Array:
+    """Ancestor indices of systematic resampling, shape (N,), from normalised log weights.
+
+    The j-th stratum point ``(uniform + j) / N`` takes the first particle whose cumulative
+    weight exceeds it; counting by a scatter-add keeps the cost O(N).
+    """
+    n = log_weights.shape[0]
+    cdf = jnp.cumsum(jnp.exp(log_weights - jnp.max(log_weights)))
+    cdf = cdf / cdf[-1]
+    position = jnp.clip(jnp.ceil(n * cdf - uniform), 0, n).astype(jnp.int32)
+    marks = jnp.zeros((n + 1,), jnp.int32).at[position].add(1)
+    return jnp.minimum(jnp.cumsum(marks[:n]), n - 1)
+
+
+def _weighted_quantiles(x, weights, probabilities, n_bisections: int = 30):
+    """Weighted quantiles of particles ``x`` (N,) with normalised ``weights`` by bisection.
+
+    Bisection on the weighted empirical CDF between the smallest and largest particle: the
+    bracket shrinks to (max - min) / 2^30, far below the Monte Carlo error, and costs O(N)
+    per step, against a sort that took four times as long for 2000 particles on CPU.
+    """
+    probabilities = jnp.asarray(probabilities, x.dtype)
+    lower = jnp.full(probabilities.shape, jnp.min(x))
+    upper = jnp.full(probabilities.shape, jnp.max(x))
+
+    def bisect(_, bracket):
+        lower, upper = bracket
+        middle = 0.5 * (lower + upper)
+        below = (x[None, :] <= middle[:, None]).astype(x.dtype) @ weights
+        short = below < probabilities
+        return jnp.where(short, middle, lower), jnp.where(short, upper, middle)
+
+    _, upper = jax.lax.fori_loop(0, n_bisections, bisect, (lower, upper))
+    return upper
+
+
+def guided_filter(model: Model, params: Mapping, y, key, n_particles: int,
+                  resample_threshold=0.5) -> FilterOutput:
+    """Pure JAX guided particle filter (see the module docstring); ``params`` are JAX scalars."""
+    data = model.prepare(params, y)
+    state = model.latent(params)
+    b, c = proposal_kernels(model, params, data)
+    n_periods = b.shape[0]
+    with_cdf = has_obs_cdf(model)
+    n_series = model.n_series
+    keys = jax.random.split(key, (n_periods, 2))
+    log_n = math.log(n_particles)
+    threshold = resample_threshold * n_particles
+
+    def step(carry, inputs):
+        previous, log_w_previous = carry
+        t, b_t, c_t, period_keys = inputs
+        first = t == 0
+        prior_mean = jnp.where(first, state.init_mean, state.intercept + state.phi * previous)
+        prior_var = jnp.where(first, state.init_var, state.sigma_eta**2)
+        shrink = 1.0 + c_t * prior_var
+        shift = b_t - c_t * prior_mean
+        log_chi = b_t * prior_mean - 0.5 * c_t * prior_mean**2 - 0.5 * jnp.log(shrink) \
+            + 0.5 * shift**2 * prior_var / shrink
+        eta = jax.random.normal(period_keys[0], (n_particles,), dtype=prior_mean.dtype)
+        current = prior_mean + prior_var * shift / shrink + jnp.sqrt(prior_var / shrink) * eta
+        period = model.period_data(data, t)
+        log_g = model.log_obs_density(params, period, current[None, :])[0]
+        log_v = log_w_previous + log_chi - (b_t * current - 0.5 * c_t * current**2)
+        log_joint = log_v + log_g
+        log_predictive = jax.scipy.special.logsumexp(log_joint)
+        log_w = log_joint - log_predictive
+        weights = jnp.exp(log_w)
+        if with_cdf:
+            from_prior = prior_mean + jnp.sqrt(prior_var) * eta
+            cdf = model.obs_cdf(params, period, from_prior[None, :])[0].reshape(n_particles, n_series)
+            pit = jnp.exp(log_w_previous) @ cdf
+        else:
+            pit = jnp.zeros((n_series,), dtype=log_w.dtype)
+        mean = weights @ current
+        quantiles = _weighted_quantiles(current, weights, QUANTILES)
+        ess = 1.0 / jnp.sum(weights**2)
+        resample = ess < threshold
+        ancestors = systematic_ancestors(log_w, jax.random.uniform(period_keys[1], dtype=log_w.dtype))
+        particles = jnp.where(resample, current[ancestors], current)
+        log_w = jnp.where(resample, jnp.full_like(log_w, -log_n), log_w)
+        return (particles, log_w), (mean, quantiles, log_predictive, pit, ess, resample)
+
+    init = (jnp.zeros((n_particles,)), jnp.full((n_particles,), -log_n))
+    _, (mean, quantiles, log_predictive, pit, ess, resampled) = jax.lax.scan(
+        step, init, (jnp.arange(n_periods), b, c, keys))
+    return FilterOutput(mean, quantiles.T, log_predictive, pit, ess, resampled)
+
+
+@functools.lru_cache(maxsize=None)
+def compiled_filter(model: Model, n_particles: int) -> Callable:
+    """``(params, y, key, resample_threshold) -> FilterOutput``, compiled once per data shape."""
+
+    def run(params, y, key, resample_threshold):
+        return guided_filter(model, params, y, key, n_particles, resample_threshold)
+
+    return jax.jit(run)
+
+
+@dataclasses.dataclass(frozen=True)
+class FilterResult:
+    """Filtered factor and one-step predictive quantities (NumPy arrays, leading dimension T).
+
+    Attributes:
+      model: the model's registry name; factor_name: what the latent state is.
+      loglik: sum of the log one-step predictive densities (the filter's log-likelihood).
+      filtered_mean, filtered_lower, filtered_upper: mean and 5%/95% quantiles of x_t given
+        y_1..y_t.
+      log_predictive: log p(y_t | y_1..y_{t-1}) per period.
+      pit: PITs, shape (T, n_series), or None when the model has no conditional CDF.
+      ess: effective sample size after each period's observation; resample_count: periods
+        after which the particles were resampled.
+      n_particles, seed, resample_threshold: the settings used.
+    """
+
+    model: str
+    factor_name: str
+    loglik: float
+    filtered_mean: np.ndarray
+    filtered_lower: np.ndarray
+    filtered_upper: np.ndarray
+    log_predictive: np.ndarray
+    pit: np.ndarray | None
+    ess: np.ndarray
+    resample_count: int
+    n_particles: int
+    seed: int
+    resample_threshold: float
+
+
+def check_filter_settings(n_particles, resample_threshold) -> tuple[int, float]:
+    """Validate the filter's settings; return them as (int, float)."""
+    if isinstance(n_particles, bool) or not isinstance(n_particles, (int, np.integer)) or n_particles < MIN_PARTICLES:
+        raise SmleInputError(
+            f"n_particles = {n_particles!r} is not accepted; accepted: an integer >= {MIN_PARTICLES} "
+            "(2000 is a good default)"
+        )
+    if isinstance(resample_threshold, bool) or not isinstance(resample_threshold, (int, float)) \
+            or not 0.0 < resample_threshold <= 1.0:
+        raise SmleInputError(
+            f"resample_threshold = {resample_threshold!r} is not accepted; accepted: a number in (0, 1] "
+            "(resample when ESS < threshold x particles; 1 resamples every period)"
+        )
+    return int(n_particles), float(resample_threshold)
+
+
+def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000, seed=0,
+                  resample_threshold: float = 0.5) -> FilterResult:
+    """Filter the latent factor of ``model`` at ``params`` with a guided particle filter.
+
+    Args:
+      model: a registered model name or a model instance.
+      params: parameter values by name (natural parameterisation), e.g. a fit's ``params``.
+      y: observations, shape (T,) or (T, n_series).
+      n_particles: number of particles (at least 100).
+      seed: non-negative integer or JAX PRNG key (the draws and resampling uniforms derive from it).
+      resample_threshold: resample when the ESS falls below this fraction of the particles.
+
+    Returns:
+      A :class:`FilterResult`.
+
+    References:
+      Pitt and Shephard (1999), JASA 94 (guided and auxiliary particle filters); Kitagawa (1996),
+      J. Comput. Graph. Statist. 5 (systematic resampling); Diebold, Gunther and Tay (1998),
+      International Economic Review 39 (PITs of one-step predictive densities).
+    """
+    model, checked, y = checked_inputs(model, params, y)
+    n_particles, resample_threshold = check_filter_settings(n_particles, resample_threshold)
+    key = as_key(seed)
+    params_jax = {k: jnp.asarray(v, float) for k, v in checked.items()}
+    out = compiled_filter(model, n_particles)(params_jax, jnp.asarray(y), key, resample_threshold)
+    log_predictive = np.asarray(out.log_predictive)
+    if not np.all(np.isfinite(log_predictive)):
+        bad = np.flatnonzero(~np.isfinite(log_predictive))
+        raise FloatingPointError(
+            f"the particle filter of model '{model.name}' lost all weight at period(s) "
+            f"{', '.join(str(int(i)) for i in bad[:10])}; check the data scale and the parameters"
+        )
+    quantiles = np.asarray(out.filtered_quantiles)
+    return FilterResult(
+        model=model.name,
+        factor_name=model.factor_name,
+        loglik=float(log_predictive.sum()),
+        filtered_mean=np.asarray(out.filtered_mean),
+        filtered_lower=quantiles[0],
+        filtered_upper=quantiles[1],
+        log_predictive=log_predictive,
+        pit=np.asarray(out.pit) if has_obs_cdf(model) else None,
+        ess=np.asarray(out.ess),
+        resample_count=int(np.sum(np.asarray(out.resampled))),
+        n_particles=n_particles,
+        seed=seed if isinstance(seed, int) else -1,
+        resample_threshold=resample_threshold,
+    )

@@ -1,0 +1,455 @@
+"""Goodness of fit after a fit: PITs, normal scores, residual tests and a report.
+
+:func:`diagnose` runs the guided particle filter (:mod:`smle.filtering`) at a fit's estimates,
+turns each observation into its probability integral transform (PIT) under the one-step
+predictive law and into a normal score ``z_t = Phi^{-1}(PIT_t)``, and tests what a correct
+model implies: the PITs are i.i.d. uniform, so the scores are i.i.d. N(0, 1) (Rosenblatt 1952,
+Ann. Math. Statist. 23; Diebold, Gunther and Tay 1998, International Economic Review 39).
+
+The tests (each a :class:`TestResult`; p-values below 5% are flagged as remaining effects, which
+is common practice, not a property of the tests):
+
+* Ljung-Box Q of the scores and of the squared scores at chosen lags (Ljung and Box 1978,
+  Biometrika 65), chi-squared with as many degrees of freedom as lags;
+* the ARCH Lagrange-multiplier test (Engle 1982, Econometrica 50): T' R^2 of the regression of
+  z_t^2 on a constant and q of its lags, chi-squared(q);
+* the Durbin-Watson statistic of the scores (Durbin and Watson 1950, Biometrika 37), near 2
+  without first-order autocorrelation (a statistic without a p-value here);
+* Kolmogorov-Smirnov test of uniformity of the PITs (scipy.stats.kstest);
+* the Berkowitz (2001, J. Business & Economic Statistics 19, 465-474) likelihood-ratio test: the
+  exact Gaussian AR(1) likelihood of the scores maximised over (mean, variance, AR coefficient)
+  against (0, 1, 0), chi-squared(3);
+* the Jarque-Bera test of normality of the scores (Jarque and Bera 1987, International Statistical
+  Review 55): skewness and excess kurtosis, chi-squared(2) (scipy.stats.jarque_bera);
+* a tail test in the manner of Berkowitz's censored test, here on both tails: scores inside
+  (Phi^{-1}(p), Phi^{-1}(1 - p)) are censored (only their count enters), the tails keep their
+  normal density, and the LR of (mean, variance) against (0, 1) is chi-squared(2). It reacts to
+  tails heavier or lighter than the model's (our two-sided variant of Berkowitz's section 3);
+* on the latent factor: Ljung-Box of the standardised AR(1) innovations
+  ``(x_t - mu - phi (x_{t-1} - mu)) / sigma_eta`` of one path drawn from the smoothing
+  distribution (importance resampling of the EIS scoring paths at the estimates), and of their
+  squares, and their Durbin-Watson statistic. Under a correct model a path drawn from the
+  posterior has the law of the true path, so its innovations are i.i.d. N(0, 1) (the idea of
+  realized discrepancies, Gelman, Meng and Stern 1996, Statistica Sinica 6); the innovations of
+  the smoothed *mean* are not (smoothing correlates them), so they are not tested.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+from pathlib import Path
+from typing import Callable, Sequence
+
+import numpy as np
+from scipy import optimize, stats
+from scipy.special import ndtri
+
+from smle.errors import SmleInputError, describe
+from smle.filtering import FilterResult, check_filter_settings, filter_factor, has_obs_cdf
+from smle.likelihood import check_observations
+from smle.models import get_model
+from smle.results import CAUTION, FitResult
+
+SIGNIFICANCE = 0.05  # common practice
+PIT_CLIP = 1e-15
+
+
+# ---------------------------------------------------------------------------------------------
+# Transforms and statistics (NumPy and SciPy; each equals its textbook formula)
+
+
+def normal_scores(pit) -> np.ndarray:
+    """``Phi^{-1}(PIT)``, with the PITs clipped to [1e-15, 1 - 1e-15] so that scores are finite."""
+    pit = np.asarray(pit, dtype=float)
+    return ndtri(np.clip(pit, PIT_CLIP, 1.0 - PIT_CLIP))
+
+
+def _series(x, name: str, min_length: int) -> np.ndarray:
+    array = np.asarray(x, dtype=float)
+    if array.ndim != 1 or array.shape[0] < min_length or not np.all(np.isfinite(array)):
+        raise SmleInputError(
+            f"{name} has shape {array.shape}{'' if np.all(np.isfinite(array)) else ' with non-finite values'}; "
+            f"accepted: a one-dimensional finite series of at least {min_length} values"
+        )
+    return array
+
+
+def _lags(lags, n: int) -> np.ndarray:
+    values = np.atleast_1d(np.asarray(lags))
+    if values.size == 0 or not np.issubdtype(values.dtype, np.integer) or np.any(values < 1) or np.any(values >= n):
+        raise SmleInputError(f"lags = {describe(lags)} is not accepted; accepted: positive integers below {n}")
+    return values.astype(int)
+
+
+def autocorrelations(x, max_lag: int) -> np.ndarray:
+    """Sample autocorrelations r_1..r_max_lag (demeaned, divided by the lag-0 sum over all T)."""
+    x = np.asarray(x, float) - np.mean(x)
+    denominator = x @ x
+    return np.array([x[k:] @ x[:-k] / denominator for k in range(1, max_lag + 1)])
+
+
+def ljung_box(x, lags: Sequence[int] = (5, 10, 20)) -> tuple[np.ndarray, np.ndarray]:
+    """Ljung-Box Q = T (T + 2) sum_{k<=h} r_k^2 / (T - k) and its chi-squared(h) p-value per lag h.
+
+    References: Ljung and Box (1978), Biometrika 65, 297-303.
+    """
+    x = _series(x, "x", 3)
+    lags = _lags(lags, x.shape[0])
+    n = x.shape[0]
+    r = autocorrelations(x, int(lags.max()))
+    terms = r**2 / (n - np.arange(1, lags.max() + 1))
+    q = n * (n + 2) * np.cumsum(terms)[lags - 1]
+    return q, stats.chi2.sf(q, lags)
+
+
+def arch_lm(x, lags: int = 5) -> tuple[float, float]:
+    """Engle's ARCH LM statistic ``(T - q) R^2`` of x_t^2 on a constant and q lags, and its p-value.
+
+    References: Engle (1982), Econometrica 50, 987-1007.
+    """
+    x = _series(x, "x", 3)
+    q = int(_lags(lags, x.shape[0] - 1)[0])
+    squares = x**2
+    target = squares[q:]
+    design = np.column_stack([np.ones(target.shape[0])] + [squares[q - k:-k] for k in range(1, q + 1)])
+    coefficients, *_ = np.linalg.lstsq(design, target, rcond=None)
+    residual = target - design @ coefficients
+    centred = target - target.mean()
+    r_squared = 1.0 - (residual @ residual) / (centred @ centred)
+    statistic = target.shape[0] * r_squared
+    return float(statistic), float(stats.chi2.sf(statistic, q))
+
+
+def durbin_watson(x) -> float:
+    """Durbin-Watson statistic ``sum (x_t - x_{t-1})^2 / sum x_t^2`` (Durbin and Watson 1950)."""
+    x = _series(x, "x", 2)
+    difference = np.diff(x)
+    return float(difference @ difference / (x @ x))
+
+
+def _ar1_exact_loglik(z, mean, variance, rho):
+    """Exact Gaussian AR(1) log-likelihood with a stationary first observation."""
+    innovation_var = variance * (1.0 - rho**2)
+    first = -0.5 * (math.log(2 * math.pi * variance) + (z[0] - mean) ** 2 / variance)
+    e = (z[1:] - mean) - rho * (z[:-1] - mean)
+    rest = -0.5 * (e.shape[0] * math.log(2 * math.pi * innovation_var) + (e @ e) / innovation_var)
+    return first + rest
+
+
+def berkowitz_test(scores) -> dict:
+    """Berkowitz's LR test of i.i.d. N(0, 1) scores against a Gaussian AR(1) with free moments.
+
+    ``LR = -2 (L(0, 1, 0) - L(mu_hat, var_hat, rho_hat))`` with L the exact AR(1) log-likelihood
+    (stationary first observation), maximised numerically from the least-squares start;
+    chi-squared(3) under the null.
+
+    Returns:
+      dict with statistic, p_value, mean, variance (of the stationary law) and rho.
+
+    References: Berkowitz (2001), J. Business & Economic Statistics 19, 465-474.
+    """
+    z = _series(scores, "scores", 10)
+    y, lagged = z[1:], z[:-1]
+    rho0 = float(np.clip(np.corrcoef(y, lagged)[0, 1], -0.95, 0.95))
+    start = np.array([z.mean(), math.log(z.var()), math.atanh(rho0)])
+
+    def negative(theta):
+        return -_ar1_exact_loglik(z, theta[0], math.exp(theta[1]), math.tanh(theta[2]))
+
+    best = optimize.minimize(negative, start, method="BFGS", options={"gtol": 1e-9})
+    best = optimize.minimize(negative, best.x, method="Nelder-Mead",
+                             options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 4000})
+    null = _ar1_exact_loglik(z, 0.0, 1.0, 0.0)
+    statistic = max(0.0, 2.0 * (-best.fun - null))
+    return dict(statistic=statistic, p_value=float(stats.chi2.sf(statistic, 3)), mean=float(best.x[0]),
+                variance=float(math.exp(best.x[1])), rho=float(math.tanh(best.x[2])))
+
+
+def tail_test(scores, tail_probability: float = 0.01) -> dict:
+    """Two-tailed censored LR test of the scores' tails against N(0, 1), chi-squared(2).
+
+    Scores inside ``(Phi^{-1}(p), Phi^{-1}(1 - p))`` are censored; the likelihood of N(mu, s^2)
+    is the normal density of the tail scores times the probability of the middle for each
+    censored one; the LR compares its maximum with (0, 1). Our two-sided variant of the censored
+    test of Berkowitz (2001, section 3), which censors one side.
+    """
+    z = _series(scores, "scores", 10)
+    if not (isinstance(tail_probability, float) and 0.0 < tail_probability < 0.5):
+        raise SmleInputError(f"tail_probability = {tail_probability!r} is not accepted; accepted: a number in (0, 0.5)")
+    low, high = ndtri(tail_probability), ndtri(1.0 - tail_probability)
+    tails = z[(z <= low) | (z >= high)]
+    n_middle = z.shape[0] - tails.shape[0]
+
+    def loglik(mean, sd):
+        middle = stats.norm.cdf((high - mean) / sd) - stats.norm.cdf((low - mean) / sd)
+        return np.sum(stats.norm.logpdf(tails, mean, sd)) + n_middle * math.log(max(middle, 1e-300))
+
+    best = optimize.minimize(lambda th: -loglik(th[0], math.exp(th[1])), np.array([0.0, 0.0]),
+                             method="Nelder-Mead", options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 4000})
+    statistic = max(0.0, 2.0 * (-best.fun - loglik(0.0, 1.0)))
+    return dict(statistic=statistic, p_value=float(stats.chi2.sf(statistic, 2)), n_tail=int(tails.shape[0]),
+                expected_tail=2.0 * tail_probability * z.shape[0], mean=float(best.x[0]),
+                sd=float(math.exp(best.x[1])))
+
+
+# ---------------------------------------------------------------------------------------------
+# The report
+
+
+@dataclasses.dataclass(frozen=True)
+class TestResult:
+    """One test: what it is applied to, its statistic, degrees of freedom and p-value.
+
+    ``p_value`` is None for a statistic without one (Durbin-Watson); ``flagged`` is p < 5%.
+    """
+
+    test: str
+    subject: str
+    statistic: float
+    df: int | None
+    p_value: float | None
+
+    @property
+    def flagged(self) -> bool:
+        return self.p_value is not None and self.p_value < SIGNIFICANCE
+
+
+@dataclasses.dataclass
+class Diagnostics:
+    """Goodness of fit of a fitted model.
+
+    Attributes:
+      model: the model name; series: a label per observed series.
+      filter: the :class:`~smle.filtering.FilterResult` at the estimates.
+      pit, scores: PITs and normal scores, shape (T, n_series).
+      factor_path: one path of the factor drawn from the smoothing distribution, shape (T,);
+      factor_innovations: its standardised AR(1) innovations, shape (T - 1,).
+      smoothed_mean, smoothed_lower, smoothed_upper: the fit's smoothed factor (for figures).
+      tests: the :class:`TestResult` list; fit_loglik, fit_nse: the EIS log-likelihood and NSE.
+    """
+
+    model: str
+    series: list
+    filter: FilterResult
+    pit: np.ndarray
+    scores: np.ndarray
+    factor_innovations: np.ndarray
+    factor_path: np.ndarray
+    smoothed_mean: np.ndarray
+    smoothed_lower: np.ndarray
+    smoothed_upper: np.ndarray
+    tests: list
+    fit_loglik: float
+    fit_nse: float
+
+    @property
+    def flagged(self) -> list:
+        """The tests with p < 5% (remaining effects)."""
+        return [t for t in self.tests if t.flagged]
+
+    def summary(self) -> str:
+        """Plain text in smle's own layout; flagged rows are marked ``<< p < 0.05``."""
+        width = 78
+        rule = "=" * width
+        f = self.filter
+        lines = [
+            f"goodness of fit  *  model {self.model}  *  {f.filtered_mean.shape[0]} periods",
+            rule,
+            f"guided particle filter: {f.n_particles} particles, seed {f.seed}, resampled after "
+            f"{f.resample_count} periods, lowest ESS {f.ess.min():.0f}",
+            f"  filter log-likelihood {f.loglik:.3f}   EIS log-likelihood {self.fit_loglik:.3f} (NSE {self.fit_nse:.3f})",
+            "",
+            f"  {'applied to':<28}{'test':<22}{'statistic':>11}{'df':>5}{'p-value':>10}",
+        ]
+        for t in self.tests:
+            p = "" if t.p_value is None else f"{t.p_value:.4f}"
+            df = "" if t.df is None else str(t.df)
+            mark = "  << p < 0.05" if t.flagged else ""
+            lines.append(f"  {t.subject:<28}{t.test:<22}{t.statistic:>11.3f}{df:>5}{p:>10}{mark}")
+        flagged = self.flagged
+        lines += ["", (f"{len(flagged)} of {sum(t.p_value is not None for t in self.tests)} "
+                       "tests flag remaining effects at 5%"
+                       + (": " + "; ".join(f"{t.test} of {t.subject}" for t in flagged) if flagged else ""))]
+        lines += [
+            "Under a correct model the PITs are i.i.d. uniform, the scores and the innovations of a factor path",
+            "drawn from the smoothing distribution i.i.d. N(0, 1): about 1 test in 20 flags by chance.",
+            "Durbin-Watson near 2 means no first-order autocorrelation.",
+            rule,
+            CAUTION,
+        ]
+        return "\n".join(lines)
+
+    def __str__(self) -> str:
+        return self.summary()
+
+    def to_dict(self) -> dict:
+        """JSON-ready contents: tests and per-period arrays."""
+        return {
+            "format": "smle.diagnostics/1",
+            "model": self.model,
+            "series": list(self.series),
+            "n_particles": self.filter.n_particles,
+            "seed": self.filter.seed,
+            "filter_loglik": self.filter.loglik,
+            "fit_loglik": self.fit_loglik,
+            "fit_nse": self.fit_nse,
+            "tests": [dict(dataclasses.asdict(t), flagged=t.flagged) for t in self.tests],
+            "pit": self.pit.tolist(),
+            "filtered_mean": self.filter.filtered_mean.tolist(),
+            "filtered_lower": self.filter.filtered_lower.tolist(),
+            "filtered_upper": self.filter.filtered_upper.tolist(),
+            "log_predictive": self.filter.log_predictive.tolist(),
+            "caution": CAUTION,
+        }
+
+    def write(self, folder) -> list[Path]:
+        """Text, JSON and the four figures into ``folder``; returns the paths written."""
+        from smle import plots
+
+        folder = Path(folder)
+        folder.mkdir(parents=True, exist_ok=True)
+        written = [folder / "diagnostics.txt", folder / "diagnostics.json"]
+        written[0].write_text(self.summary() + "\n")
+        written[1].write_text(json.dumps(self.to_dict(), indent=1))
+        written += plots.diagnostics_figures(self, folder)
+        return written
+
+
+def _fitted_model(result: FitResult):
+    """The model instance of a fit (results written before options were filtered carry the
+    model's class attributes among ``model_options``; only constructor fields are passed)."""
+    model_class = type(get_model(result.model))
+    fields = {f.name for f in dataclasses.fields(model_class)}
+    return get_model(result.model, **{k: v for k, v in (result.model_options or {}).items() if k in fields})
+
+
+def _check_fit_result(result) -> FitResult:
+    if not isinstance(result, FitResult):
+        raise SmleInputError(
+            f"fit_result must be an smle.FitResult (from smle.fit or FitResult.from_json); got {describe(result)}"
+        )
+    return result
+
+
+def diagnose(
+    fit_result: FitResult,
+    y=None,
+    n_particles: int = 2000,
+    seed: int = 0,
+    lags: Sequence[int] = (5, 10, 20),
+    arch_lags: int = 5,
+    tail_probability: float = 0.01,
+    progress: Callable[[str], None] | None = None,
+) -> Diagnostics:
+    """Goodness of fit of a fitted model: filter, PITs, normal scores and residual tests.
+
+    Args:
+      fit_result: a :class:`~smle.results.FitResult`.
+      y: the observations the model was fitted to (default: ``fit_result.observations``).
+      n_particles, seed: settings of the guided particle filter (:func:`smle.filter_factor`).
+      lags: Ljung-Box lags; arch_lags: lags of the ARCH-LM regression.
+      tail_probability: probability of each tail in the censored tail test.
+      progress: optional callback receiving short progress messages.
+
+    Returns:
+      A :class:`Diagnostics` report.
+
+    References: Diebold, Gunther and Tay (1998), International Economic Review 39; Berkowitz
+    (2001), J. Business & Economic Statistics 19; Ljung and Box (1978); Engle (1982).
+    """
+    result = _check_fit_result(fit_result)
+    model = _fitted_model(result)
+    if y is None:
+        y = result.observations
+        if y is None:
+            raise SmleInputError(
+                "y = None and the fit result stores no observations; pass the observations the model was fitted to"
+            )
+    y = check_observations(model, y)
+    if y.shape[0] != result.n_obs:
+        raise SmleInputError(
+            f"y has {y.shape[0]} periods but the fit of model '{result.model}' used {result.n_obs}; "
+            "accepted: the observations the model was fitted to"
+        )
+    if not has_obs_cdf(model):
+        raise SmleInputError(f"model '{model.name}' has no conditional CDF (obs_cdf), so no PITs can be formed")
+    check_filter_settings(n_particles, 0.5)
+    lags = _lags(lags, y.shape[0])
+    _lags(arch_lags, y.shape[0] - 1)
+    if progress:
+        progress(f"filtering {y.shape[0]} periods with {n_particles} particles (the first call compiles)")
+    filtered = filter_factor(model, result.params, y, n_particles=n_particles, seed=seed)
+    pit = filtered.pit
+    scores = normal_scores(pit)
+    series = ["return"] if model.n_series == 1 else ["return", "realized measure"]
+    if model.n_series == 1 and model.name in ("ar1-noise", "local-level"):
+        series = ["observation"]
+    if progress:
+        progress("residual tests")
+    tests = []
+    for k, label in enumerate(series):
+        z = scores[:, k]
+        q, p = ljung_box(z, lags)
+        tests += [TestResult("Ljung-Box", f"{label} scores", float(qi), int(h), float(pi))
+                  for qi, pi, h in zip(q, p, lags)]
+        q, p = ljung_box(z**2, lags)
+        tests += [TestResult("Ljung-Box", f"{label} squared scores", float(qi), int(h), float(pi))
+                  for qi, pi, h in zip(q, p, lags)]
+        lm, p_lm = arch_lm(z, arch_lags)
+        tests.append(TestResult("ARCH-LM", f"{label} scores", lm, int(arch_lags), p_lm))
+        tests.append(TestResult("Durbin-Watson", f"{label} scores", durbin_watson(z), None, None))
+        ks = stats.kstest(pit[:, k], "uniform")
+        tests.append(TestResult("Kolmogorov-Smirnov", f"{label} PITs", float(ks.statistic), None, float(ks.pvalue)))
+        b = berkowitz_test(z)
+        tests.append(TestResult("Berkowitz LR", f"{label} scores", b["statistic"], 3, b["p_value"]))
+        jb = stats.jarque_bera(z)
+        tests.append(TestResult("Jarque-Bera", f"{label} scores", float(jb.statistic), 2, float(jb.pvalue)))
+        tail = tail_test(z, tail_probability)
+        tests.append(TestResult(f"tails LR ({tail_probability:.0%} each)", f"{label} scores",
+                                tail["statistic"], 2, tail["p_value"]))
+    if progress:
+        progress("drawing a factor path from the smoothing distribution (EIS at the estimates)")
+    path = posterior_path(model, result, y, seed)
+    innovations = factor_innovations(model, result.params, path)
+    q, p = ljung_box(innovations, lags)
+    tests += [TestResult("Ljung-Box", "factor innovations", float(qi), int(h), float(pi))
+              for qi, pi, h in zip(q, p, lags)]
+    q, p = ljung_box(innovations**2, lags)
+    tests += [TestResult("Ljung-Box", "squared factor innovations", float(qi), int(h), float(pi))
+              for qi, pi, h in zip(q, p, lags)]
+    tests.append(TestResult("Durbin-Watson", "factor innovations", durbin_watson(innovations), None, None))
+    return Diagnostics(
+        model=model.name, series=series, filter=filtered, pit=pit, scores=scores,
+        factor_innovations=innovations, factor_path=path,
+        smoothed_mean=np.asarray(result.smoothed_mean), smoothed_lower=np.asarray(result.smoothed_lower),
+        smoothed_upper=np.asarray(result.smoothed_upper), tests=tests, fit_loglik=result.loglik,
+        fit_nse=result.nse,
+    )
+
+
+def posterior_path(model, result: FitResult, y, seed) -> np.ndarray:
+    """One path of the factor drawn from its smoothing distribution at the fit's estimates.
+
+    The EIS scoring paths of :func:`smle.loglik` with the fit's estimator settings, one of them
+    chosen with probability proportional to its importance weight (sampling importance
+    resampling; Rubin 1988, Bayesian Statistics 3), the choice seeded by ``seed``.
+    """
+    from smle.likelihood import loglik
+
+    eis = result.eis
+    lik = loglik(model, result.params, y, n_draws=int(eis["n_draws"]), seed=int(eis["seed"]),
+                 antithetic=bool(eis["antithetic"]), tol=float(eis.get("tol", 1e-8)), max_iter=100)
+    weights = np.exp(lik.log_weights - lik.log_weights.max())
+    index = np.random.default_rng(seed).choice(weights.shape[0], p=weights / weights.sum())
+    return np.asarray(lik.paths[:, index], float)
+
+
+def factor_innovations(model, params, path) -> np.ndarray:
+    """Standardised AR(1) innovations of a factor path, ``(x_t - a - phi x_{t-1}) / sigma_eta``."""
+    import jax.numpy as jnp
+
+    state = model.latent({k: jnp.asarray(v, float) for k, v in params.items()})
+    x = np.asarray(path, float)
+    return (x[1:] - float(state.intercept) - float(state.phi) * x[:-1]) / float(state.sigma_eta)
