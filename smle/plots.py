@@ -4,18 +4,21 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import matplotlib
+import numpy as np
+from matplotlib.figure import Figure
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
+
+def _subplots(*args, figsize, **kwargs):
+    """A figure and its axes without pyplot, so that drawing here leaves a notebook's backend alone."""
+    figure = Figure(figsize=figsize)
+    return figure, figure.subplots(*args, **kwargs)
 
 
 def data_and_factor(result, y, label: str, path) -> Path:
     """Two panels: the data, and the smoothed latent factor with its 90% band."""
     y = np.asarray(y)
     t = np.arange(len(result.smoothed_mean))
-    figure, (top, bottom) = plt.subplots(2, 1, figsize=(10, 6), sharex=True)
+    figure, (top, bottom) = _subplots(2, 1, figsize=(10, 6), sharex=True)
     top.plot(t, y if y.ndim == 1 else y[:, 0], lw=0.6, color="#33506e")
     top.set_ylabel(label)
     top.set_title(f"Data and smoothed {result.factor_name} ({result.model}, {result.n_obs} periods)")
@@ -27,14 +30,13 @@ def data_and_factor(result, y, label: str, path) -> Path:
     bottom.legend(loc="upper right", fontsize=8)
     figure.tight_layout()
     figure.savefig(path, dpi=110)
-    plt.close(figure)
     return Path(path)
 
 
 def log_weights(result, path) -> Path:
     """Sorted log importance weights at the estimate, relative to their maximum."""
     w = np.sort(np.asarray(result.log_weights) - np.max(result.log_weights))[::-1]
-    figure, axis = plt.subplots(figsize=(7, 4))
+    figure, axis = _subplots(figsize=(7, 4))
     axis.plot(np.arange(1, len(w) + 1), w, marker="o", ms=3, lw=0.8, color="#33506e")
     axis.set_xlabel("rank of draw (largest weight first)")
     axis.set_ylabel("log weight minus largest log weight")
@@ -42,7 +44,6 @@ def log_weights(result, path) -> Path:
     axis.grid(alpha=0.3)
     figure.tight_layout()
     figure.savefig(path, dpi=110)
-    plt.close(figure)
     return Path(path)
 
 
@@ -69,7 +70,7 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     paths = []
 
     # Q-Q plot, with a pointwise 95% band from the order statistics of a normal sample
-    figure, axes = plt.subplots(1, n_series, figsize=(5.2 * n_series, 4.6), squeeze=False)
+    figure, axes = _subplots(1, n_series, figsize=(5.2 * n_series, 4.6), squeeze=False)
     probabilities = (np.arange(1, n + 1) - 0.5) / n
     theoretical = stats.norm.ppf(probabilities)
     ranks = np.arange(1, n + 1)
@@ -87,11 +88,10 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     figure.tight_layout()
     paths.append(folder / "qq_scores.png")
     figure.savefig(paths[-1], dpi=110)
-    plt.close(figure)
 
     # PIT histogram: 20 bins; band from the binomial count of a bin under uniform PITs
     bins = 20
-    figure, axes = plt.subplots(1, n_series, figsize=(5.2 * n_series, 4.2), squeeze=False)
+    figure, axes = _subplots(1, n_series, figsize=(5.2 * n_series, 4.2), squeeze=False)
     low, high = stats.binom.ppf([0.025, 0.975], n, 1.0 / bins) * bins / n
     for k, axis in enumerate(axes[0]):
         axis.hist(d.pit[:, k], bins=bins, range=(0, 1), density=True, color=colours[k], alpha=0.75,
@@ -105,7 +105,6 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     figure.tight_layout()
     paths.append(folder / "pit_histogram.png")
     figure.savefig(paths[-1], dpi=110)
-    plt.close(figure)
 
     # autocorrelation of scores and squared scores
     from smle.gof import autocorrelations
@@ -113,7 +112,7 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     max_lag = int(min(30, n // 4))
     lags = np.arange(1, max_lag + 1)
     band = _band_normal(n)
-    figure, axes = plt.subplots(n_series, 2, figsize=(10, 3.4 * n_series), squeeze=False)
+    figure, axes = _subplots(n_series, 2, figsize=(10, 3.4 * n_series), squeeze=False)
     for k in range(n_series):
         for j, (values, what) in enumerate(((d.scores[:, k], "normal scores"), (d.scores[:, k] ** 2, "squared scores"))):
             axis = axes[k, j]
@@ -127,12 +126,11 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     figure.tight_layout()
     paths.append(folder / "autocorrelation_scores.png")
     figure.savefig(paths[-1], dpi=110)
-    plt.close(figure)
 
     # factor paths: filtered (data up to t) and smoothed (all data)
     f = d.filter
     t = np.arange(1, n + 1)
-    figure, axis = plt.subplots(figsize=(10, 4.2))
+    figure, axis = _subplots(figsize=(10, 4.2))
     axis.fill_between(t, f.filtered_lower, f.filtered_upper, color="#9fb8d0", alpha=0.5, label="filtered 5%-95%")
     axis.plot(t, f.filtered_mean, color="#33506e", lw=0.8, label="filtered mean (data up to t)")
     axis.plot(t, d.smoothed_mean, color="#8c3b1e", lw=0.8, label="smoothed mean (all data)")
@@ -144,5 +142,4 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     figure.tight_layout()
     paths.append(folder / "factor_filtered_smoothed.png")
     figure.savefig(paths[-1], dpi=110)
-    plt.close(figure)
     return paths
