@@ -173,6 +173,15 @@ def _command_prepare(args) -> int:
     return 0
 
 
+def add_column_options(parser, which: str = "") -> None:
+    """``--column``, ``--prices`` and ``--drop-missing``: how a CSV column becomes returns (see _read_series)."""
+    parser.add_argument("--column", help=f"column {which}to use (default: the last numeric column)")
+    parser.add_argument("--prices", action="store_true",
+                        help=f"the column {which}holds prices: convert to percent log returns")
+    parser.add_argument("--drop-missing", action="store_true",
+                        help=f"drop rows {which}with a missing value instead of failing")
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="smle",
@@ -193,9 +202,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     fit = commands.add_parser("fit", help="estimate a model on a CSV column of returns or prices")
     fit.add_argument("data", help="CSV file")
-    fit.add_argument("--column", help="column to use (default: the last numeric column)")
-    fit.add_argument("--prices", action="store_true", help="the column holds prices: convert to percent log returns")
-    fit.add_argument("--drop-missing", action="store_true", help="drop rows with a missing value instead of failing")
+    add_column_options(fit)
     fit.add_argument("--report", help="folder for the report (result.json, summary, figures)")
     estimation_options(fit)
     fit.set_defaults(handler=_command_fit)
@@ -223,9 +230,7 @@ def build_parser() -> argparse.ArgumentParser:
     diagnose = commands.add_parser("diagnose", help="goodness of fit of a saved fit (PITs, residual tests, figures)")
     diagnose.add_argument("result", help="result.json written by 'smle fit --report' (or FitResult.to_json)")
     diagnose.add_argument("--data", help="CSV of the observations (default: those stored in the result)")
-    diagnose.add_argument("--column", help="column of --data to use (default: the last numeric column)")
-    diagnose.add_argument("--prices", action="store_true", help="the --data column holds prices (percent log returns)")
-    diagnose.add_argument("--drop-missing", action="store_true", help="drop rows of --data with a missing value")
+    add_column_options(diagnose, "of --data ")
     diagnose.add_argument("--particles", type=int, default=2000, help="particles of the filter (default 2000)")
     diagnose.add_argument("--seed", type=int, default=0, help="seed of the filter (default 0)")
     diagnose.add_argument("--report", help="folder for diagnostics.txt, diagnostics.json and the figures")

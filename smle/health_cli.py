@@ -89,6 +89,8 @@ def add_check_command(commands) -> None:
     """Register ``smle check`` on the ``smle`` sub-command parser."""
     import argparse
 
+    from smle.cli import add_column_options
+
     check = commands.add_parser(
         "check", help="health check of the simulated likelihood at given parameters (noise, weight tail, NSE)",
         description="How noisy is the EIS log-likelihood at these parameters, and is the variance of its "
@@ -99,9 +101,7 @@ def add_check_command(commands) -> None:
     check.add_argument("--model", default="sv", help="registered model name with --params (default sv)")
     check.add_argument("--params", help="parameter values, e.g. mu=-7.36,phi=0.95,sigma_eta=0.26")
     check.add_argument("--from-fit", help="take the model and parameters from a saved fit (result.json of smle fit)")
-    check.add_argument("--column", help="column to use (default: the last numeric column)")
-    check.add_argument("--prices", action="store_true", help="the column holds prices: convert to percent log returns")
-    check.add_argument("--drop-missing", action="store_true", help="drop rows with a missing value instead of failing")
+    add_column_options(check)
     check.add_argument("--draws", type=int, default=64, help="EIS draws of the runs being checked (default 64)")
     check.add_argument("--seeds", type=int, default=20, help="independent seeds for the spread (default 20, least 3)")
     check.add_argument("--seed", type=int, default=0, help="base seed: runs use seed, seed+1, ... (default 0)")
