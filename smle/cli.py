@@ -110,15 +110,20 @@ def _command_fit(args) -> int:
     return _fit_and_report(args.model, y, label, args)
 
 
-def _command_diagnose(args) -> int:
+def read_saved_fit(path: str, argument: str):
+    """A :class:`~smle.FitResult` from its JSON file, or an error naming ``argument`` and the file."""
     import smle
 
     try:
-        result = smle.FitResult.from_json(args.result)
+        return smle.FitResult.from_json(path)
     except FileNotFoundError:
-        raise SmleInputError(f"result file {args.result!r} does not exist") from None
+        raise SmleInputError(f"{argument} {path!r} does not exist") from None
     except (ValueError, KeyError, TypeError) as error:
-        raise SmleInputError(f"{args.result!r} is not a result written by 'smle fit --report': {error}") from None
+        raise SmleInputError(f"{argument} {path!r} is not a fit saved by 'smle fit --report' ({error})") from None
+
+
+def _command_diagnose(args) -> int:
+    result = read_saved_fit(args.result, "result file")
     y = None
     if args.data:
         y, _, _ = _read_series(args.data, args.column, args.prices, args.drop_missing)

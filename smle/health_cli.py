@@ -51,12 +51,9 @@ def _model_and_params(args):
         raise SmleInputError("give exactly one of --params NAME=VALUE,... and --from-fit RESULT.json")
     if args.params is not None:
         return smle.get_model(args.model), _parse_params(args.params)
-    try:
-        fitted = smle.FitResult.from_json(args.from_fit)
-    except FileNotFoundError:
-        raise SmleInputError(f"--from-fit {args.from_fit!r} does not exist") from None
-    except (ValueError, KeyError, TypeError) as error:
-        raise SmleInputError(f"--from-fit {args.from_fit!r} is not a saved smle fit ({error})") from None
+    from smle.cli import read_saved_fit
+
+    fitted = read_saved_fit(args.from_fit, "--from-fit")
     return smle.get_model(fitted.model, **fitted.model_options), dict(fitted.params)
 
 
