@@ -276,16 +276,14 @@ def controlled_output(model: Model, settings: eis.EISSettings, control: ControlS
             log_controls.append(statistics[:, j])
             errors.append(jnp.mean(statistics[:, j]))
     if controls:
-        coefficients = eis.log_weight_coefficients(out.log_weights, jnp.stack(log_controls, axis=1), settings.antithetic)
-        if control.independent and control.coefficient is not None:
-            if control.draws:  # the independent coefficient fixed, the draws' regressed on the rest
-                rest = out.log_weights - control.coefficient * log_controls[0]
-                coefficients = jnp.concatenate([
-                    jnp.asarray([control.coefficient]),
-                    eis.log_weight_coefficients(rest, jnp.stack(log_controls[1:], axis=1), settings.antithetic),
-                ])
-            else:
-                coefficients = jnp.asarray([control.coefficient])
+        fixed = [control.coefficient] if control.independent and control.coefficient is not None else []
+        target = out.log_weights - (fixed[0] * log_controls[0] if fixed else 0.0)
+        free = log_controls[len(fixed):]  # regressed jointly, after any fixed coefficient
+        coefficients = jnp.concatenate([
+            jnp.asarray(fixed, out.value.dtype),
+            eis.log_weight_coefficients(target, jnp.stack(free, axis=1), settings.antithetic) if free
+            else jnp.zeros((0,), out.value.dtype),
+        ])
         value, nse = eis.control_variate_correction(
             out.log_weights, out.value, jnp.stack(controls, axis=1), jnp.stack(errors), coefficients, settings.antithetic
         )
