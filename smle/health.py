@@ -373,10 +373,25 @@ class _Run(NamedTuple):
 
 
 def _evaluate(model, params, y, n_draws, seed, settings, n_score_draws=None, control_variates=None):
-    """The one place the health check calls :func:`smle.loglik`."""
-    return likelihood.loglik(model, params, y, n_draws=n_draws, seed=seed, antithetic=settings.antithetic,
-                             tol=settings.tol, max_iter=settings.max_iter, n_score_draws=n_score_draws,
-                             control_variates=control_variates)
+    """The one place the health check calls :func:`smle.loglik`.
+
+    A run whose estimate is not finite ends the check with :class:`EstimatorBreakdown`: no report
+    can be assembled from it, and the answer to the check is already known (unreliable).
+    """
+    try:
+        return likelihood.loglik(model, params, y, n_draws=n_draws, seed=seed, antithetic=settings.antithetic,
+                                 tol=settings.tol, max_iter=settings.max_iter, n_score_draws=n_score_draws,
+                                 control_variates=control_variates)
+    except FloatingPointError as error:
+        raise EstimatorBreakdown(
+            f"verdict: unreliable -- the EIS log-likelihood is not finite at seed {seed} with {n_draws} draws"
+            f"{f' ({n_score_draws} scoring draws)' if n_score_draws else ''}, so the estimator breaks down at "
+            f"these parameters ({error})"
+        ) from None
+
+
+class EstimatorBreakdown(FloatingPointError):
+    """The health check met a run with a non-finite estimate: the likelihood is unreliable there."""
 
 
 @functools.lru_cache(maxsize=None)

@@ -71,9 +71,15 @@ def _command_check(args) -> int:
     def progress(text):
         print(f"smle check: {text}", file=sys.stderr, flush=True)
 
-    report = smle.check(model, params, y, n_draws=args.draws, n_seeds=args.seeds, seed=args.seed,
-                        tail_draws=args.tail_draws, draws_grid=_parse_grid(args.grid), dates=dates,
-                        control_variates=args.control_variates, progress=None if args.quiet else progress)
+    from smle.health import EstimatorBreakdown
+
+    try:
+        report = smle.check(model, params, y, n_draws=args.draws, n_seeds=args.seeds, seed=args.seed,
+                            tail_draws=args.tail_draws, draws_grid=_parse_grid(args.grid), dates=dates,
+                            control_variates=args.control_variates, progress=None if args.quiet else progress)
+    except EstimatorBreakdown as breakdown:
+        print(f"smle check: {breakdown}", file=sys.stderr)
+        return EXIT_CODES["unreliable"]
     print(f"data: {args.data}, {label}")
     print(report.summary())
     if args.report:

@@ -171,6 +171,21 @@ def test_figures_leave_the_callers_backend_alone(healthy_report, tmp_path):
     finally:
         plt.switch_backend(before)
 
+def test_a_breakdown_of_the_estimator_ends_the_check_as_unreliable(tmp_path, capsys):
+    # returns of order 1e200 make y^2 overflow, so log g_t is -inf on every path: no report can be
+    # built, and the check says unreliable instead of raising from inside the engine
+    y, _ = smle.simulate("sv", JPR_DESIGNS["phi=0.95"], 40, seed=1)
+    with pytest.raises(health.EstimatorBreakdown, match="verdict: unreliable .* not finite at seed 0 with 32 draws"):
+        smle.check("sv", JPR_DESIGNS["phi=0.95"], y * 1e200, n_draws=32, n_seeds=3, tail_draws=200, draws_grid=None)
+    path = tmp_path / "huge.csv"
+    pd.DataFrame({"r": y * 1e200}).to_csv(path, index=False)
+    params = ",".join(f"{k}={v}" for k, v in JPR_DESIGNS["phi=0.95"].items())
+    status = cli.main(["check", str(path), "--params", params, "--draws", "32", "--seeds", "3",
+                       "--tail-draws", "200", "--grid", "none", "--quiet"])
+    assert status == EXIT_CODES["unreliable"]
+    assert "verdict: unreliable" in capsys.readouterr().err
+
+
 def test_bad_inputs_say_what_is_needed(sv_data):
     y = sv_data.to_numpy()
     cases = [
