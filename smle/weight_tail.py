@@ -163,16 +163,19 @@ def _observed_information(xi: float, beta: float, y: np.ndarray) -> np.ndarray:
     return -np.array([[l_xixi.sum(), l_xibeta.sum()], [l_xibeta.sum(), l_betabeta.sum()]])
 
 
-def _check_exceedances(exceedances) -> np.ndarray:
+def _vector(value, argument: str, what: str) -> np.ndarray:
+    """``value`` as a 1-d float array, or an error naming ``argument`` and saying it must be ``what``."""
     try:
-        y = np.asarray(exceedances, dtype=float)
+        array = np.asarray(value, dtype=float)
     except (TypeError, ValueError) as error:
-        raise SmleInputError(
-            f"exceedances={describe(exceedances)} is not numeric; pass a 1-d array of "
-            "positive numbers") from error
-    if y.ndim != 1:
-        raise SmleInputError(
-            f"exceedances has shape {y.shape}; pass a 1-d array of exceedances")
+        raise SmleInputError(f"{argument}={describe(value)} is not numeric; pass a 1-d array of {what}") from error
+    if array.ndim != 1:
+        raise SmleInputError(f"{argument} has shape {array.shape}; pass a 1-d array of {what}")
+    return array
+
+
+def _check_exceedances(exceedances) -> np.ndarray:
+    y = _vector(exceedances, "exceedances", "positive exceedances")
     if y.size < MIN_EXCEEDANCES:
         raise SmleInputError(
             f"exceedances has {y.size} values; a generalised Pareto fit needs at least "
@@ -287,15 +290,7 @@ def _fit_restricted(y: np.ndarray, xi: float) -> tuple[float, float]:
 
 
 def _check_log_weights(log_weights, argument: str = "log_weights") -> np.ndarray:
-    try:
-        lw = np.asarray(log_weights, dtype=float)
-    except (TypeError, ValueError) as error:
-        raise SmleInputError(
-            f"{argument}={describe(log_weights)} is not numeric; pass a 1-d array of log "
-            "importance weights (e.g. LoglikResult.log_weights)") from error
-    if lw.ndim != 1:
-        raise SmleInputError(
-            f"{argument} has shape {lw.shape}; pass a 1-d array of log importance weights")
+    lw = _vector(log_weights, argument, "log importance weights (e.g. LoglikResult.log_weights)")
     if not np.all(np.isfinite(lw)):
         where = int(np.flatnonzero(~np.isfinite(lw))[0])
         raise SmleInputError(
