@@ -1,6 +1,6 @@
-"""Benchmark: the guided particle filter of smle.filtering (filtered factor, predictive densities, PITs).
+"""Benchmark: the guided particle filter of smle.diagnostics.filtering (filtered factor, predictive densities, PITs).
 
-What it measures: ``smle.filtering.compiled_filter(model, n_particles)`` called directly with
+What it measures: ``smle.diagnostics.filtering.compiled_filter(model, n_particles)`` called directly with
 ``block_until_ready``, T = 2000 periods, 2000 particles, resampling when the ESS falls below
 half the particles; the median of ``--repeats`` runs with fresh seeds after one compiling
 call (whose time is reported as compile + first run). Headline target: `sv`, under 1 s after
@@ -63,7 +63,7 @@ def main() -> None:
     import jax.numpy as jnp
 
     import smle
-    from smle.filtering import compiled_filter
+    from smle.diagnostics.filtering import compiled_filter
 
     rows = []
     for name, options, params in CASES:

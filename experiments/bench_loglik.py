@@ -149,7 +149,7 @@ def median_time(function, repeats: int, warmup: int = 2) -> dict:
 
 
 def settings_for(mode: str, n_draws: int):
-    from smle import eis
+    from smle.engine import eis
 
     if mode == "5 iterations":
         return eis.EISSettings(n_draws=n_draws, tol=0.0, max_iter=5)
@@ -225,7 +225,7 @@ def bench_breakdown(repeats: int) -> dict:
     import jax
 
     import smle
-    from smle import eis
+    from smle.engine import eis
 
     model = smle.get_model("sv")
     params, y, key = jax_inputs(simulated(HEADLINE["T"], seed=HEADLINE["T"]))
@@ -321,7 +321,7 @@ def bench_numpy(smle_rows: list[dict], quick: bool) -> list[dict]:
     import numpy as np
 
     import numpy_eis
-    from smle import eis
+    from smle.engine import eis
 
     rows = []
     for n_periods in SPEED_PERIODS:

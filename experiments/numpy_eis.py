@@ -1,6 +1,6 @@
-"""The EIS algorithm of smle/eis.py in plain NumPy, for the `sv` model: the speed baseline.
+"""The EIS algorithm of smle/engine/eis.py in plain NumPy, for the `sv` model: the speed baseline.
 
-Same algorithm, step for step, as :func:`smle.eis.eis_loglik` with the `sv` model:
+Same algorithm, step for step, as :func:`smle.engine.eis.eis_loglik` with the `sv` model:
 
 * a Newton start (``n_newton`` expansions of log g_t about the sampler's mean path);
 * EIS iterations: draw the fitting paths from the current sampler, regress log g_t for all
@@ -30,7 +30,7 @@ LOG_2PI = math.log(2.0 * math.pi)
 
 
 class Sampler(NamedTuple):
-    """Assembled sampler, the NumPy twin of :class:`smle.eis.Sampler` (arrays of shape (T,))."""
+    """Assembled sampler, the NumPy twin of :class:`smle.engine.eis.Sampler` (arrays of shape (T,))."""
 
     mean_intercept: np.ndarray
     mean_slope: np.ndarray
@@ -53,7 +53,7 @@ def sv_log_obs(y: np.ndarray, x: np.ndarray) -> np.ndarray:
 
 
 def assemble(state, b_obs: np.ndarray, c_obs: np.ndarray) -> Sampler:
-    """The backward scalar recursion of smle.eis.assemble, in Python floats."""
+    """The backward scalar recursion of smle.engine.eis.assemble, in Python floats."""
     intercept, phi, sigma2, init_mean, init_var = state
     n = b_obs.shape[0]
     b_list = b_obs.tolist()
@@ -126,7 +126,7 @@ def log_weights(sampler: Sampler, log_obs: np.ndarray, paths: np.ndarray) -> np.
 
 
 def fit_quadratic(paths: np.ndarray, targets: np.ndarray):
-    """All T regressions at once on centred regressors, as smle.eis.fit_quadratic."""
+    """All T regressions at once on centred regressors, as smle.engine.eis.fit_quadratic."""
     centre = paths.mean(axis=1)
     d = paths - centre[:, None]
     d2 = d * d
@@ -210,7 +210,7 @@ def check_against_smle(n_periods: int, n_draws: int, seed: int = 0, tol: float =
     import jax.numpy as jnp
 
     import smle
-    from smle import eis
+    from smle.engine import eis
     from smle.likelihood import compiled_eis
 
     model = smle.get_model("sv")

@@ -13,10 +13,10 @@ from smle.likelihood import LoglikResult, loglik, simulate  # noqa: E402
 from smle.fit import fit  # noqa: E402
 from smle.results import FitResult  # noqa: E402
 from smle.models import Model, get_model, model_names, register  # noqa: E402
-from smle.filtering import FilterResult, filter_factor  # noqa: E402
-from smle.gof import Diagnostics, diagnose  # noqa: E402
+from smle.diagnostics.filtering import FilterResult, filter_factor  # noqa: E402
+from smle.diagnostics.gof import Diagnostics, diagnose  # noqa: E402
 from smle import reference  # noqa: E402
-from smle.health import HealthReport, check  # noqa: E402
+from smle.diagnostics.health import HealthReport, check  # noqa: E402
 
 __version__ = "0.1.0"
 

@@ -654,7 +654,7 @@ def normal_cdf(x):
     Six times faster on CPU than ``jax.scipy.stats.norm.cdf`` (which evaluates erf and erfc and
     selects), with absolute error below 3e-16 and relative error below 3e-13 in the lower tail
     down to x = -37 (measured against scipy.stats.norm.cdf); the upper tail is 1 - tiny in
-    absolute terms. Used for the conditional CDFs of the models (PITs, :mod:`smle.filtering`).
+    absolute terms. Used for the conditional CDFs of the models (PITs, :mod:`smle.diagnostics.filtering`).
     """
     return 0.5 * jax.lax.erfc(-jnp.asarray(x, dtype=float) * _SQRT_HALF)
 

@@ -3,7 +3,7 @@
 The objective is minus the EIS log-likelihood per observation, in the unconstrained
 parameterisation each model declares, with the auxiliary sampler re-fitted at every parameter
 value and the common random numbers held fixed. Its gradient is exact: the EIS fixed point is
-differentiated implicitly (see :mod:`smle.eis`). The optimiser is L-BFGS (optax's two-loop
+differentiated implicitly (see :mod:`smle.engine.eis`). The optimiser is L-BFGS (optax's two-loop
 recursion) with a weak Wolfe line search; every evaluation of the objective and its gradient is
 one JIT-compiled program, compiled once per (model, settings, data shape). Standard errors come from the inverse
 Hessian of minus the log-likelihood (central differences of the exact gradient), mapped to the
@@ -28,7 +28,7 @@ import numpy as np
 import optax
 from scipy.special import ndtri
 
-from smle import eis
+from smle.engine import eis
 from smle.errors import SmleInputError
 from smle.likelihood import ControlSpec, as_key, check_control, check_observations, check_settings, controlled_output
 from smle.models import Model, get_model

@@ -16,7 +16,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from smle import eis
+from smle.engine import eis
 from smle.errors import SmleInputError, describe
 from smle.models import Model, get_model
 from smle.params import check_params
@@ -138,7 +138,7 @@ def _check_draws(argument: str, n_draws, antithetic) -> None:
 
 
 def check_settings(n_draws, antithetic, tol, max_iter, n_score_draws=None) -> eis.EISSettings:
-    """Validate estimator settings and return them as :class:`~smle.eis.EISSettings`."""
+    """Validate estimator settings and return them as :class:`~smle.engine.eis.EISSettings`."""
     _check_draws("n_draws", n_draws, antithetic)
     if n_score_draws is not None:
         _check_draws("n_score_draws", n_score_draws, antithetic)

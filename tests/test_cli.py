@@ -1,4 +1,4 @@
-"""The command line, run in-process through smle.cli.main."""
+"""The command line, run in-process through smle.cli."""
 
 import json
 

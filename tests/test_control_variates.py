@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 
 import smle
-from smle import eis
+from smle.engine import eis
 from smle.errors import SmleInputError
 from smle.reference import grid_loglik, kalman_loglik
 

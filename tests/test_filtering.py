@@ -13,7 +13,7 @@ import pytest
 from scipy import stats
 
 import smle
-from smle.filtering import has_obs_cdf
+from smle.diagnostics.filtering import has_obs_cdf
 
 from conftest import JPR_DESIGNS
 
@@ -191,7 +191,7 @@ def test_pits_are_uniform_under_the_true_model():
     10%: Binomial(60, 0.10) stays below 13 with probability 0.995. Measured over 200 other
     samples (seeds 5000-5199): KS 5.5%, Berkowitz 7.0%, Jarque-Bera 7.0%, 1% tails LR 4.5%,
     tail rule 9.5%."""
-    from smle import gof
+    from smle.diagnostics import gof
 
     model = smle.get_model("sv")
     counts = {"ks": 0, "berkowitz": 0, "tails": 0, "ljung-box": 0}

@@ -5,7 +5,8 @@ import pytest
 from scipy import integrate, stats
 
 import smle  # noqa: F401
-from smle import gaussian, latent
+from smle.engine import gaussian
+from smle.engine import latent
 
 
 def _kernel(x, b, c, d, phi, v, x_prev):

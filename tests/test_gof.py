@@ -1,4 +1,4 @@
-"""Residual tests and the goodness-of-fit report (smle.gof, smle.diagnose, smle diagnose).
+"""Residual tests and the goodness-of-fit report (smle.diagnostics.gof, smle.diagnose, smle diagnose).
 
 Outside references: statsmodels' acorr_ljungbox, het_arch and durbin_watson (equal to 1e-10);
 statsmodels' exact Gaussian ARIMA(1,0,0) likelihood for the Berkowitz LR; SciPy's Jarque-Bera
@@ -13,7 +13,8 @@ import pytest
 from scipy import stats
 
 import smle
-from smle import cli, gof
+from smle import cli
+from smle.diagnostics import gof
 from smle.results import _equal
 
 from conftest import JPR_DESIGNS

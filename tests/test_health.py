@@ -17,9 +17,10 @@ import pytest
 from scipy import stats
 
 import smle
-from smle import cli, health
+from smle import cli
+from smle.diagnostics import health
 from smle.errors import SmleInputError
-from smle.health_cli import EXIT_CODES
+from smle.cli.check import EXIT_CODES
 from smle.reference import grid_loglik, kalman_loglik
 from smle.results import CAUTION, FitResult
 
@@ -159,7 +160,7 @@ def test_figures_leave_the_callers_backend_alone(healthy_report, tmp_path):
     import matplotlib
     import matplotlib.pyplot as plt
 
-    from smle import health_plots
+    from smle.diagnostics import health_plots
 
     before = matplotlib.get_backend()
     plt.switch_backend("svg")

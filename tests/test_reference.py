@@ -6,7 +6,7 @@ import pytest
 from scipy import integrate
 
 import smle
-from smle import latent
+from smle.engine import latent
 from smle.reference import grid_filter, grid_loglik, kalman_filter, kalman_loglik, log_integral_adaptive
 
 # Maximum-likelihood values for the Nile local level model, Durbin and Koopman, Time Series

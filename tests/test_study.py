@@ -14,7 +14,7 @@ import smle
 from smle.errors import SmleInputError
 from smle.study import (Design, Estimator, Study, load_study, replication_seeds, run_replication, run_study,
                         study_status, summarize, write_summary, export_csv)
-from smle.study.cli import add_study_commands
+from smle.cli.study import add_study_commands
 from smle.study.store import TIMING_COLUMNS
 
 TRUTH = dict(mu=-7.36, phi=0.95, sigma_eta=0.26)

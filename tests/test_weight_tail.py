@@ -1,4 +1,4 @@
-"""Tail diagnostics of the importance weights (smle.weight_tail).
+"""Tail diagnostics of the importance weights (smle.diagnostics.weight_tail).
 
 Outside sources: scipy.stats.genpareto (an independent GPD fit and density), exact
 distribution theory of Pareto and importance weights derived in the docstrings, and the
@@ -14,7 +14,7 @@ import pytest
 from scipy import optimize, stats
 
 from smle.errors import SmleInputError
-from smle.weight_tail import (MIN_EXCEEDANCES, _observed_information, fit_generalized_pareto,
+from smle.diagnostics.weight_tail import (MIN_EXCEEDANCES, _observed_information, fit_generalized_pareto,
                               gpd_loglik, pareto_k_hat, tail_test, tail_verdict)
 
 

@@ -22,7 +22,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from smle import latent, params as P
-from smle.gaussian import log_normal_density
+from smle.engine.gaussian import log_normal_density
 from smle.models import register
 from smle.models.base import Model
 

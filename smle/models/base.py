@@ -26,7 +26,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from smle.latent import LatentAR1
+from smle.engine.latent import LatentAR1
 from smle.params import Constraint
 
 
@@ -92,7 +92,7 @@ class Model:
         ``integral N(x; m, v) g_t(y_t | x) dx``, computed by adaptive Gauss-Hermite quadrature
         (Liu and Pierce 1994, Biometrika 81). Models with a closed form override this.
         """
-        from smle.reference.quadrature import log_integral_adaptive
+        from smle.engine.quadrature import log_integral_adaptive
 
         independent = self.independent_params(params)
         if independent is None:

@@ -10,7 +10,7 @@
 
 from smle.reference.grid import GridFilterOutput, grid_filter, grid_loglik
 from smle.reference.kalman import KalmanOutput, kalman_filter, kalman_loglik
-from smle.reference.quadrature import log_integral_adaptive
+from smle.engine.quadrature import log_integral_adaptive
 
 __all__ = [
     "GridFilterOutput",

@@ -24,7 +24,7 @@ import jax
 import jax.numpy as jnp
 
 from smle.errors import SmleInputError
-from smle.gaussian import log_normal_density
+from smle.engine.gaussian import log_normal_density
 
 
 class GridFilterOutput(NamedTuple):

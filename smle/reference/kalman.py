@@ -21,7 +21,7 @@ from typing import NamedTuple
 import jax
 import jax.numpy as jnp
 
-from smle.latent import LatentAR1
+from smle.engine.latent import LatentAR1
 
 LOG_2PI = float(jnp.log(2 * jnp.pi))
 

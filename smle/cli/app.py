@@ -68,7 +68,7 @@ def _read_series(path: str, column: str | None, prices: bool, drop_missing: bool
 
 def _write_report(result, y, folder: Path, label: str, args=None) -> list[str]:
     """Results JSON, two figures and the goodness-of-fit report into ``folder``; the file names."""
-    from smle import plots
+    from smle.diagnostics import plots
 
     folder.mkdir(parents=True, exist_ok=True)
     result.to_json(folder / "result.json")
@@ -242,10 +242,10 @@ def build_parser() -> argparse.ArgumentParser:
     diagnose.add_argument("--quiet", action="store_true", help="no progress output")
     diagnose.set_defaults(handler=_command_diagnose)
 
-    from smle.study.cli import add_study_commands
+    from smle.cli.study import add_study_commands
 
     add_study_commands(commands)
-    from smle.health_cli import add_check_command
+    from smle.cli.check import add_check_command
 
     add_check_command(commands)
     return parser
@@ -260,6 +260,3 @@ def main(argv=None) -> int:
         print(f"smle: error: {error}", file=sys.stderr)
         return 2
 
-
-if __name__ == "__main__":
-    sys.exit(main())

@@ -1,4 +1,4 @@
-"""Figures of a likelihood health check (:class:`smle.health.HealthReport`), drawn off-screen.
+"""Figures of a likelihood health check (:class:`smle.diagnostics.health.HealthReport`), drawn off-screen.
 
 The figures are ``matplotlib.figure.Figure`` objects saved to files, never pyplot figures: drawing
 them leaves the caller's pyplot state and backend alone (a notebook keeps showing its own figures).

@@ -51,7 +51,7 @@ def _model_and_params(args):
         raise SmleInputError("give exactly one of --params NAME=VALUE,... and --from-fit RESULT.json")
     if args.params is not None:
         return smle.get_model(args.model), _parse_params(args.params)
-    from smle.cli import read_saved_fit
+    from smle.cli.app import read_saved_fit
 
     fitted = read_saved_fit(args.from_fit, "--from-fit")
     return smle.get_model(fitted.model, **fitted.model_options), dict(fitted.params)
@@ -61,7 +61,7 @@ def _command_check(args) -> int:
     import numpy as np
 
     import smle
-    from smle.cli import _read_series
+    from smle.cli.app import _read_series
 
     model, params = _model_and_params(args)
     y, index, label = _read_series(args.data, args.column, args.prices, args.drop_missing)
@@ -71,7 +71,7 @@ def _command_check(args) -> int:
     def progress(text):
         print(f"smle check: {text}", file=sys.stderr, flush=True)
 
-    from smle.health import EstimatorBreakdown
+    from smle.diagnostics.health import EstimatorBreakdown
 
     try:
         report = smle.check(model, params, y, n_draws=args.draws, n_seeds=args.seeds, seed=args.seed,
@@ -92,7 +92,7 @@ def add_check_command(commands) -> None:
     """Register ``smle check`` on the ``smle`` sub-command parser."""
     import argparse
 
-    from smle.cli import add_column_options
+    from smle.cli.app import add_column_options
 
     check = commands.add_parser(
         "check", help="health check of the simulated likelihood at given parameters (noise, weight tail, NSE)",

@@ -45,7 +45,9 @@ import jax.numpy as jnp
 import numpy as np
 from scipy import stats
 
-from smle import eis, likelihood, weight_tail
+from smle import likelihood
+from smle.engine import eis
+from smle.diagnostics import weight_tail
 from smle.errors import SmleInputError, describe
 from smle.results import CAUTION
 
@@ -139,7 +141,7 @@ class HealthReport:
       tail_draws: scoring draws of the tail run; tail_scoring: how they were drawn.
       tail_ess: effective sample size of the tail run; tail_log_weights: its log weights.
       degenerate: all tail-run weights equal to rounding (an exact sampler).
-      tail: the :class:`~smle.weight_tail.TailVerdict` of the tail run (None when degenerate).
+      tail: the :class:`~smle.diagnostics.weight_tail.TailVerdict` of the tail run (None when degenerate).
       period_shares: each period's covariance share of var(log w) on the tail run, (T,).
       top_periods: the ``TOP_PERIODS`` largest shares as :class:`Period`.
       dates: labels of the periods (strings) or None.
@@ -238,7 +240,7 @@ class HealthReport:
 
     def figures(self, folder) -> list[Path]:
         """Write the four figures of the report into ``folder`` (created if needed)."""
-        from smle import health_plots
+        from smle.diagnostics import health_plots
 
         return health_plots.all_figures(self, folder)
 

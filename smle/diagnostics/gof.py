@@ -1,6 +1,6 @@
 """Goodness of fit after a fit: PITs, normal scores, residual tests and a report.
 
-:func:`diagnose` runs the guided particle filter (:mod:`smle.filtering`) at a fit's estimates,
+:func:`diagnose` runs the guided particle filter (:mod:`smle.diagnostics.filtering`) at a fit's estimates,
 turns each observation into its probability integral transform (PIT) under the one-step
 predictive law and into a normal score ``z_t = Phi^{-1}(PIT_t)``, and tests what a correct
 model implies: the PITs are i.i.d. uniform, so the scores are i.i.d. N(0, 1) (Rosenblatt 1952,
@@ -47,7 +47,7 @@ from scipy import optimize, stats
 from scipy.special import ndtri
 
 from smle.errors import SmleInputError, describe
-from smle.filtering import FilterResult, check_filter_settings, filter_factor, has_obs_cdf
+from smle.diagnostics.filtering import FilterResult, check_filter_settings, filter_factor, has_obs_cdf
 from smle.likelihood import check_observations
 from smle.models import get_model
 from smle.results import CAUTION, FitResult
@@ -222,7 +222,7 @@ class Diagnostics:
 
     Attributes:
       model: the model name; series: a label per observed series.
-      filter: the :class:`~smle.filtering.FilterResult` at the estimates.
+      filter: the :class:`~smle.diagnostics.filtering.FilterResult` at the estimates.
       pit, scores: PITs and normal scores, shape (T, n_series).
       factor_path: one path of the factor drawn from the smoothing distribution, shape (T,);
       factor_innovations: its standardised AR(1) innovations, shape (T - 1,).
@@ -306,7 +306,7 @@ class Diagnostics:
 
     def write(self, folder) -> list[Path]:
         """Text, JSON and the four figures into ``folder``; returns the paths written."""
-        from smle import plots
+        from smle.diagnostics import plots
 
         folder = Path(folder)
         folder.mkdir(parents=True, exist_ok=True)

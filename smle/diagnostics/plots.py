@@ -58,7 +58,7 @@ def _band_normal(n: int, level: float = 0.95) -> float:
 
 
 def diagnostics_figures(diagnostics, folder) -> list[Path]:
-    """The four goodness-of-fit figures of a :class:`smle.gof.Diagnostics` report into ``folder``:
+    """The four goodness-of-fit figures of a :class:`smle.diagnostics.gof.Diagnostics` report into ``folder``:
     Q-Q plot of the normal scores, PIT histogram with a 95% band, autocorrelation of the scores
     and squared scores with 95% bands, and the filtered and smoothed factor paths."""
     from scipy import stats
@@ -107,7 +107,7 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     figure.savefig(paths[-1], dpi=110)
 
     # autocorrelation of scores and squared scores
-    from smle.gof import autocorrelations
+    from smle.diagnostics.gof import autocorrelations
 
     max_lag = int(min(30, n // 4))
     lags = np.arange(1, max_lag + 1)

@@ -9,7 +9,7 @@ whose parameters are chosen by backward least-squares regressions of ``log g_t``
 ``(1, x_t, -x_t^2/2)`` across the simulated paths (Richard and Zhang 2007, J. Econometrics 141).
 Because ``log chi_{t+1}(x_t)`` is exactly quadratic in ``x_t``, regressing ``log g_t + log chi_{t+1}``
 equals regressing ``log g_t`` alone and adding the chi coefficients; so all T regressions are done
-at once, vectorised, and a scalar backward scan adds the chi terms (see :mod:`smle.gaussian`).
+at once, vectorised, and a scalar backward scan adds the chi terms (see :mod:`smle.engine.gaussian`).
 
 The random numbers are common: the sampler transforms fixed standard normal draws, so the
 estimate is a smooth function of the parameters. The regressions use one set of draws (the
@@ -35,8 +35,8 @@ import jax
 import jax.numpy as jnp
 from jax.scipy.special import logsumexp
 
-from smle import gaussian
-from smle.latent import LatentAR1
+from smle.engine import gaussian
+from smle.engine.latent import LatentAR1
 
 
 class EISSettings(NamedTuple):

@@ -1,0 +1,5 @@
+"""The ``smle`` command line: one module per command, shared options and readers in :mod:`smle.cli.app`."""
+
+from smle.cli.app import main
+
+__all__ = ["main"]
