@@ -69,7 +69,7 @@ from smle.distributions import (
 from smle.errors import SmleInputError
 from smle.models import register
 from smle.models.base import Model
-from smle.models.garch_mix import SHAPE_RANGE, GarchMix, log_interval
+from smle.models.garch_mix import GarchMix
 
 LOG_2PI = math.log(2.0 * math.pi)
 INNOVATIONS = ("normal", "t", "nig")
@@ -95,6 +95,30 @@ def _student_t_cdf(x, nu):
     """CDF of the Student-t law with nu degrees of freedom (regularised incomplete beta)."""
     tail = 0.5 * betainc(0.5 * nu, 0.5, nu / (nu + x * x))
     return jnp.where(x > 0, 1.0 - tail, tail)
+
+
+def garch_from_shocks(params, shocks):
+    """Simulated returns r_t and variances h_t (both (T,)) from standardised shocks z_t (T,).
+
+    h_1 = omega / (1 - alpha - beta), m_1 = mu / (1 - ar1): the process started from its
+    unconditional variance and mean (the conventions of ``garch-mix``, which could share this).
+    """
+    omega, alpha, beta = params["omega"], params["alpha"], params["beta"]
+
+    def variance_step(h, z):
+        return omega + (alpha * z**2 + beta) * h, h  # h_{t+1} = omega + alpha e_t^2 + beta h_t, e_t = sqrt(h_t) z_t
+
+    _, variance = jax.lax.scan(variance_step, omega / (1.0 - alpha - beta), shocks)
+    residual = jnp.sqrt(variance) * shocks
+    mu, ar1 = params["mu"], params["ar1"]
+
+    def mean_step(previous_return, e):
+        r = mu + ar1 * previous_return + e
+        return r, r
+
+    # r_0 = mu / (1 - ar1) gives m_1 = mu + ar1 mu / (1 - ar1) = mu / (1 - ar1)
+    _, returns = jax.lax.scan(mean_step, mu / (1.0 - ar1), residual)
+    return returns, variance
 
 
 @register
@@ -135,18 +159,14 @@ class Garch(Model):
 
     # -- parameters --------------------------------------------------------------------------
     def constraints(self):
-        out = {
-            "mu": P.real("intercept of the conditional mean"),
-            "ar1": P.interval(-1.0, 1.0, "AR(1) coefficient of the conditional mean, stationarity"),
-            "omega": P.positive("GARCH intercept"),
-            "alpha": P.interval(0.0, 1.0, "ARCH coefficient; jointly alpha + beta < 1"),
-            "beta": P.interval(0.0, 1.0, "GARCH coefficient; jointly alpha + beta < 1"),
-        }
+        # the conditional mean and GARCH parameters, and the NIG shape, exactly as in garch-mix
+        mix = GarchMix().constraints()
+        out = {name: mix[name] for name in ("mu", "ar1", "omega", "alpha", "beta")}
         if self.innovations == "t":
             out["nu"] = P.greater_than(2.0, "degrees of freedom of the innovations; a finite variance needs nu > 2")
         elif self.innovations == "nig":
             out["gamma"] = P.real("skewness of the NIG innovations (negative: left skew)")
-            out["lambda"] = log_interval(*SHAPE_RANGE, "shape of the inverse Gaussian mixing law (Var W = 1/lambda)")
+            out["lambda"] = mix["lambda"]
         return out
 
     # alpha + beta < 1: the joint check and the softmax bijection of garch-mix, which only look
@@ -251,20 +271,8 @@ class Garch(Model):
         The simulated path starts from the unconditional variance and mean whatever
         ``variance_start`` is (a sample start needs the data).
         """
-        shocks = self.innovations_sample(params, n_periods, key)
-        mu, ar1 = params["mu"], params["ar1"]
-        omega, alpha, beta = params["omega"], params["alpha"], params["beta"]
-
-        def step(carry, shock):
-            previous_return, h, first = carry
-            mean = jnp.where(first, mu / (1.0 - ar1), mu + ar1 * previous_return)
-            e = jnp.sqrt(h) * shock
-            r = mean + e
-            return (r, omega + alpha * e**2 + beta * h, False), (r, h)
-
-        h1 = omega / (1.0 - alpha - beta)
-        _, (r, h) = jax.lax.scan(step, (jnp.zeros_like(h1), h1, True), shocks)
-        return r, jnp.sqrt(h)
+        returns, variance = garch_from_shocks(params, self.innovations_sample(params, n_periods, key))
+        return returns, jnp.sqrt(variance)
 
     def start_params(self, y):
         r = np.asarray(y, float)
