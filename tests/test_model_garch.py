@@ -124,14 +124,14 @@ def test_nig_cdf_heavy_and_light_tails(lam, gamma):
 
 
 def test_simulated_innovations_have_unit_variance():
-    # mean 0, variance 1 of the standardised innovations, 200000 draws: standard errors of the
-    # mean 0.0022 and of the variance about sqrt((kurtosis - 1) / n) < 0.02 (t with nu = 5 has
-    # infinite fourth moment, so nu = 8 there, kurtosis 4.5)
+    # mean 0, variance 1 of the standardised innovations, 50000 seeded draws: standard error of
+    # the mean 0.0045, of the variance sqrt((kurtosis - 1) / n), at most 0.0096 (NIG, sample
+    # kurtosis 5.6; t with nu = 8: 4.4). Tolerances 4 standard errors: 0.018 and 0.04.
     for model, params in ((Garch(), BASE), (Garch(innovations="t"), {**BASE, "nu": 8.0}),
                           (Garch(innovations="nig"), NIG)):
-        z = np.asarray(model.innovations_sample(params, 200_000, KEY))
-        assert abs(z.mean()) < 0.012, model.innovations
-        assert abs(z.var() - 1.0) < 0.06, model.innovations
+        z = np.asarray(model.innovations_sample(params, 50_000, KEY))
+        assert abs(z.mean()) < 0.018, model.innovations
+        assert abs(z.var() - 1.0) < 0.04, model.innovations
     # and the NIG draws follow the law the density describes (Kolmogorov-Smirnov, seeded)
     lam, gamma = NIG["lambda"], NIG["gamma"]
     c = np.sqrt(1 + gamma**2 / lam)
@@ -146,6 +146,7 @@ def test_gradient_matches_central_differences():
     y, _ = model.simulate(STUDENT, 300, KEY)
     u = model.to_real(STUDENT)
 
+    @jax.jit
     def value(v):
         return model.loglik_closed_form(model.from_real(v), y)
 
