@@ -22,6 +22,26 @@ logger = logging.getLogger("smle.data")
 
 REPAIR_CHOICES = ("raise", "drop")
 
+# Command-line flags of the Python arguments that messages suggest, so that a message reads
+# right from Python and from ``smle prepare`` (smle/cli/app.py). "--price-column" is the
+# name proposed for the flag still to be added there.
+COMMAND_LINE_FLAGS = {"repair": "--drop-bad-rows", "session_open": "--session-open",
+                      "session_close": "--session-close", "timezone": "--timezone",
+                      "interval": "--interval", "kind": "--kind",
+                      "price_column": "--price-column"}
+
+
+def suggest(argument: str, python_value: str, flag_value: str = "") -> str:
+    """An argument as both interfaces spell it: ``repair='drop' (command line:
+    --drop-bad-rows)``; only the Python form when no flag exists."""
+    flag = COMMAND_LINE_FLAGS.get(argument)
+    if flag is None:
+        return f"{argument}={python_value}"
+    return f"{argument}={python_value} (command line: {flag}{' ' + flag_value if flag_value else ''})"
+
+
+DROP_HINT = suggest("repair", "'drop'")
+
 # The name of the hidden column that carries each row's original position through sorting
 # and dropping. It never appears in returned frames.
 POSITION = "_smle_position"
@@ -78,6 +98,7 @@ class RowChecker:
         self.source = source
         self.key_name = key_name
         self.repairs: list[Repair] = []
+        self.notes: list[str] = []
 
     def label(self, key) -> str:
         if isinstance(key, pd.Timestamp) and key.tz is None and key == key.normalize():
@@ -103,11 +124,16 @@ class RowChecker:
         if self.repair == "raise":
             first = locations[0]
             others = len(locations) - 1
-            more = f" ({others} more row{'s' if others != 1 else ''} break the same rule)" if others else ""
+            more = ""
+            if others:
+                shown = ", ".join(str(int(positions[i])) for i in locations[1:6])
+                more = (f" ({others} more row{'s' if others != 1 else ''} break the same rule, "
+                        f"at data row{'s' if others != 1 else ''} {shown}"
+                        f"{', ...' if others > 5 else ''})")
             raise SmleInputError(
                 f"{row_name(positions[first], self.label(frame.index[first]), self.source)}: "
                 f"{detail_of(first)}; rule broken: {rule}{more}. {hint}"
-                f"Fix the data, or pass repair='drop' to drop such rows (logged).")
+                f"Fix the data, or pass {DROP_HINT} to drop such rows (logged).")
         for location in locations:
             self.repairs.append(Repair(rule, "dropped row", int(positions[location]),
                                        self.label(frame.index[location]), detail_of(location)))
@@ -189,10 +215,19 @@ def key_values(index: pd.Index) -> np.ndarray:
 def check_order(frame: pd.DataFrame, checker: RowChecker) -> pd.DataFrame:
     """Keys must be strictly increasing: neither out of order nor repeated.
 
-    With ``repair="drop"`` rows out of order are sorted into place (stable sort, recorded as
-    ``"sorted"``), then later rows repeating an earlier key are dropped (the first kept).
+    Rows in strictly decreasing order throughout (newest first, as many downloads come) are
+    reversed, and a note says so (``checker.notes``). Otherwise, with ``repair="drop"`` rows
+    out of order are sorted into place (stable sort, recorded as ``"sorted"``), then later
+    rows repeating an earlier key are dropped (the first kept); without it either is an error
+    naming the row.
     """
     keys = key_values(frame.index)
+    if len(keys) > 2 and np.all(keys[1:] <= keys[:-1]) and keys[-1] < keys[0]:
+        checker.notes.append(
+            f"rows were in newest-first order ({checker.label(frame.index[0])} first); they "
+            f"were reversed to oldest-first")
+        frame = frame.iloc[::-1]
+        keys = key_values(frame.index)
     positions = frame[POSITION].to_numpy()
     if len(keys) > 1:
         backwards = np.flatnonzero(keys[1:] < keys[:-1]) + 1
@@ -203,8 +238,8 @@ def check_order(frame: pd.DataFrame, checker: RowChecker) -> pd.DataFrame:
                     f"{row_name(positions[i], checker.label(frame.index[i]), checker.source)}: "
                     f"comes before the previous row's {checker.key_name} "
                     f"{frame.index[i - 1]}; rule broken: rows must be sorted by "
-                    f"{checker.key_name} ({len(backwards)} such break(s) in all). Sort the data, "
-                    f"or pass repair='drop' to sort it (logged).")
+                    f"{checker.key_name}, oldest first ({len(backwards)} such break(s) in all). "
+                    f"Sort the data, or pass {DROP_HINT} to sort it (logged).")
             checker.record(f"rows must be sorted by {checker.key_name}", "sorted",
                            positions[backwards], [checker.label(frame.index[i]) for i in backwards],
                            [f"came after {checker.key_name} {frame.index[i - 1]}" for i in backwards])
