@@ -16,7 +16,7 @@ from typing import NamedTuple
 import numpy as np
 import pandas as pd
 
-from smle.errors import SmleInputError
+from smle.errors import SmleInputError, describe
 
 logger = logging.getLogger("smle.data")
 
@@ -164,7 +164,7 @@ def check_missing_key(frame: pd.DataFrame, keys: pd.Index, checker: RowChecker,
     if bad.any():
         frame = checker.apply(
             frame, bad, f"every row needs a readable {checker.key_name}",
-            lambda i: f"{checker.key_name} {raw.iloc[i]!r} is missing or unreadable")
+            lambda i: f"{checker.key_name} {describe(raw.iloc[i])} is missing or unreadable")
         keys = keys[~bad]
     return frame, keys
 

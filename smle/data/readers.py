@@ -165,7 +165,7 @@ def _as_numbers(frame: pd.DataFrame, columns: list[str], checker: RowChecker) ->
             total = int(bad.sum())
             frame = checker.apply(
                 frame, bad, f"column '{column}' must hold numbers",
-                lambda i, r=raw, c=column: f"{c} = {r.iloc[i]!r} is text, not a number",
+                lambda i, r=raw, c=column: f"{c} = {describe(r.iloc[i])} is text, not a number",
                 hint=f"{total} of {len(raw)} cells of column '{column}' are text. ")
             numbers = pd.to_numeric(frame[column], errors="coerce")
         frame[column] = numbers
@@ -257,7 +257,7 @@ def read_daily(source, *, date_column: str | None = None, price_column: str | No
                             "price_column", required=False, exclude=(key,))
         if price is None:
             return_column = find_column(frame, None, _RETURN_NAMES, _RETURN_FRAGMENTS,
-                                        "price or return", "price_column or return_column",
+                                        "price (or return)", "price_column",
                                         exclude=(key,))
     elif return_column not in frame.columns:
         raise SmleInputError(

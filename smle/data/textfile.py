@@ -158,7 +158,7 @@ def read_csv_file(path: Path, argument: str = "source") -> tuple[pd.DataFrame, l
         frame = pd.read_csv(io.StringIO(text), sep=separator, decimal=decimal)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error, ValueError,
             OverflowError) as error:
-        detail = " ".join(str(error).split())
+        detail = " ".join(str(error).split())[:300]
         raise _refuse(path, argument, f"could not be split into columns with the separator "
                                       f"{separator!r}: {detail}") from None
     names = [str(column) for column in frame.columns]
