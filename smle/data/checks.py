@@ -75,6 +75,21 @@ def check_repair(repair: str) -> str:
     return repair
 
 
+def positive_integer(value, argument: str) -> int:
+    """An integer argument of at least 1, or a clear error."""
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
+        raise SmleInputError(f"{argument}={describe(value)} is not accepted; use a positive "
+                             f"integer (1, 2, ...)")
+    return int(value)
+
+
+def flag(value, argument: str) -> bool:
+    """A true/false argument, or a clear error (a string such as 'no' would count as true)."""
+    if not isinstance(value, (bool, np.bool_)):
+        raise SmleInputError(f"{argument}={describe(value)} is not accepted; use True or False")
+    return bool(value)
+
+
 def row_name(position: int, label, source: str | None) -> str:
     """How a row is named in messages: its position, its file line and its key."""
     where = f"row {int(position)} (0-based data row"

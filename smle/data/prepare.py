@@ -26,8 +26,10 @@ time zone, the number of rows outside the session, and ``repairs``.
 
 from __future__ import annotations
 
+import inspect
 import json
 import logging
+import os
 from pathlib import Path
 
 import numpy as np
@@ -97,13 +99,6 @@ def _check_measures(measures) -> tuple[str, ...]:
             f"names from {DEFAULT_MEASURES}" if unknown else
             f"measures={measures!r} is empty; accepted: names from {DEFAULT_MEASURES}")
     return measures
-
-
-def _positive_integer(value, argument: str) -> int:
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
-        raise SmleInputError(f"{argument}={describe(value)} is not accepted; use a positive "
-                             f"integer (1, 2, ...)")
-    return int(value)
 
 
 def _clock_text(seconds: float) -> str:
@@ -209,10 +204,11 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
     """
     measures = _check_measures(measures)
     scale = units.scale(unit)
-    subsamples = _positive_integer(subsamples, "subsamples")
+    subsamples = checks.positive_integer(subsamples, "subsamples")
     if min_observations is not None:
-        min_observations = _positive_integer(min_observations, "min_observations")
-    min_days = _positive_integer(min_days, "min_days")
+        min_observations = checks.positive_integer(min_observations, "min_observations")
+    min_days = checks.positive_integer(min_days, "min_days")
+    add_overnight = checks.flag(add_overnight, "add_overnight")
     given_open = None if session_open is None else _clock_seconds(session_open, "session_open")
     given_close = None if session_close is None else _clock_seconds(session_close,
                                                                      "session_close")
@@ -392,7 +388,15 @@ def prepare_from_daily(source, *, measures=RANGE_MEASURES, add_overnight: bool =
       A DataFrame indexed by ``date``: ``return_pct``, and from bars also
       ``overnight_return_pct``, ``session_return_pct`` and the range estimators.
     """
-    measures = tuple(name for name in _check_measures(measures) if name in RANGE_MEASURES)
+    asked = _check_measures(measures)
+    realized_asked = [name for name in asked if name not in RANGE_MEASURES]
+    if realized_asked:
+        raise SmleInputError(
+            f"measures={asked!r}: {realized_asked} need intraday prices (several a day); from "
+            f"daily data the accepted measures are {RANGE_MEASURES}")
+    measures = asked
+    min_days = checks.positive_integer(min_days, "min_days")
+    add_overnight = checks.flag(add_overnight, "add_overnight")
     frame, _ = readers.load_table(source)
     lowered = {str(column).strip().lower() for column in frame.columns}
     is_bars = columns is not None or set(readers.BAR_FIELDS) <= lowered
@@ -441,7 +445,7 @@ def write_daily(table: pd.DataFrame, path, *, metadata: bool = True) -> Path:
     Returns:
       The path of the CSV file.
     """
-    path = Path(path)
+    path = _writable(path, "path")
     table.to_csv(path, index=True, index_label="date", date_format="%Y-%m-%d",
                  float_format="%.10g")
     if metadata:
@@ -450,6 +454,20 @@ def write_daily(table: pd.DataFrame, path, *, metadata: bool = True) -> Path:
         attrs["columns"] = list(table.columns)
         with open(_metadata_path(path), "w", encoding="utf-8") as handle:
             json.dump(attrs, handle, indent=2, default=str)
+    return path
+
+
+def _writable(path, argument: str) -> Path:
+    """A path a CSV can be written to, or a clear error."""
+    if not isinstance(path, (str, os.PathLike)):
+        raise SmleInputError(f"{argument}={describe(path)} is not accepted; give a file path")
+    path = Path(path)
+    if path.is_dir():
+        raise SmleInputError(f"{argument}={str(path)!r} is a directory; give a file path such "
+                             f"as {str(path / 'daily.csv')!r}")
+    if not path.parent.is_dir():
+        raise SmleInputError(f"{argument}={str(path)!r}: the folder {str(path.parent)!r} does "
+                             f"not exist; create it first")
     return path
 
 
@@ -533,6 +551,16 @@ def prepare_file(input_path, output_path=None, *, interval=DEFAULT_INTERVAL,
         frame, _ = readers.load_table(input_path)
         kind = "intraday" if _looks_intraday(
             frame, options.get("time_column") or options.get("date_column")) else "daily"
+    target = prepare_daily if kind == "intraday" else prepare_from_daily
+    accepted = [name for name, parameter in inspect.signature(target).parameters.items()
+                if parameter.kind is inspect.Parameter.KEYWORD_ONLY]
+    unknown = sorted(set(options) - set(accepted))
+    if unknown:
+        raise SmleInputError(
+            f"{', '.join(f'{name}={describe(options[name])}' for name in unknown)}: not an "
+            f"option of {target.__name__} ({kind} input); accepted: {accepted}")
+    if output_path is not None:
+        output_path = _writable(output_path, "output_path")
     if kind == "intraday":
         table = prepare_daily(input_path, interval, **options)
     else:

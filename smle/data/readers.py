@@ -16,6 +16,7 @@ What was repaired (only with ``repair="drop"``) is in ``frame.attrs["repairs"]``
 
 from __future__ import annotations
 
+import datetime
 import os
 import re
 from pathlib import Path
@@ -105,7 +106,7 @@ def find_column(frame: pd.DataFrame, given: str | None, names, fragments, what: 
     (case and surrounding spaces ignored), else the first containing one of ``fragments``."""
     columns = [column for column in frame.columns if column not in exclude]
     if given is not None:
-        if given not in frame.columns:
+        if not isinstance(given, (str, int)) or given not in frame.columns:
             raise SmleInputError(
                 f"{argument}={given!r} is not a column; the columns are {list(frame.columns)}")
         return given
@@ -200,7 +201,16 @@ def _wall_clock(raw: pd.Series) -> pd.Series:
             parsed = pd.to_datetime(text, errors="coerce", utc=True, format=_format_of(text))
     if isinstance(parsed.dtype, pd.DatetimeTZDtype):
         parsed = parsed.dt.tz_localize(None)
-    return parsed
+    return _within_bounds(parsed)
+
+
+def _within_bounds(parsed):
+    """Times outside what nanosecond timestamps hold (years 1678-2261) become NaT, to be
+    reported as unreadable rows."""
+    low, high = pd.Timestamp("1678-01-01"), pd.Timestamp("2261-12-31")
+    if getattr(parsed.dtype, "tz", None) is not None:
+        low, high = low.tz_localize("UTC"), high.tz_localize("UTC")
+    return parsed.where((parsed >= low) & (parsed <= high))
 
 
 def _format_of(text: pd.Series) -> str | None:
@@ -248,6 +258,7 @@ def read_daily(source, *, date_column: str | None = None, price_column: str | No
       A DataFrame indexed by ``date`` with the column ``close`` (prices), or ``return_pct``
       (log returns in percent) when returns were read.
     """
+    min_rows = checks.positive_integer(min_rows, "min_rows")
     frame, source_name = load_table(source)
     checker = RowChecker(repair, source_name, "date")
     checker.notes.extend(frame.attrs.get("notes", []))
@@ -290,6 +301,10 @@ def read_daily(source, *, date_column: str | None = None, price_column: str | No
 
 def _bar_columns(frame: pd.DataFrame, columns: dict | None, exclude=()) -> dict:
     """Map open/high/low/close to the frame's columns, by argument or by name."""
+    if columns is not None and not isinstance(columns, dict):
+        raise SmleInputError(
+            f"columns={describe(columns)} is not accepted; give a mapping such as "
+            f"{{'open': 'Open', 'high': 'High', 'low': 'Low', 'close': 'Last'}}")
     columns = dict(columns or {})
     unknown = set(columns) - set(BAR_FIELDS)
     if unknown:
@@ -319,6 +334,7 @@ def read_ohlc(source, *, date_column: str | None = None, columns: dict | None = 
       A DataFrame indexed by ``date`` with columns ``open``, ``high``, ``low``, ``close``
       (prices, all checked: positive, low <= high, open and close inside [low, high]).
     """
+    min_rows = checks.positive_integer(min_rows, "min_rows")
     frame, source_name = load_table(source)
     checker = RowChecker(repair, source_name, "date")
     checker.notes.extend(frame.attrs.get("notes", []))
@@ -343,6 +359,10 @@ _ISO_START = re.compile(r"^\d{4}-\d{2}-\d{2}([ T]\d{2}:\d{2}(:\d{2}(\.\d+)?)?)?"
 
 def _parse_timestamps(raw: pd.Series) -> pd.DatetimeIndex:
     """Timestamps from a column; unreadable entries become NaT (reported by the caller)."""
+    return pd.DatetimeIndex(_within_bounds(pd.Series(_parse_any(raw), index=raw.index)))
+
+
+def _parse_any(raw: pd.Series):
     if pd.api.types.is_datetime64_any_dtype(raw):
         return pd.DatetimeIndex(raw)
     present = raw.dropna()
@@ -393,6 +413,10 @@ def read_intraday(source, *, time_column: str | None = None, price_column: str |
       or the columns ``open``, ``high``, ``low``, ``close``. ``attrs`` holds ``kind``
       (``"prices"`` or ``"bars"``), ``timezone``, ``source`` and ``repairs``.
     """
+    for name, zone in (("timezone", timezone), ("source_timezone", source_timezone)):
+        if zone is not None and not isinstance(zone, (str, datetime.tzinfo)):
+            raise SmleInputError(f"{name}={describe(zone)} is not accepted; use an IANA time "
+                                 f"zone name such as 'UTC' or 'Europe/London'")
     frame, source_name = load_table(source)
     checker = RowChecker(repair, source_name, "timestamp")
     checker.notes.extend(frame.attrs.get("notes", []))
