@@ -138,6 +138,19 @@ def test_zero_returns_are_counted_and_kept():
     note = next(note for note in table.attrs["notes"] if "exactly zero" in note)
     assert "2 of 7 daily returns" in note and "kept as observations" in note
     assert "2031-06-05" in note
+    returns = pd.DataFrame({"date": frame["date"], "return": [0.0, 1.0, 0.0, -2.0, 0.0, 1.0,
+                                                               0.5, 0.2]})
+    read = read_daily(returns)
+    assert read.attrs["n_zero_returns"] == 3
+    assert any("3 of 8 returns are exactly zero" in note for note in read.attrs["notes"])
+
+
+def test_day_first_dates_are_read_as_such_with_a_note():
+    frame = _closes()
+    frame["date"] = pd.to_datetime(frame["date"]).dt.strftime("%d/%m/%Y")
+    read = read_daily(frame)
+    assert list(read.index.strftime("%Y-%m-%d")) == list(_closes()["date"])
+    assert any("read day first" in note for note in read.attrs["notes"])
 
 
 @pytest.mark.parametrize("arguments, fragment", [

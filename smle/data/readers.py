@@ -19,6 +19,7 @@ from __future__ import annotations
 import datetime
 import os
 import re
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -181,24 +182,34 @@ def _daily_keys(frame: pd.DataFrame, key: str, checker: RowChecker) -> pd.DataFr
         # An integer column (a row number, a trading-day count) is accepted as an ordering key.
         keys = pd.Index(raw.to_numpy(), name="date")
     else:
-        keys = pd.DatetimeIndex(_wall_clock(raw), name="date").as_unit("ns")
+        keys = pd.DatetimeIndex(_wall_clock(raw, checker.notes), name="date").as_unit("ns")
         _refuse_intraday(keys, checker.source)
     frame = frame.set_axis(keys)
     frame, keys = checks.check_missing_key(frame, keys, checker, raw.set_axis(keys))
     return frame
 
 
-def _wall_clock(raw: pd.Series) -> pd.Series:
+def _wall_clock(raw: pd.Series, notes: list[str] | None = None) -> pd.Series:
     """Dates or times as written: a UTC offset at the end of the text is dropped, so that a
-    day is the calendar day printed in the file; unreadable entries become NaT."""
+    day is the calendar day printed in the file; unreadable entries become NaT.
+
+    Dates such as 06/01/2031 are read month first unless reading them day first leaves fewer
+    unreadable, or (all readable both ways) gives ordered dates closer together; the choice
+    of day first is noted in ``notes``.
+    """
     if pd.api.types.is_datetime64_any_dtype(raw):
         parsed = raw
     else:
         text = raw.astype("string").str.strip().str.replace(_OFFSET_AT_END, "", regex=True)
-        try:
-            parsed = pd.to_datetime(text, errors="coerce", format=_format_of(text))
-        except (ValueError, TypeError, OverflowError):
-            parsed = pd.to_datetime(text, errors="coerce", utc=True, format=_format_of(text))
+        parsed = _to_datetime(text, dayfirst=False)
+        if _format_of(text) is None and text.str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]",
+                                                          regex=True, na=False).any():
+            day_first = _to_datetime(text, dayfirst=True)
+            if _better_reading(day_first, parsed):
+                parsed = day_first
+                if notes is not None:
+                    notes.append(f"dates such as {text.dropna().iloc[0]!r} were read day "
+                                 f"first (day/month/year)")
     if isinstance(parsed.dtype, pd.DatetimeTZDtype):
         parsed = parsed.dt.tz_localize(None)
     return _within_bounds(parsed)
@@ -211,6 +222,31 @@ def _within_bounds(parsed):
     if getattr(parsed.dtype, "tz", None) is not None:
         low, high = low.tz_localize("UTC"), high.tz_localize("UTC")
     return parsed.where((parsed >= low) & (parsed <= high))
+
+
+def _to_datetime(text: pd.Series, dayfirst: bool) -> pd.Series:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)  # pandas' guess-the-format warnings
+        try:
+            return pd.to_datetime(text, errors="coerce", format=_format_of(text),
+                                  dayfirst=dayfirst)
+        except (ValueError, TypeError, OverflowError):
+            return pd.to_datetime(text, errors="coerce", utc=True, format=_format_of(text),
+                                  dayfirst=dayfirst)
+
+
+def _better_reading(candidate: pd.Series, current: pd.Series) -> bool:
+    """Whether ``candidate`` reads more dates, or as many in order and closer together."""
+    missing = (int(candidate.isna().sum()), int(current.isna().sum()))
+    if missing[0] != missing[1]:
+        return missing[0] < missing[1]
+
+    def spread(values):
+        steps = np.diff(values.dropna().to_numpy().astype("datetime64[ns]").astype(np.int64))
+        ordered = len(steps) and (np.all(steps >= 0) or np.all(steps <= 0))
+        return (0 if ordered else 1, float(np.median(np.abs(steps))) if len(steps) else 0.0)
+
+    return spread(candidate) < spread(current)
 
 
 def _format_of(text: pd.Series) -> str | None:
@@ -287,9 +323,16 @@ def read_daily(source, *, date_column: str | None = None, price_column: str | No
                               lambda i: f"{return_column} is missing ({float(values[i])!r})")
         frame = checks.check_order(frame, checker)
         frame["return_pct"] = frame[return_column] * (100.0 / _RETURN_UNITS[returns_in])
+        zero = int(np.count_nonzero(frame["return_pct"].to_numpy() == 0.0))
+        if zero:
+            checker.notes.append(
+                f"{zero} of {len(frame)} returns are exactly zero (an unchanged price, as when "
+                f"a holiday is carried as a day without trading); they are kept as "
+                f"observations")
         checks.check_length(len(frame), max(min_rows - 1, 1), "daily returns", source_name)
         out = _finish(frame, checker, ["return_pct"])
         out.attrs["return_unit"] = "percent (log return)"
+        out.attrs["n_zero_returns"] = zero
         return out
     frame = _as_numbers(frame, [price], checker)
     frame = frame.rename(columns={price: "close"}) if price != "close" else frame
