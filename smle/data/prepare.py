@@ -21,7 +21,10 @@ its columns carry their units (see :mod:`smle.data.units`); with the default uni
 With ``add_overnight=True`` every variance gets the squared overnight return added and its
 name the part ``_whole_day`` (``realized_variance_whole_day_pct2``). The first session day
 only supplies a previous close and is not a row. ``attrs`` states units, interval, session,
-time zone, the number of rows outside the session, and ``repairs``.
+time zone, the rows outside the session (by reason), ``repairs``, ``n_zero_returns`` and
+``notes``: sentences on what was inferred or found without being an error (the file's
+encoding or separator, a reversed newest-first order, day-first dates, the inferred session,
+rows left out, zero returns, which are kept as observations).
 """
 
 from __future__ import annotations
@@ -186,11 +189,18 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
       add_overnight: add the squared overnight return to each variance, for a whole-day
         measure (columns then named ``..._whole_day_pct2``).
       session_open, session_close: the trading session, as ``"HH:MM[:SS]"`` clock times in
-        ``timezone`` (defaults 09:30 and 16:00). Rows outside it are left out (counted in
-        ``attrs["n_outside_session"]`` and logged). Sessions over midnight are not supported.
-      timezone: the venue's time zone (default ``"UTC"``); see :func:`read_intraday`.
-      source_timezone, time_column, price_column, columns, bar_timestamp, bar_length: passed
-        to :func:`smle.data.read_intraday`.
+        ``timezone``. By default (None) the data's own session: the most common minute of a
+        day's first row (for bars, less the usual bar length, since a bar is stamped at its
+        end) and of its last row; what was inferred is in ``attrs["notes"]``. Rows outside
+        the session are left out, counted by reason in ``attrs["outside_session"]``
+        (``before_open``, ``after_close``; the total in ``attrs["n_outside_session"]``),
+        noted and logged. Sessions over midnight are not supported.
+      timezone: the venue's time zone; by default (None) the clock as written in the data
+        (see :func:`smle.data.read_intraday`).
+      source_timezone, time_column, columns, bar_timestamp, bar_length: passed to
+        :func:`smle.data.read_intraday`.
+      price_column: the column of prices when it is not found by name (for bars, reads
+        that one column as prices instead).
       min_observations: a session with fewer rows than this is an error (or, with
         ``repair="drop"``, dropped); by default one row per sampling interval.
       min_days: fewer usable session days than this is an error (the first day only gives a

@@ -200,7 +200,7 @@ def _wall_clock(raw: pd.Series, notes: list[str] | None = None) -> pd.Series:
     if pd.api.types.is_datetime64_any_dtype(raw):
         parsed = raw
     else:
-        text = raw.astype("string").str.strip().str.replace(_OFFSET_AT_END, "", regex=True)
+        text = _without_offset(raw.astype("string").str.strip())
         parsed = _to_datetime(text, dayfirst=False)
         if _format_of(text) is None and text.str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]",
                                                           regex=True, na=False).any():
@@ -222,6 +222,22 @@ def _within_bounds(parsed):
     if getattr(parsed.dtype, "tz", None) is not None:
         low, high = low.tz_localize("UTC"), high.tz_localize("UTC")
     return parsed.where((parsed >= low) & (parsed <= high))
+
+
+def _without_offset(text: pd.Series) -> pd.Series:
+    """Text with a trailing UTC offset removed; by slicing when every entry ends in an offset
+    of the same form (fast on large files), else by a regular expression."""
+    present = text.dropna()
+    match = _OFFSET_AT_END.search(str(present.iloc[0])) if len(present) else None
+    if match is None:
+        return text
+    width = len(match.group())
+    tail = present.str.slice(-width)
+    same_form = (present.str.len() == len(str(present.iloc[0]))).all() and (
+        (tail == "Z").all() if width == 1 else tail.str.slice(0, 1).isin(["+", "-"]).all())
+    if same_form:
+        return text.str.slice(0, -width)
+    return text.str.replace(_OFFSET_AT_END, "", regex=True)
 
 
 def _to_datetime(text: pd.Series, dayfirst: bool) -> pd.Series:
