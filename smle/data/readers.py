@@ -11,7 +11,12 @@ returns a frame with smle's own column names, sorted by its key:
   column ``price``, or ``open``, ``high``, ``low``, ``close`` for bars.
 
 What was repaired (only with ``repair="drop"``) is in ``frame.attrs["repairs"]``, a list of
-:class:`smle.data.checks.Repair`, and in the ``smle.data`` log.
+:class:`smle.data.checks.Repair`, and in the ``smle.data`` log. What was inferred without
+being an error is in ``frame.attrs["notes"]`` (sentences): the file's encoding, separator or
+compression (see :mod:`smle.data.textfile`), day-first dates, and a file in newest-first
+order, which is reversed (any other disorder is an error naming the row, or sorted with
+``repair="drop"``; a repeated date or timestamp is an error naming the rows). Daily readers
+refuse data with several rows per calendar date (intraday prices), naming what to use.
 """
 
 from __future__ import annotations
