@@ -11,7 +11,8 @@ import pandas as pd
 import pytest
 
 from smle.data import (demo_scenario, garman_klass, parkinson, prepare_daily, prepare_file,
-                       prepare_from_daily, read_daily, read_ohlc, rogers_satchell)
+                       prepare_from_daily, read_daily, read_intraday, read_ohlc,
+                       rogers_satchell)
 from smle.errors import SmleInputError
 
 
@@ -193,3 +194,23 @@ def test_session_drops_are_reported_by_reason(demo):
     assert default.attrs["n_outside_session"] == 0
     assert any("inferred from the data" in note and "--session-open" in note
                for note in default.attrs["notes"])
+
+
+def test_separate_date_and_time_columns_are_joined():
+    frame = pd.DataFrame({"Date": ["2031-01-06"] * 3 + ["2031-01-07"] * 3,
+                          "Time": ["09:30", "09:31", "09:32"] * 2,
+                          "Price": [1.0, 1.1, 1.2, 1.3, 1.2, 1.1]})
+    read = read_intraday(frame)
+    assert str(read.index[4]) == "2031-01-07 09:31:00+00:00"
+    assert any("joined from the columns 'Date'" in note for note in read.attrs["notes"])
+
+
+def test_prepare_file_options_and_output_paths(demo, tmp_path):
+    message = _raises(prepare_file, demo.files["daily"], tmp_path / "out.csv", interval_x=3)
+    assert "interval_x=3: not an option of prepare_from_daily (daily input)" in message
+    message = _raises(prepare_file, demo.files["daily"], tmp_path)
+    assert "is a directory; give a file path" in message
+    message = _raises(prepare_file, demo.files["daily"], tmp_path / "missing" / "out.csv")
+    assert "does not exist; create it first" in message
+    message = _raises(prepare_from_daily, demo.files["daily"], measures=["realized_variance"])
+    assert "need intraday prices" in message

@@ -485,6 +485,7 @@ def read_intraday(source, *, time_column: str | None = None, price_column: str |
     checker = RowChecker(repair, source_name, "timestamp")
     checker.notes.extend(frame.attrs.get("notes", []))
     key = _find_key(frame, time_column, "time_column")
+    frame, key = _join_date_and_time(frame, key, time_column, checker)
     bars = False
     lowered = {str(column).strip().lower() for column in frame.columns}
     if price_column is None:
@@ -537,6 +538,23 @@ def read_intraday(source, *, time_column: str | None = None, price_column: str |
     if written is not None:
         out.attrs["utc_offset_ns"] = written[out.attrs["positions"]]
     return out
+
+
+def _join_date_and_time(frame: pd.DataFrame, key, time_column, checker: RowChecker):
+    """A file with a date column and a separate clock-time column: the two joined (noted)."""
+    names = {str(column).strip().lower(): column for column in frame.columns}
+    if time_column is not None or str(key).strip().lower() != "date" or "time" not in names:
+        return frame, key
+    clock = frame[names["time"]]
+    if pd.api.types.is_datetime64_any_dtype(frame[key]) or \
+            pd.api.types.is_datetime64_any_dtype(clock):
+        return frame, key
+    frame = frame.copy()
+    frame["_smle_timestamp"] = (frame[key].astype("string").str.strip() + " "
+                                + clock.astype("string").str.strip())
+    checker.notes.append(f"timestamps joined from the columns {key!r} (dates) and "
+                         f"{names['time']!r} (clock times)")
+    return frame, "_smle_timestamp"
 
 
 def _bar_columns_without_open(frame, columns, key) -> dict:
