@@ -214,3 +214,10 @@ def test_prepare_file_options_and_output_paths(demo, tmp_path):
     assert "does not exist; create it first" in message
     message = _raises(prepare_from_daily, demo.files["daily"], measures=["realized_variance"])
     assert "need intraday prices" in message
+
+
+def test_a_short_last_day_does_not_shorten_the_inferred_session(demo):
+    # Day 1 ends at 15:30, day 2 (cut short) at 09:33: a tie, resolved to the wider session,
+    # so the short day is reported as too sparse instead of day 1 being cut at 09:33.
+    message = _raises(prepare_daily, demo.intraday.iloc[:390 + 33], "5min")
+    assert "33 rows inside the session 09:00-15:30" in message

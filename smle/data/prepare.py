@@ -118,9 +118,12 @@ def _day_runs(day_number: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return starts, ends
 
 
-def _mode(values: np.ndarray) -> float:
+def _mode(values: np.ndarray, latest: bool = False) -> float:
+    """The most common value; among equally common ones the earliest (or the latest), so
+    that a tie widens the session rather than cutting a day short."""
     found, counts = np.unique(values, return_counts=True)
-    return float(found[np.argmax(counts)])
+    tied = found[counts == counts.max()]
+    return float(tied[-1] if latest else tied[0])
 
 
 def _usual_session(day_number: np.ndarray, clock: np.ndarray, bars: bool) -> tuple[float, float]:
@@ -136,7 +139,7 @@ def _usual_session(day_number: np.ndarray, clock: np.ndarray, bars: bool) -> tup
         if len(gaps):
             first = np.maximum(np.floor((clock[starts] - _mode(gaps)) / 60.0) * 60.0, 0.0)
     last = np.minimum(np.ceil(clock[ends] / 60.0) * 60.0, 86_400.0 - 1.0)
-    return _mode(first), _mode(last)
+    return _mode(first), _mode(last, latest=True)
 
 
 def _refuse_daily(day_number: np.ndarray, clock: np.ndarray, source: str | None) -> None:
