@@ -8,7 +8,7 @@ import pandas as pd
 import pytest
 
 from smle.data import (demo_scenario, prepare_daily, prepare_file, prepare_from_daily,
-                       read_daily_table, write_daily)
+                       read_daily_table, read_intraday, write_daily)
 from smle.data.demo import DISCLAIMER
 
 VENUE = {"timezone": "Europe/London", "session_open": "09:00", "session_close": "15:30"}
@@ -122,6 +122,9 @@ def test_default_session_follows_the_written_clock_across_a_clock_change(tmp_pat
     assert table.attrs["session"] == "09:00-15:30"
     assert table.attrs["n_outside_session"] == 0
     assert len(table) == 69
+    # The same through a frame read first: the written clock travels with it.
+    again = prepare_daily(read_intraday(scenario.files["intraday"]), "5min")
+    pd.testing.assert_frame_equal(again, table, check_freq=False)
     reference = prepare_daily(scenario.intraday, "5min", **VENUE)
     np.testing.assert_allclose(table["realized_variance_pct2"],
                                reference["realized_variance_pct2"], rtol=1e-12)

@@ -66,6 +66,9 @@ def load_table(source) -> tuple[pd.DataFrame, str | None]:
             frame = frame.reset_index()
         frame = frame.copy()
         frame.attrs = {"notes": list(source.attrs.get("notes", []))}
+        offsets = source.attrs.get("utc_offset_ns")
+        if offsets is not None and len(offsets) == len(frame):
+            frame.attrs["utc_offset_ns"] = np.asarray(offsets)  # the clock as written
         return frame, None
     if isinstance(source, pd.Series):
         return load_table(source.to_frame())
@@ -482,6 +485,7 @@ def read_intraday(source, *, time_column: str | None = None, price_column: str |
             raise SmleInputError(f"{name}={describe(zone)} is not accepted; use an IANA time "
                                  f"zone name such as 'UTC' or 'Europe/London'")
     frame, source_name = load_table(source)
+    given_offsets = frame.attrs.get("utc_offset_ns")  # from an earlier read_intraday
     checker = RowChecker(repair, source_name, "timestamp")
     checker.notes.extend(frame.attrs.get("notes", []))
     key = _find_key(frame, time_column, "time_column")
@@ -505,7 +509,7 @@ def read_intraday(source, *, time_column: str | None = None, price_column: str |
     instants = stamps.as_unit("ns").asi8 if stamps.tz is not None else None
     frame = frame.set_axis(stamps.rename("timestamp"))
     frame, stamps = checks.check_missing_key(frame, stamps, checker, raw.set_axis(stamps))
-    written = None
+    written = given_offsets if timezone is None else None
     if timezone is None and not pd.api.types.is_datetime64_any_dtype(raw) \
             and stamps.tz is not None:
         # Offsets in the text: keep the clock as written for the session (per original row).
