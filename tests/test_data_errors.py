@@ -14,6 +14,9 @@ from smle.data import prepare_daily, prepare_from_daily, read_daily, read_intrad
 from smle.errors import SmleInputError
 
 
+SESSION = {"session_open": "09:30", "session_close": "16:00"}
+
+
 def _daily_bars(n=6):
     dates = pd.bdate_range("2031-06-02", periods=n).strftime("%Y-%m-%d")
     close = 100 + np.arange(n, dtype=float)
@@ -116,13 +119,13 @@ def test_too_few_observations_for_the_interval():
     # intervals of a 09:30-16:00 session.
     day = frame["timestamp"].str.startswith("2031-06-04")
     sparse = frame[~day | (np.arange(len(frame)) % 10 == 0)].reset_index(drop=True)
-    message = _raises(prepare_daily, sparse, "5min")
+    message = _raises(prepare_daily, sparse, "5min", **SESSION)
     assert message.startswith("day 2031-06-04 (session day 2, starting at row 780 (0-based data row; "
                                   "timestamp 2031-06-04 09:31:00+00:00)): ")
     assert "39 rows inside the session 09:30-16:00" in message
     assert "a session needs at least 78 rows for interval 5min" in message
     # A longer interval needs fewer rows: 13 half-hours.
-    table = prepare_daily(sparse, "30min")
+    table = prepare_daily(sparse, "30min", **SESSION)
     assert len(table) == 3
 
 
@@ -181,5 +184,5 @@ def test_nonexistent_local_time_on_a_clock_change():
     ({"timezone": "Mars/Olympus"}, "not a known time zone"),
 ])
 def test_bad_arguments_name_the_argument(arguments, fragment):
-    options = {"interval": "5min", **arguments}
+    options = {"interval": "5min", **SESSION, **arguments}
     assert fragment in _raises(prepare_daily, _minute_prices(days=2), **options)

@@ -8,7 +8,7 @@ import pandas as pd
 import pytest
 
 from smle.data import (demo_scenario, prepare_daily, prepare_file, prepare_from_daily,
-                       read_daily_table, write_daily)
+                       read_daily_table, read_intraday, write_daily)
 from smle.data.demo import DISCLAIMER
 
 VENUE = {"timezone": "Europe/London", "session_open": "09:00", "session_close": "15:30"}
@@ -88,10 +88,46 @@ def test_decimal_unit_and_chosen_measures(scenario):
 
 
 def test_rows_outside_the_session_are_counted_and_logged(scenario, caplog):
-    # With the default 09:30-16:00 session the demo's 09:01-09:30 bars fall outside.
-    table = prepare_daily(scenario.intraday, "5min", timezone="Europe/London")
+    # With a 09:30-16:00 session the demo's 09:01-09:30 bars (29 a day) fall outside.
+    table = prepare_daily(scenario.intraday, "5min", timezone="Europe/London",
+                          session_open="09:30", session_close="16:00")
     assert table.attrs["n_outside_session"] == 40 * 29
+    assert table.attrs["outside_session"] == {"before_open": 40 * 29, "after_close": 0}
     assert "fall outside the session 09:30-16:00" in caplog.text
+    assert any("1160 of 15600 intraday rows (7.4%)" in note for note in table.attrs["notes"])
+
+
+def test_default_session_is_the_datas_own(scenario):
+    # The demo's session is 09:00-15:30 London time (demo.SESSION_OPEN/CLOSE). By default the
+    # session is inferred from the data, nothing is dropped, and the table is the one with
+    # the venue's session and zone given.
+    for source in (scenario.intraday, scenario.files["intraday"]):
+        table = prepare_daily(source, "5min")
+        assert table.attrs["session"] == "09:00-15:30"
+        assert table.attrs["n_outside_session"] == 0
+        pd.testing.assert_frame_equal(
+            table, prepare_daily(scenario.intraday, "5min", **VENUE), check_freq=False)
+
+
+def test_default_session_follows_the_written_clock_across_a_clock_change(tmp_path):
+    # 70 business days from 2031-01-06 cross the change to summer time (2031-03-30): the file
+    # carries +00:00 and then +01:00. Read in UTC, summer sessions would start at 08:00 and
+    # lose an hour; read as written, every row is inside 09:00-15:30.
+    scenario = demo_scenario(seed=5, n_days=70, folder=tmp_path)
+    scenario_start = scenario.intraday.index[0]
+    assert str(scenario_start.tz) == "Europe/London"
+    text = scenario.files["intraday"].read_text()
+    assert "+00:00" in text and "+01:00" in text
+    table = prepare_daily(scenario.files["intraday"], "5min")
+    assert table.attrs["session"] == "09:00-15:30"
+    assert table.attrs["n_outside_session"] == 0
+    assert len(table) == 69
+    # The same through a frame read first: the written clock travels with it.
+    again = prepare_daily(read_intraday(scenario.files["intraday"]), "5min")
+    pd.testing.assert_frame_equal(again, table, check_freq=False)
+    reference = prepare_daily(scenario.intraday, "5min", **VENUE)
+    np.testing.assert_allclose(table["realized_variance_pct2"],
+                               reference["realized_variance_pct2"], rtol=1e-12)
 
 
 def test_write_and_read_back(scenario, tmp_path):

@@ -3,7 +3,8 @@
 Readers (:func:`read_daily`, :func:`read_ohlc`, :func:`read_intraday`) check every row and
 name the row and the rule of any bad one (:class:`smle.errors.SmleInputError`), or repair
 it when asked with ``repair="drop"`` (logged to the ``smle.data`` logger and recorded in
-``attrs["repairs"]``). :func:`prepare_daily` (intraday) and :func:`prepare_from_daily`
+``attrs["repairs"]``); what they inferred without an error (encoding, separator, a reversed
+newest-first order, the session, zero returns) is in ``attrs["notes"]``. :func:`prepare_daily` (intraday) and :func:`prepare_from_daily`
 (daily bars or closes) build the table; :func:`prepare_file` is the whole ``smle prepare``
 job. :func:`demo_scenario` simulates an invented instrument for demonstrations (not real
 data). Returns are log returns in percent by default; column names state the unit.

@@ -16,11 +16,31 @@ from typing import NamedTuple
 import numpy as np
 import pandas as pd
 
-from smle.errors import SmleInputError
+from smle.errors import SmleInputError, describe
 
 logger = logging.getLogger("smle.data")
 
 REPAIR_CHOICES = ("raise", "drop")
+
+# Command-line flags of the Python arguments that messages suggest, so that a message reads
+# right from Python and from ``smle prepare`` (smle/cli/app.py). "--price-column" is the
+# name proposed for the flag still to be added there.
+COMMAND_LINE_FLAGS = {"repair": "--drop-bad-rows", "session_open": "--session-open",
+                      "session_close": "--session-close", "timezone": "--timezone",
+                      "interval": "--interval", "kind": "--kind",
+                      "price_column": "--price-column"}
+
+
+def suggest(argument: str, python_value: str, flag_value: str = "") -> str:
+    """An argument as both interfaces spell it: ``repair='drop' (command line:
+    --drop-bad-rows)``; only the Python form when no flag exists."""
+    flag = COMMAND_LINE_FLAGS.get(argument)
+    if flag is None:
+        return f"{argument}={python_value}"
+    return f"{argument}={python_value} (command line: {flag}{' ' + flag_value if flag_value else ''})"
+
+
+DROP_HINT = suggest("repair", "'drop'")
 
 # The name of the hidden column that carries each row's original position through sorting
 # and dropping. It never appears in returned frames.
@@ -55,6 +75,21 @@ def check_repair(repair: str) -> str:
     return repair
 
 
+def positive_integer(value, argument: str) -> int:
+    """An integer argument of at least 1, or a clear error."""
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
+        raise SmleInputError(f"{argument}={describe(value)} is not accepted; use a positive "
+                             f"integer (1, 2, ...)")
+    return int(value)
+
+
+def flag(value, argument: str) -> bool:
+    """A true/false argument, or a clear error (a string such as 'no' would count as true)."""
+    if not isinstance(value, (bool, np.bool_)):
+        raise SmleInputError(f"{argument}={describe(value)} is not accepted; use True or False")
+    return bool(value)
+
+
 def row_name(position: int, label, source: str | None) -> str:
     """How a row is named in messages: its position, its file line and its key."""
     where = f"row {int(position)} (0-based data row"
@@ -78,6 +113,7 @@ class RowChecker:
         self.source = source
         self.key_name = key_name
         self.repairs: list[Repair] = []
+        self.notes: list[str] = []
 
     def label(self, key) -> str:
         if isinstance(key, pd.Timestamp) and key.tz is None and key == key.normalize():
@@ -103,11 +139,16 @@ class RowChecker:
         if self.repair == "raise":
             first = locations[0]
             others = len(locations) - 1
-            more = f" ({others} more row{'s' if others != 1 else ''} break the same rule)" if others else ""
+            more = ""
+            if others:
+                shown = ", ".join(str(int(positions[i])) for i in locations[1:6])
+                more = (f" ({others} more row{'s' if others != 1 else ''} break the same rule, "
+                        f"at data row{'s' if others != 1 else ''} {shown}"
+                        f"{', ...' if others > 5 else ''})")
             raise SmleInputError(
                 f"{row_name(positions[first], self.label(frame.index[first]), self.source)}: "
                 f"{detail_of(first)}; rule broken: {rule}{more}. {hint}"
-                f"Fix the data, or pass repair='drop' to drop such rows (logged).")
+                f"Fix the data, or pass {DROP_HINT} to drop such rows (logged).")
         for location in locations:
             self.repairs.append(Repair(rule, "dropped row", int(positions[location]),
                                        self.label(frame.index[location]), detail_of(location)))
@@ -138,7 +179,7 @@ def check_missing_key(frame: pd.DataFrame, keys: pd.Index, checker: RowChecker,
     if bad.any():
         frame = checker.apply(
             frame, bad, f"every row needs a readable {checker.key_name}",
-            lambda i: f"{checker.key_name} {raw.iloc[i]!r} is missing or unreadable")
+            lambda i: f"{checker.key_name} {describe(raw.iloc[i])} is missing or unreadable")
         keys = keys[~bad]
     return frame, keys
 
@@ -189,10 +230,19 @@ def key_values(index: pd.Index) -> np.ndarray:
 def check_order(frame: pd.DataFrame, checker: RowChecker) -> pd.DataFrame:
     """Keys must be strictly increasing: neither out of order nor repeated.
 
-    With ``repair="drop"`` rows out of order are sorted into place (stable sort, recorded as
-    ``"sorted"``), then later rows repeating an earlier key are dropped (the first kept).
+    Rows in strictly decreasing order throughout (newest first, as many downloads come) are
+    reversed, and a note says so (``checker.notes``). Otherwise, with ``repair="drop"`` rows
+    out of order are sorted into place (stable sort, recorded as ``"sorted"``), then later
+    rows repeating an earlier key are dropped (the first kept); without it either is an error
+    naming the row.
     """
     keys = key_values(frame.index)
+    if len(keys) > 2 and np.all(keys[1:] <= keys[:-1]) and keys[-1] < keys[0]:
+        checker.notes.append(
+            f"rows were in newest-first order ({checker.label(frame.index[0])} first); they "
+            f"were reversed to oldest-first")
+        frame = frame.iloc[::-1]
+        keys = key_values(frame.index)
     positions = frame[POSITION].to_numpy()
     if len(keys) > 1:
         backwards = np.flatnonzero(keys[1:] < keys[:-1]) + 1
@@ -203,8 +253,8 @@ def check_order(frame: pd.DataFrame, checker: RowChecker) -> pd.DataFrame:
                     f"{row_name(positions[i], checker.label(frame.index[i]), checker.source)}: "
                     f"comes before the previous row's {checker.key_name} "
                     f"{frame.index[i - 1]}; rule broken: rows must be sorted by "
-                    f"{checker.key_name} ({len(backwards)} such break(s) in all). Sort the data, "
-                    f"or pass repair='drop' to sort it (logged).")
+                    f"{checker.key_name}, oldest first ({len(backwards)} such break(s) in all). "
+                    f"Sort the data, or pass {DROP_HINT} to sort it (logged).")
             checker.record(f"rows must be sorted by {checker.key_name}", "sorted",
                            positions[backwards], [checker.label(frame.index[i]) for i in backwards],
                            [f"came after {checker.key_name} {frame.index[i - 1]}" for i in backwards])

@@ -26,6 +26,8 @@ from typing import NamedTuple
 import numpy as np
 import pandas as pd
 
+from smle.errors import SmleInputError, describe
+
 INSTRUMENT = "Marrowby Barley Composite"
 VENUE = "Quillhaven Commodity Exchange"
 DISCLAIMER = (f"DEMO DATA ONLY: '{INSTRUMENT}' on the '{VENUE}' are invented; these prices "
@@ -65,6 +67,36 @@ def _intraday_pattern(n_steps: int, strength: float) -> np.ndarray:
     return weights / weights.sum()
 
 
+def _check_arguments(**values) -> None:
+    """Each argument of :func:`demo_scenario` in its accepted range, or a clear error."""
+    integers = {"seed": (0, "a non-negative integer"), "n_days": (1, "a positive integer"),
+                "step_seconds": (1, "a positive integer"),
+                "bar_minutes": (1, "a positive integer")}
+    for name, (lowest, accepted) in integers.items():
+        value = values[name]
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < lowest:
+            raise SmleInputError(f"{name}={describe(value)} is not accepted; use {accepted}")
+    ranges = {"mu": (-np.inf, np.inf, "a finite number"),
+              "phi": (-1.0, 1.0, "-1 < phi < 1"),
+              "sigma_eta": (0.0, np.inf, "sigma_eta > 0"),
+              "mixing_high": (0.0, np.inf, "mixing_high > 0"),
+              "mixing_stay": (0.0, 1.0, "0 <= mixing_stay <= 1 (a probability)"),
+              "overnight_share": (0.0, 1.0, "0 <= overnight_share < 1"),
+              "start_price": (0.0, np.inf, "start_price > 0")}
+    inclusive = {"mixing_stay": (True, True), "overnight_share": (True, False)}
+    for name, (low, high, accepted) in ranges.items():
+        value = values[name]
+        try:
+            number = float(value)
+        except (TypeError, ValueError):
+            number = np.nan
+        closed_low, closed_high = inclusive.get(name, (False, False))
+        above = number >= low if closed_low else number > low
+        below = number <= high if closed_high else number < high
+        if isinstance(value, bool) or not (np.isfinite(number) and above and below):
+            raise SmleInputError(f"{name}={describe(value)} is not accepted; use {accepted}")
+
+
 def demo_scenario(seed: int, n_days: int = 250, folder=None, *, mu: float = 0.0,
                   phi: float = 0.97, sigma_eta: float = 0.15, mixing_high: float = 2.0,
                   mixing_stay: float = 0.985, overnight_share: float = 0.2,
@@ -87,12 +119,19 @@ def demo_scenario(seed: int, n_days: int = 250, folder=None, *, mu: float = 0.0,
     Returns:
       A :class:`DemoScenario`.
     """
+    _check_arguments(seed=seed, n_days=n_days, mu=mu, phi=phi, sigma_eta=sigma_eta,
+                     mixing_high=mixing_high, mixing_stay=mixing_stay,
+                     overnight_share=overnight_share, step_seconds=step_seconds,
+                     bar_minutes=bar_minutes, start_price=start_price)
     rng = np.random.default_rng(seed)
     open_minutes = 9 * 60
     session_minutes = 6 * 60 + 30
     steps_per_bar = bar_minutes * 60 // step_seconds
     if steps_per_bar * step_seconds != bar_minutes * 60 or session_minutes % bar_minutes:
-        raise ValueError("step_seconds must divide the bar, and the bar the 390-minute session")
+        raise SmleInputError(
+            f"step_seconds={step_seconds!r} and bar_minutes={bar_minutes!r} are not accepted "
+            f"together: step_seconds must divide the bar ({bar_minutes * 60} s), and "
+            f"bar_minutes the 390-minute session (1, 2, 3, 5, 6, 10, 13, 15, 26, 30, ...)")
     n_bars = session_minutes // bar_minutes
     n_steps = n_bars * steps_per_bar
 

@@ -21,13 +21,18 @@ its columns carry their units (see :mod:`smle.data.units`); with the default uni
 With ``add_overnight=True`` every variance gets the squared overnight return added and its
 name the part ``_whole_day`` (``realized_variance_whole_day_pct2``). The first session day
 only supplies a previous close and is not a row. ``attrs`` states units, interval, session,
-time zone, the number of rows outside the session, and ``repairs``.
+time zone, the rows outside the session (by reason), ``repairs``, ``n_zero_returns`` and
+``notes``: sentences on what was inferred or found without being an error (the file's
+encoding or separator, a reversed newest-first order, day-first dates, the inferred session,
+rows left out, zero returns, which are kept as observations).
 """
 
 from __future__ import annotations
 
+import inspect
 import json
 import logging
+import os
 from pathlib import Path
 
 import numpy as np
@@ -43,8 +48,9 @@ REALIZED_MEASURES = ("realized_variance", "bipower_variation", "subsampled_reali
 RANGE_MEASURES = tuple(ranges.ESTIMATORS)
 DEFAULT_MEASURES = REALIZED_MEASURES + RANGE_MEASURES
 
-DEFAULT_SESSION_OPEN = "09:30"
-DEFAULT_SESSION_CLOSE = "16:00"
+# None: the session is the data's own (the usual time of each day's first and last rows).
+DEFAULT_SESSION_OPEN = None
+DEFAULT_SESSION_CLOSE = None
 DEFAULT_INTERVAL = "5min"
 
 _DAY_NS = 86_400 * 10**9
@@ -81,19 +87,95 @@ def _interval_seconds(interval, session_seconds: float) -> float:
 
 
 def _check_measures(measures) -> tuple[str, ...]:
-    measures = tuple(measures)
-    unknown = [name for name in measures if name not in DEFAULT_MEASURES]
-    if unknown:
+    if isinstance(measures, str):
+        measures = (measures,)  # one name, not its letters
+    try:
+        measures = tuple(measures)
+    except TypeError:
         raise SmleInputError(
-            f"measures={measures!r} has unknown names {unknown}; accepted: {DEFAULT_MEASURES}")
+            f"measures={describe(measures)} is not accepted; give a name or a list of names "
+            f"from {DEFAULT_MEASURES}") from None
+    unknown = [name for name in measures if name not in DEFAULT_MEASURES]
+    if unknown or not measures:
+        raise SmleInputError(
+            f"measures={measures!r} has unknown names {unknown}; accepted: a name or a list of "
+            f"names from {DEFAULT_MEASURES}" if unknown else
+            f"measures={measures!r} is empty; accepted: names from {DEFAULT_MEASURES}")
     return measures
+
+
+def _clock_text(seconds: float) -> str:
+    whole = int(round(seconds))
+    hours, rest = divmod(whole, 3600)
+    minutes, secs = divmod(rest, 60)
+    return f"{hours:02d}:{minutes:02d}" + (f":{secs:02d}" if secs else "")
+
+
+def _day_runs(day_number: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """First and last row of each run of equal day numbers (data are sorted in time)."""
+    starts = np.flatnonzero(np.r_[True, day_number[1:] != day_number[:-1]])
+    ends = np.r_[starts[1:], len(day_number)] - 1
+    return starts, ends
+
+
+def _mode(values: np.ndarray, latest: bool = False) -> float:
+    """The most common value; among equally common ones the earliest (or the latest), so
+    that a tie widens the session rather than cutting a day short."""
+    found, counts = np.unique(values, return_counts=True)
+    tied = found[counts == counts.max()]
+    return float(tied[-1] if latest else tied[0])
+
+
+def _usual_session(day_number: np.ndarray, clock: np.ndarray, bars: bool) -> tuple[float, float]:
+    """The data's own session, in seconds after midnight: the most common minute of a day's
+    first row (for bars stamped at their end, less the most common bar length) and of its
+    last row (rounded up to the minute)."""
+    starts, ends = _day_runs(day_number)
+    first = np.floor(clock[starts] / 60.0) * 60.0
+    if bars:
+        same_day = day_number[1:] == day_number[:-1]
+        gaps = np.diff(clock)[same_day]
+        gaps = gaps[gaps > 0]
+        if len(gaps):
+            first = np.maximum(np.floor((clock[starts] - _mode(gaps)) / 60.0) * 60.0, 0.0)
+    last = np.minimum(np.ceil(clock[ends] / 60.0) * 60.0, 86_400.0 - 1.0)
+    return _mode(first), _mode(last, latest=True)
+
+
+def _refuse_daily(day_number: np.ndarray, clock: np.ndarray, source: str | None) -> None:
+    """Intraday preparation needs several rows per day: one a day means daily data."""
+    starts, _ = _day_runs(day_number)
+    if len(starts) > 1 and len(starts) == len(day_number):
+        where = f" in {source}" if source is not None else ""
+        at = "midnight" if not clock.any() else "one time a day"
+        raise SmleInputError(
+            f"source{where} has one row per date ({len(starts)} dates, at {at}): these are "
+            f"daily data, and intraday preparation needs several rows per day. Use "
+            f"prepare_from_daily, or prepare_file(kind='daily') (command line: smle prepare "
+            f"--kind daily, or the default --kind auto)")
+
+
+def _note_zero_returns(table: pd.DataFrame, unit: str, notes: list[str]) -> None:
+    """Count close-to-close returns that are exactly zero (a holiday carried as an unchanged
+    close, or a stale price); they stay in the table as observations."""
+    returns = table[units.return_name("return", unit)].to_numpy()
+    zero = np.flatnonzero(returns == 0.0)
+    table.attrs["n_zero_returns"] = int(len(zero))
+    if len(zero):
+        shown = ", ".join(str(getattr(day, "date", lambda: day)()) for day in table.index[zero[:5]])
+        notes.append(
+            f"{len(zero)} of {len(returns)} daily returns are exactly zero ({shown}"
+            f"{', ...' if len(zero) > 5 else ''}): an unchanged close, as when a holiday is "
+            f"carried as a day without trading; they are kept as observations (a zero return "
+            f"says the day had no variation, which lowers the estimated volatility); drop "
+            f"those rows from the input if they are not trading days")
 
 
 def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURES,
                   subsamples: int = 5, add_overnight: bool = False,
-                  session_open: str = DEFAULT_SESSION_OPEN,
-                  session_close: str = DEFAULT_SESSION_CLOSE,
-                  timezone: str = readers.DEFAULT_TIMEZONE, source_timezone: str | None = None,
+                  session_open: str | None = DEFAULT_SESSION_OPEN,
+                  session_close: str | None = DEFAULT_SESSION_CLOSE,
+                  timezone: str | None = readers.DEFAULT_TIMEZONE, source_timezone: str | None = None,
                   time_column: str | None = None, price_column: str | None = None,
                   columns: dict | None = None, bar_timestamp: str = "end",
                   bar_length: str | None = None, min_observations: int | None = None,
@@ -110,11 +192,18 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
       add_overnight: add the squared overnight return to each variance, for a whole-day
         measure (columns then named ``..._whole_day_pct2``).
       session_open, session_close: the trading session, as ``"HH:MM[:SS]"`` clock times in
-        ``timezone`` (defaults 09:30 and 16:00). Rows outside it are left out (counted in
-        ``attrs["n_outside_session"]`` and logged). Sessions over midnight are not supported.
-      timezone: the venue's time zone (default ``"UTC"``); see :func:`read_intraday`.
-      source_timezone, time_column, price_column, columns, bar_timestamp, bar_length: passed
-        to :func:`smle.data.read_intraday`.
+        ``timezone``. By default (None) the data's own session: the most common minute of a
+        day's first row (for bars, less the usual bar length, since a bar is stamped at its
+        end) and of its last row; what was inferred is in ``attrs["notes"]``. Rows outside
+        the session are left out, counted by reason in ``attrs["outside_session"]``
+        (``before_open``, ``after_close``; the total in ``attrs["n_outside_session"]``),
+        noted and logged. Sessions over midnight are not supported.
+      timezone: the venue's time zone; by default (None) the clock as written in the data
+        (see :func:`smle.data.read_intraday`).
+      source_timezone, time_column, columns, bar_timestamp, bar_length: passed to
+        :func:`smle.data.read_intraday`.
+      price_column: the column of prices when it is not found by name (for bars, reads
+        that one column as prices instead).
       min_observations: a session with fewer rows than this is an error (or, with
         ``repair="drop"``, dropped); by default one row per sampling interval.
       min_days: fewer usable session days than this is an error (the first day only gives a
@@ -128,19 +217,15 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
     """
     measures = _check_measures(measures)
     scale = units.scale(unit)
-    if int(subsamples) < 1:
-        raise SmleInputError(f"subsamples={subsamples!r} must be a positive integer")
-    open_seconds = _clock_seconds(session_open, "session_open")
-    close_seconds = _clock_seconds(session_close, "session_close")
-    if close_seconds <= open_seconds:
-        raise SmleInputError(
-            f"session_close={session_close!r} must be later than session_open="
-            f"{session_open!r} on the same day (sessions over midnight are not supported)")
-    length = close_seconds - open_seconds
-    interval_seconds = _interval_seconds(interval, length)
-    n_intervals = int(np.ceil(length / interval_seconds - 1e-9))
-    if min_observations is None:
-        min_observations = n_intervals
+    subsamples = checks.positive_integer(subsamples, "subsamples")
+    if min_observations is not None:
+        min_observations = checks.positive_integer(min_observations, "min_observations")
+    min_days = checks.positive_integer(min_days, "min_days")
+    add_overnight = checks.flag(add_overnight, "add_overnight")
+    given_open = None if session_open is None else _clock_seconds(session_open, "session_open")
+    given_close = None if session_close is None else _clock_seconds(session_close,
+                                                                     "session_close")
+    _interval_seconds(interval, _DAY_NS / 1e9)
 
     earlier = list(source.attrs.get("repairs", [])) if isinstance(source, pd.DataFrame) else []
     intraday = readers.read_intraday(
@@ -149,18 +234,54 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
         bar_length=bar_length, repair=repair)
     source_name = intraday.attrs["source"]
     repairs: list[Repair] = earlier + list(intraday.attrs["repairs"])
+    notes: list[str] = list(intraday.attrs.get("notes", []))
     positions = intraday.attrs["positions"]
     bars = intraday.attrs["kind"] == "bars"
 
     # Venue wall-clock time: whole days and seconds after midnight, straight from int64.
-    wall = intraday.index.tz_localize(None).as_unit("ns").asi8
+    if "utc_offset_ns" in intraday.attrs:
+        wall = intraday.index.as_unit("ns").asi8 + intraday.attrs["utc_offset_ns"]
+    else:
+        wall = intraday.index.tz_localize(None).as_unit("ns").asi8
     day_number = wall // _DAY_NS
     clock = (wall - day_number * _DAY_NS) / 1e9
-    inside = (clock >= open_seconds) & (clock <= close_seconds)
-    n_outside = int(np.count_nonzero(~inside))
+    _refuse_daily(day_number, clock, source_name)
+    inferred_open, inferred_close = _usual_session(day_number, clock, bars)
+    open_seconds = inferred_open if given_open is None else given_open
+    close_seconds = inferred_close if given_close is None else given_close
+    session_open = _clock_text(open_seconds) if session_open is None else session_open
+    session_close = _clock_text(close_seconds) if session_close is None else session_close
+    if close_seconds <= open_seconds:
+        raise SmleInputError(
+            f"session_close={session_close!r} must be later than session_open="
+            f"{session_open!r} on the same day (sessions over midnight are not supported); "
+            f"the data's usual session is {_clock_text(inferred_open)}-"
+            f"{_clock_text(inferred_close)}")
+    if given_open is None or given_close is None:
+        notes.append(f"session {session_open}-{session_close} (clock: "
+                     f"{intraday.attrs['timezone']}) inferred from the data, from the usual time "
+                     f"of each day's first and last rows; set {checks.suggest('session_open', repr(session_open), session_open)} and "
+                     f"{checks.suggest('session_close', repr(session_close), session_close)} "
+                     f"to choose another")
+    length = close_seconds - open_seconds
+    interval_seconds = _interval_seconds(interval, length)
+    n_intervals = int(np.ceil(length / interval_seconds - 1e-9))
+    if min_observations is None:
+        min_observations = n_intervals
+    zone_text = intraday.attrs["timezone"]
+    before = clock < open_seconds
+    after = clock > close_seconds
+    inside = ~(before | after)
+    outside = {"before_open": int(np.count_nonzero(before)),
+               "after_close": int(np.count_nonzero(after))}
+    n_outside = outside["before_open"] + outside["after_close"]
     if n_outside:
-        logger.warning("%d of %d intraday rows fall outside the session %s-%s (%s) and are "
-                       "left out", n_outside, len(inside), session_open, session_close, timezone)
+        text = (f"{n_outside} of {len(inside)} intraday rows ({100 * n_outside / len(inside):.1f}%)"
+                f" fall outside the session {session_open}-{session_close} (clock: {zone_text}) "
+                f"and are left out: {outside['before_open']} before the open, "
+                f"{outside['after_close']} after the close")
+        logger.warning("%s", text)
+        notes.append(text)
     keep = np.flatnonzero(inside)
 
     # Too-sparse days: count rows per day (data are sorted, so days are contiguous runs).
@@ -180,8 +301,8 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
                 f"{checks.row_name(positions[first_row], f'timestamp {intraday.index[first_row]}', source_name)}): "
                 f"{counts[first]} rows inside the session {session_open}-{session_close}; rule "
                 f"broken: {rule} ({int(sparse.sum())} such day(s) in all). Choose a longer "
-                f"interval, lower min_observations, or pass repair='drop' to drop such days "
-                f"(logged).")
+                f"interval, lower min_observations, or pass {checks.DROP_HINT} to drop such "
+                f"days (logged).")
         checker = checks.RowChecker(repair, source_name, "timestamp")
         checker.record(rule, "dropped day", positions[keep[starts[sparse]]],
                        [f"date {d.date()}" for d in dates[sparse]],
@@ -234,10 +355,12 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
     table.attrs.update(units.describe_units(unit))
     table.attrs.update({
         "interval": str(interval), "subsamples": int(subsamples),
-        "session": f"{session_open}-{session_close}", "timezone": str(timezone),
+        "session": f"{session_open}-{session_close}", "timezone": zone_text,
         "overnight_included": bool(add_overnight), "input_kind": intraday.attrs["kind"],
-        "n_outside_session": n_outside, "source": source_name,
+        "n_outside_session": n_outside, "outside_session": outside, "source": source_name,
         "repairs": repairs})
+    _note_zero_returns(table, unit, notes)
+    table.attrs["notes"] = notes
     return table
 
 
@@ -278,7 +401,15 @@ def prepare_from_daily(source, *, measures=RANGE_MEASURES, add_overnight: bool =
       A DataFrame indexed by ``date``: ``return_pct``, and from bars also
       ``overnight_return_pct``, ``session_return_pct`` and the range estimators.
     """
-    measures = tuple(name for name in _check_measures(measures) if name in RANGE_MEASURES)
+    asked = _check_measures(measures)
+    realized_asked = [name for name in asked if name not in RANGE_MEASURES]
+    if realized_asked:
+        raise SmleInputError(
+            f"measures={asked!r}: {realized_asked} need intraday prices (several a day); from "
+            f"daily data the accepted measures are {RANGE_MEASURES}")
+    measures = asked
+    min_days = checks.positive_integer(min_days, "min_days")
+    add_overnight = checks.flag(add_overnight, "add_overnight")
     frame, _ = readers.load_table(source)
     lowered = {str(column).strip().lower() for column in frame.columns}
     is_bars = columns is not None or set(readers.BAR_FIELDS) <= lowered
@@ -293,6 +424,14 @@ def prepare_from_daily(source, *, measures=RANGE_MEASURES, add_overnight: bool =
     else:
         closes = readers.read_daily(source, date_column=date_column, price_column=price_column,
                                     repair=repair, min_rows=max(min_days, 2))
+        if "close" not in closes.columns:
+            where = f" {closes.attrs['source']}" if closes.attrs["source"] else ""
+            raise SmleInputError(
+                f"source{where} has no price column, only returns (columns "
+                f"{list(frame.columns)}); preparation turns prices into returns and measures. "
+                f"Returns can be fitted directly (command line: smle fit FILE --column NAME), "
+                f"or read with read_daily(source, return_column=...); if a column does hold "
+                f"prices, name it with {checks.suggest('price_column', repr('NAME'), 'NAME')}")
         bars = closes
         log_close = np.log(closes["close"].to_numpy())
         table = pd.DataFrame(
@@ -302,6 +441,9 @@ def prepare_from_daily(source, *, measures=RANGE_MEASURES, add_overnight: bool =
     table.attrs.update(units.describe_units(unit))
     table.attrs.update({"input_kind": kind, "overnight_included": bool(add_overnight),
                         "source": bars.attrs["source"], "repairs": bars.attrs["repairs"]})
+    notes = list(bars.attrs.get("notes", []))
+    _note_zero_returns(table, unit, notes)
+    table.attrs["notes"] = notes
     return table
 
 
@@ -316,7 +458,7 @@ def write_daily(table: pd.DataFrame, path, *, metadata: bool = True) -> Path:
     Returns:
       The path of the CSV file.
     """
-    path = Path(path)
+    path = _writable(path, "path")
     table.to_csv(path, index=True, index_label="date", date_format="%Y-%m-%d",
                  float_format="%.10g")
     if metadata:
@@ -328,20 +470,57 @@ def write_daily(table: pd.DataFrame, path, *, metadata: bool = True) -> Path:
     return path
 
 
+def _writable(path, argument: str) -> Path:
+    """A path a CSV can be written to, or a clear error."""
+    if not isinstance(path, (str, os.PathLike)):
+        raise SmleInputError(f"{argument}={describe(path)} is not accepted; give a file path")
+    path = Path(path)
+    if path.is_dir():
+        raise SmleInputError(f"{argument}={str(path)!r} is a directory; give a file path such "
+                             f"as {str(path / 'daily.csv')!r}")
+    if not path.parent.is_dir():
+        raise SmleInputError(f"{argument}={str(path)!r}: the folder {str(path.parent)!r} does "
+                             f"not exist; create it first")
+    return path
+
+
 def read_daily_table(path) -> pd.DataFrame:
-    """Read a table written by :func:`write_daily` (with its ``attrs`` when the JSON is there)."""
+    """Read a table written by :func:`write_daily` (with its ``attrs`` when the JSON is there).
+
+    The file must have a ``date`` column of readable dates, oldest first without repeats, and
+    numbers in every other column; anything else is an error naming the row.
+    """
     path = Path(path)
     if not path.exists():
         raise SmleInputError(f"path={str(path)!r}: no such file")
-    table = pd.read_csv(path, index_col="date", parse_dates=["date"])
-    if isinstance(table.index, pd.DatetimeIndex):
-        table.index = table.index.as_unit("ns")
+    frame, name = readers.load_table(path)
+    if "date" not in frame.columns:
+        raise SmleInputError(
+            f"path={str(path)!r} has no 'date' column (columns {list(frame.columns)}); "
+            f"accepted: a daily table written by write_daily or smle prepare")
+    checker = checks.RowChecker("raise", name, "date")
+    frame = frame.copy()
+    frame[checks.POSITION] = np.arange(len(frame))
+    raw = frame.pop("date")
+    keys = pd.DatetimeIndex(readers._wall_clock(raw), name="date").as_unit("ns")
+    frame = frame.set_axis(keys)
+    frame, keys = checks.check_missing_key(frame, keys, checker, raw.set_axis(keys))
+    data_columns = [column for column in frame.columns if column != checks.POSITION]
+    frame = readers._as_numbers(frame, data_columns, checker)
+    frame = checks.check_order(frame, checker)
+    table = frame[data_columns]
     meta = _metadata_path(path)
     if meta.exists():
-        with open(meta, encoding="utf-8") as handle:
-            attrs = json.load(handle)
-        attrs.pop("columns", None)
-        attrs["repairs"] = [Repair(**repair) for repair in attrs.get("repairs", [])]
+        try:
+            with open(meta, encoding="utf-8") as handle:
+                attrs = json.load(handle)
+            attrs.pop("columns", None)
+            attrs["repairs"] = [Repair(**repair) for repair in attrs.get("repairs", [])]
+        except (OSError, ValueError, TypeError, AttributeError) as error:
+            raise SmleInputError(
+                f"{meta.name} beside path={str(path)!r} is not the JSON that write_daily "
+                f"writes ({type(error).__name__}: {error}); delete it or write the table "
+                f"again") from None
         table.attrs.update(attrs)
     return table
 
@@ -357,8 +536,7 @@ def _looks_intraday(source, time_column) -> bool:
     raw = frame[key]
     if pd.api.types.is_integer_dtype(raw):
         return False
-    stamps = readers._parse_timestamps(raw)
-    dates = stamps.tz_localize(None).normalize() if stamps.tz is not None else stamps.normalize()
+    dates = pd.DatetimeIndex(readers._wall_clock(raw)).normalize()
     return bool(dates.dropna().has_duplicates)
 
 
@@ -386,6 +564,16 @@ def prepare_file(input_path, output_path=None, *, interval=DEFAULT_INTERVAL,
         frame, _ = readers.load_table(input_path)
         kind = "intraday" if _looks_intraday(
             frame, options.get("time_column") or options.get("date_column")) else "daily"
+    target = prepare_daily if kind == "intraday" else prepare_from_daily
+    accepted = [name for name, parameter in inspect.signature(target).parameters.items()
+                if parameter.kind is inspect.Parameter.KEYWORD_ONLY]
+    unknown = sorted(set(options) - set(accepted))
+    if unknown:
+        raise SmleInputError(
+            f"{', '.join(f'{name}={describe(options[name])}' for name in unknown)}: not an "
+            f"option of {target.__name__} ({kind} input); accepted: {accepted}")
+    if output_path is not None:
+        output_path = _writable(output_path, "output_path")
     if kind == "intraday":
         table = prepare_daily(input_path, interval, **options)
     else:

@@ -11,23 +11,32 @@ returns a frame with smle's own column names, sorted by its key:
   column ``price``, or ``open``, ``high``, ``low``, ``close`` for bars.
 
 What was repaired (only with ``repair="drop"``) is in ``frame.attrs["repairs"]``, a list of
-:class:`smle.data.checks.Repair`, and in the ``smle.data`` log.
+:class:`smle.data.checks.Repair`, and in the ``smle.data`` log. What was inferred without
+being an error is in ``frame.attrs["notes"]`` (sentences): the file's encoding, separator or
+compression (see :mod:`smle.data.textfile`), day-first dates, and a file in newest-first
+order, which is reversed (any other disorder is an error naming the row, or sorted with
+``repair="drop"``; a repeated date or timestamp is an error naming the rows). Daily readers
+refuse data with several rows per calendar date (intraday prices), naming what to use.
 """
 
 from __future__ import annotations
 
+import datetime
 import os
 import re
+import warnings
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from smle.data import checks
+from smle.data import checks, textfile
 from smle.data.checks import POSITION, RowChecker
 from smle.errors import SmleInputError, describe
 
-DEFAULT_TIMEZONE = "UTC"
+# None: the clock as the data give it (see read_intraday); naive times are then read as UTC.
+DEFAULT_TIMEZONE = None
+AS_WRITTEN = "as written in the data (each row's own UTC offset; UTC where none is given)"
 
 _KEY_NAMES = ("timestamp", "datetime", "date_time", "date", "time", "day", "index")
 _KEY_FRAGMENTS = ("time", "date")
@@ -47,13 +56,20 @@ _RETURN_UNITS = {"percent": 100.0, "decimal": 1.0}
 def load_table(source) -> tuple[pd.DataFrame, str | None]:
     """A raw frame from a path or a frame, and the file name used in messages.
 
-    A frame's non-default index becomes a column so that it can serve as the key.
+    A frame's non-default index becomes a column so that it can serve as the key. What was
+    inferred while reading a file (encoding, separator, compression) is in
+    ``frame.attrs["notes"]`` (see :mod:`smle.data.textfile`).
     """
     if isinstance(source, pd.DataFrame):
         frame = source
         if not isinstance(frame.index, pd.RangeIndex):
             frame = frame.reset_index()
-        return frame.copy(), None
+        frame = frame.copy()
+        frame.attrs = {"notes": list(source.attrs.get("notes", []))}
+        offsets = source.attrs.get("utc_offset_ns")
+        if offsets is not None and len(offsets) == len(frame):
+            frame.attrs["utc_offset_ns"] = np.asarray(offsets)  # the clock as written
+        return frame, None
     if isinstance(source, pd.Series):
         return load_table(source.to_frame())
     if not isinstance(source, (str, os.PathLike)):
@@ -63,19 +79,34 @@ def load_table(source) -> tuple[pd.DataFrame, str | None]:
     path = Path(source)
     if not path.exists():
         raise SmleInputError(f"source={str(path)!r}: no such file")
+    notes: list[str] = []
     if path.suffix.lower() in (".parquet", ".pq"):
-        try:
-            import pyarrow  # noqa: F401  (only to give a clear message when it is missing)
-        except ImportError as error:
-            raise SmleInputError(
-                f"source={str(path)!r} is a Parquet file, which needs the optional package "
-                f"pyarrow (pip install pyarrow); CSV files need nothing extra") from error
-        frame = pd.read_parquet(path)
-        if not isinstance(frame.index, pd.RangeIndex):
-            frame = frame.reset_index()
+        frame = _read_parquet(path)
     else:
-        frame = pd.read_csv(path)
+        frame, notes = textfile.read_csv_file(path)
+    frame.attrs = {"notes": notes}
     return frame, path.name
+
+
+def _read_parquet(path: Path) -> pd.DataFrame:
+    try:
+        import pyarrow  # noqa: F401  (only to give a clear message when it is missing)
+    except ImportError as error:
+        raise SmleInputError(
+            f"source={str(path)!r} is a Parquet file, which needs the optional package "
+            f"pyarrow (pip install pyarrow); CSV files need nothing extra") from error
+    if path.is_dir():
+        raise SmleInputError(f"source={str(path)!r} is a directory, not a file; accepted: "
+                              f"{textfile.ACCEPTED}")
+    try:
+        frame = pd.read_parquet(path)
+    except Exception as error:  # pyarrow raises several unrelated types for a damaged file
+        raise SmleInputError(
+            f"source={str(path)!r} could not be read as Parquet ({type(error).__name__}: "
+            f"{' '.join(str(error).split())[:200]}); accepted: {textfile.ACCEPTED}") from None
+    if not isinstance(frame.index, pd.RangeIndex):
+        frame = frame.reset_index()
+    return frame
 
 
 def find_column(frame: pd.DataFrame, given: str | None, names, fragments, what: str,
@@ -84,7 +115,7 @@ def find_column(frame: pd.DataFrame, given: str | None, names, fragments, what: 
     (case and surrounding spaces ignored), else the first containing one of ``fragments``."""
     columns = [column for column in frame.columns if column not in exclude]
     if given is not None:
-        if given not in frame.columns:
+        if not isinstance(given, (str, int)) or given not in frame.columns:
             raise SmleInputError(
                 f"{argument}={given!r} is not a column; the columns are {list(frame.columns)}")
         return given
@@ -99,7 +130,8 @@ def find_column(frame: pd.DataFrame, given: str | None, names, fragments, what: 
                 return column
     if required:
         raise SmleInputError(
-            f"no {what} column found among {list(frame.columns)}; name it with {argument}=...")
+            f"no {what} column found among {list(frame.columns)}; name it with "
+            f"{checks.suggest(argument, chr(39) + '...' + chr(39), 'NAME')}")
     return None
 
 
@@ -122,14 +154,31 @@ def _finish(frame: pd.DataFrame, checker: RowChecker, columns: list[str]) -> pd.
     out.attrs["positions"] = frame[POSITION].to_numpy()
     out.attrs["repairs"] = list(checker.repairs)
     out.attrs["source"] = checker.source
+    out.attrs["notes"] = list(checker.notes)
     return out
 
 
-def _as_numbers(frame: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
-    """Columns as floats; text that is not a number becomes NaN and is then reported."""
+def _as_numbers(frame: pd.DataFrame, columns: list[str], checker: RowChecker) -> pd.DataFrame:
+    """Columns as floats. Text that is not a number is an error naming the column, the row
+    and the text (or, with ``repair="drop"``, the row is dropped); empty cells become NaN and
+    are reported by the later checks as missing."""
     for column in columns:
-        if not pd.api.types.is_numeric_dtype(frame[column]):
-            frame[column] = pd.to_numeric(frame[column], errors="coerce")
+        if pd.api.types.is_bool_dtype(frame[column]):
+            raise SmleInputError(f"column {column!r} holds true/false values, not numbers")
+        if pd.api.types.is_numeric_dtype(frame[column]):
+            continue
+        raw = frame[column]
+        numbers = pd.to_numeric(raw, errors="coerce")
+        text = raw.astype("string").str.strip()
+        bad = np.asarray(numbers.isna() & raw.notna() & (text != "").fillna(False), dtype=bool)
+        if bad.any():
+            total = int(bad.sum())
+            frame = checker.apply(
+                frame, bad, f"column '{column}' must hold numbers",
+                lambda i, r=raw, c=column: f"{c} = {describe(r.iloc[i])} is text, not a number",
+                hint=f"{total} of {len(raw)} cells of column '{column}' are text. ")
+            numbers = pd.to_numeric(frame[column], errors="coerce")
+        frame[column] = numbers
     return frame
 
 
@@ -141,13 +190,111 @@ def _daily_keys(frame: pd.DataFrame, key: str, checker: RowChecker) -> pd.DataFr
         # An integer column (a row number, a trading-day count) is accepted as an ordering key.
         keys = pd.Index(raw.to_numpy(), name="date")
     else:
-        parsed = pd.to_datetime(raw, errors="coerce")
-        if isinstance(parsed.dtype, pd.DatetimeTZDtype):
-            parsed = parsed.dt.tz_localize(None)
-        keys = pd.DatetimeIndex(parsed, name="date").as_unit("ns")
+        keys = pd.DatetimeIndex(_wall_clock(raw, checker.notes), name="date").as_unit("ns")
+        _refuse_intraday(keys, checker.source)
     frame = frame.set_axis(keys)
     frame, keys = checks.check_missing_key(frame, keys, checker, raw.set_axis(keys))
     return frame
+
+
+def _wall_clock(raw: pd.Series, notes: list[str] | None = None) -> pd.Series:
+    """Dates or times as written: a UTC offset at the end of the text is dropped, so that a
+    day is the calendar day printed in the file; unreadable entries become NaT.
+
+    Dates such as 06/01/2031 are read month first unless reading them day first leaves fewer
+    unreadable, or (all readable both ways) gives ordered dates closer together; the choice
+    of day first is noted in ``notes``.
+    """
+    if pd.api.types.is_datetime64_any_dtype(raw):
+        parsed = raw
+    else:
+        text = _without_offset(raw.astype("string").str.strip())
+        parsed = _to_datetime(text, dayfirst=False)
+        if _format_of(text) is None and text.str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]",
+                                                          regex=True, na=False).any():
+            day_first = _to_datetime(text, dayfirst=True)
+            if _better_reading(day_first, parsed):
+                parsed = day_first
+                if notes is not None:
+                    notes.append(f"dates such as {text.dropna().iloc[0]!r} were read day "
+                                 f"first (day/month/year)")
+    if isinstance(parsed.dtype, pd.DatetimeTZDtype):
+        parsed = parsed.dt.tz_localize(None)
+    return _within_bounds(parsed)
+
+
+def _within_bounds(parsed):
+    """Times outside what nanosecond timestamps hold (years 1678-2261) become NaT, to be
+    reported as unreadable rows."""
+    low, high = pd.Timestamp("1678-01-01"), pd.Timestamp("2261-12-31")
+    if getattr(parsed.dtype, "tz", None) is not None:
+        low, high = low.tz_localize("UTC"), high.tz_localize("UTC")
+    return parsed.where((parsed >= low) & (parsed <= high))
+
+
+def _without_offset(text: pd.Series) -> pd.Series:
+    """Text with a trailing UTC offset removed; by slicing when every entry ends in an offset
+    of the same form (fast on large files), else by a regular expression."""
+    present = text.dropna()
+    match = _OFFSET_AT_END.search(str(present.iloc[0])) if len(present) else None
+    if match is None:
+        return text
+    width = len(match.group())
+    tail = present.str.slice(-width)
+    same_form = (present.str.len() == len(str(present.iloc[0]))).all() and (
+        (tail == "Z").all() if width == 1 else tail.str.slice(0, 1).isin(["+", "-"]).all())
+    if same_form:
+        return text.str.slice(0, -width)
+    return text.str.replace(_OFFSET_AT_END, "", regex=True)
+
+
+def _to_datetime(text: pd.Series, dayfirst: bool) -> pd.Series:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)  # pandas' guess-the-format warnings
+        try:
+            return pd.to_datetime(text, errors="coerce", format=_format_of(text),
+                                  dayfirst=dayfirst)
+        except (ValueError, TypeError, OverflowError):
+            return pd.to_datetime(text, errors="coerce", utc=True, format=_format_of(text),
+                                  dayfirst=dayfirst)
+
+
+def _better_reading(candidate: pd.Series, current: pd.Series) -> bool:
+    """Whether ``candidate`` reads more dates, or as many in order and closer together."""
+    missing = (int(candidate.isna().sum()), int(current.isna().sum()))
+    if missing[0] != missing[1]:
+        return missing[0] < missing[1]
+
+    def spread(values):
+        steps = np.diff(values.dropna().to_numpy().astype("datetime64[ns]").astype(np.int64))
+        ordered = len(steps) and (np.all(steps >= 0) or np.all(steps <= 0))
+        return (0 if ordered else 1, float(np.median(np.abs(steps))) if len(steps) else 0.0)
+
+    return spread(candidate) < spread(current)
+
+
+def _format_of(text: pd.Series) -> str | None:
+    present = text.dropna()
+    sample = str(present.iloc[0]).strip() if len(present) else ""
+    return "ISO8601" if _ISO_START.match(sample) else None
+
+
+def _refuse_intraday(keys: pd.DatetimeIndex, source: str | None) -> None:
+    """Daily readers need one row per date: several per date means intraday data."""
+    valid = keys[~pd.isna(keys)]
+    days = valid.normalize()
+    if not days.has_duplicates or (valid == days).all():
+        return
+    counts = days.value_counts(sort=True)
+    busiest = counts.index[0]
+    times = valid[days == busiest]
+    where = f" in {source}" if source is not None else ""
+    raise SmleInputError(
+        f"source{where} has several rows per calendar date ({int((counts > 1).sum())} dates; "
+        f"{busiest.date()} has {int(counts.iloc[0])} rows, {times.min().time()} to "
+        f"{times.max().time()}): these are intraday prices, and a daily reader needs one row "
+        f"per date. Use read_intraday, or prepare_daily / prepare_file(kind='intraday') "
+        f"(command line: smle prepare --kind intraday, or the default --kind auto)")
 
 
 def read_daily(source, *, date_column: str | None = None, price_column: str | None = None,
@@ -171,15 +318,17 @@ def read_daily(source, *, date_column: str | None = None, price_column: str | No
       A DataFrame indexed by ``date`` with the column ``close`` (prices), or ``return_pct``
       (log returns in percent) when returns were read.
     """
+    min_rows = checks.positive_integer(min_rows, "min_rows")
     frame, source_name = load_table(source)
     checker = RowChecker(repair, source_name, "date")
+    checker.notes.extend(frame.attrs.get("notes", []))
     key = _find_key(frame, date_column, "date_column")
     if return_column is None:
         price = find_column(frame, price_column, _PRICE_NAMES, _PRICE_FRAGMENTS, "price",
                             "price_column", required=False, exclude=(key,))
         if price is None:
             return_column = find_column(frame, None, _RETURN_NAMES, _RETURN_FRAGMENTS,
-                                        "price or return", "price_column or return_column",
+                                        "price (or return)", "price_column",
                                         exclude=(key,))
     elif return_column not in frame.columns:
         raise SmleInputError(
@@ -191,18 +340,25 @@ def read_daily(source, *, date_column: str | None = None, price_column: str | No
         if returns_in not in _RETURN_UNITS:
             raise SmleInputError(
                 f"returns_in={returns_in!r} is not accepted; use 'percent' or 'decimal'")
-        frame = _as_numbers(frame, [return_column])
+        frame = _as_numbers(frame, [return_column], checker)
         values = frame[return_column].to_numpy(dtype=float)
         frame = checker.apply(frame, ~np.isfinite(values),
                               f"column '{return_column}' must hold a number in every row",
                               lambda i: f"{return_column} is missing ({float(values[i])!r})")
         frame = checks.check_order(frame, checker)
         frame["return_pct"] = frame[return_column] * (100.0 / _RETURN_UNITS[returns_in])
+        zero = int(np.count_nonzero(frame["return_pct"].to_numpy() == 0.0))
+        if zero:
+            checker.notes.append(
+                f"{zero} of {len(frame)} returns are exactly zero (an unchanged price, as when "
+                f"a holiday is carried as a day without trading); they are kept as "
+                f"observations")
         checks.check_length(len(frame), max(min_rows - 1, 1), "daily returns", source_name)
         out = _finish(frame, checker, ["return_pct"])
         out.attrs["return_unit"] = "percent (log return)"
+        out.attrs["n_zero_returns"] = zero
         return out
-    frame = _as_numbers(frame, [price])
+    frame = _as_numbers(frame, [price], checker)
     frame = frame.rename(columns={price: "close"}) if price != "close" else frame
     frame = checks.check_prices(frame, ["close"], checker)
     frame = checks.check_order(frame, checker)
@@ -212,6 +368,10 @@ def read_daily(source, *, date_column: str | None = None, price_column: str | No
 
 def _bar_columns(frame: pd.DataFrame, columns: dict | None, exclude=()) -> dict:
     """Map open/high/low/close to the frame's columns, by argument or by name."""
+    if columns is not None and not isinstance(columns, dict):
+        raise SmleInputError(
+            f"columns={describe(columns)} is not accepted; give a mapping such as "
+            f"{{'open': 'Open', 'high': 'High', 'low': 'Low', 'close': 'Last'}}")
     columns = dict(columns or {})
     unknown = set(columns) - set(BAR_FIELDS)
     if unknown:
@@ -241,13 +401,15 @@ def read_ohlc(source, *, date_column: str | None = None, columns: dict | None = 
       A DataFrame indexed by ``date`` with columns ``open``, ``high``, ``low``, ``close``
       (prices, all checked: positive, low <= high, open and close inside [low, high]).
     """
+    min_rows = checks.positive_integer(min_rows, "min_rows")
     frame, source_name = load_table(source)
     checker = RowChecker(repair, source_name, "date")
+    checker.notes.extend(frame.attrs.get("notes", []))
     key = _find_key(frame, date_column, "date_column")
     mapping = _bar_columns(frame, columns, exclude=(key,))
     frame = _start(frame)
     frame = _daily_keys(frame, key, checker)
-    frame = _as_numbers(frame, list(mapping.values()))
+    frame = _as_numbers(frame, list(mapping.values()), checker)
     frame = frame.rename(columns={value: field for field, value in mapping.items()})
     frame = checks.check_prices(frame, list(BAR_FIELDS), checker)
     frame = checks.check_bars(frame, checker)
@@ -264,6 +426,10 @@ _ISO_START = re.compile(r"^\d{4}-\d{2}-\d{2}([ T]\d{2}:\d{2}(:\d{2}(\.\d+)?)?)?"
 
 def _parse_timestamps(raw: pd.Series) -> pd.DatetimeIndex:
     """Timestamps from a column; unreadable entries become NaT (reported by the caller)."""
+    return pd.DatetimeIndex(_within_bounds(pd.Series(_parse_any(raw), index=raw.index)))
+
+
+def _parse_any(raw: pd.Series):
     if pd.api.types.is_datetime64_any_dtype(raw):
         return pd.DatetimeIndex(raw)
     present = raw.dropna()
@@ -280,7 +446,7 @@ def _parse_timestamps(raw: pd.Series) -> pd.DatetimeIndex:
 
 
 def read_intraday(source, *, time_column: str | None = None, price_column: str | None = None,
-                  columns: dict | None = None, timezone: str = DEFAULT_TIMEZONE,
+                  columns: dict | None = None, timezone: str | None = DEFAULT_TIMEZONE,
                   source_timezone: str | None = None, bar_timestamp: str = "end",
                   bar_length: str | None = None, repair: str = "raise") -> pd.DataFrame:
     """Read intraday prices or bars with timestamps.
@@ -293,8 +459,11 @@ def read_intraday(source, *, time_column: str | None = None, price_column: str |
         given and the frame has high, low and close columns, it is read as bars; otherwise a
         column named like price/close/last is used.
       columns: for bars, an optional mapping as in :func:`read_ohlc`.
-      timezone: the venue's time zone (IANA name, default ``"UTC"``). Output timestamps are
-        in this zone, and the trading session of :func:`smle.data.prepare_daily` is read in it.
+      timezone: the venue's time zone (IANA name). Output timestamps are in this zone, and the
+        trading session of :func:`smle.data.prepare_daily` is read in it. By default (None)
+        the clock is the data's own: time-zone-aware stamps keep their zone, stamps written
+        with a UTC offset keep the wall-clock time written (index in UTC, each row's offset
+        in ``attrs["utc_offset_ns"]``, int64 nanoseconds), naive stamps are taken as UTC.
       source_timezone: the zone of timestamps written without an offset; by default they are
         taken to be venue time already. Timestamps with an offset are converted exactly.
       bar_timestamp: for bars, whether a bar's timestamp marks its ``"end"`` (default) or its
@@ -311,9 +480,16 @@ def read_intraday(source, *, time_column: str | None = None, price_column: str |
       or the columns ``open``, ``high``, ``low``, ``close``. ``attrs`` holds ``kind``
       (``"prices"`` or ``"bars"``), ``timezone``, ``source`` and ``repairs``.
     """
+    for name, zone in (("timezone", timezone), ("source_timezone", source_timezone)):
+        if zone is not None and not isinstance(zone, (str, datetime.tzinfo)):
+            raise SmleInputError(f"{name}={describe(zone)} is not accepted; use an IANA time "
+                                 f"zone name such as 'UTC' or 'Europe/London'")
     frame, source_name = load_table(source)
+    given_offsets = frame.attrs.get("utc_offset_ns")  # from an earlier read_intraday
     checker = RowChecker(repair, source_name, "timestamp")
+    checker.notes.extend(frame.attrs.get("notes", []))
     key = _find_key(frame, time_column, "time_column")
+    frame, key = _join_date_and_time(frame, key, time_column, checker)
     bars = False
     lowered = {str(column).strip().lower() for column in frame.columns}
     if price_column is None:
@@ -330,18 +506,24 @@ def read_intraday(source, *, time_column: str | None = None, price_column: str |
     frame = _start(frame)
     raw = frame[key]
     stamps = _parse_timestamps(raw)
+    instants = stamps.as_unit("ns").asi8 if stamps.tz is not None else None
     frame = frame.set_axis(stamps.rename("timestamp"))
     frame, stamps = checks.check_missing_key(frame, stamps, checker, raw.set_axis(stamps))
+    written = given_offsets if timezone is None else None
+    if timezone is None and not pd.api.types.is_datetime64_any_dtype(raw) \
+            and stamps.tz is not None:
+        # Offsets in the text: keep the clock as written for the session (per original row).
+        written = pd.DatetimeIndex(_wall_clock(raw)).as_unit("ns").asi8 - instants
     stamps = _to_zone(stamps, timezone, source_timezone)
     frame = frame.set_axis(stamps.rename("timestamp"))
     bad = np.asarray(pd.isna(stamps))
     if bad.any():
-        zone = source_timezone or timezone
+        zone = source_timezone or timezone or "UTC"
         frame = checker.apply(
             frame, bad, f"a timestamp without offset must exist, unambiguously, in {zone}",
             lambda i: f"timestamp {raw.iloc[int(frame[POSITION].iat[i])]!r} falls in a "
                       f"daylight-saving change of {zone}")
-    frame = _as_numbers(frame, list(mapping.values()))
+    frame = _as_numbers(frame, list(mapping.values()), checker)
     frame = frame.rename(columns={value: field for field, value in mapping.items()})
     frame = checks.check_prices(frame, fields, checker)
     if bars:
@@ -355,8 +537,28 @@ def read_intraday(source, *, time_column: str | None = None, price_column: str |
     checks.check_length(len(frame), 2, "intraday rows", source_name)
     out = _finish(frame, checker, fields)
     out.attrs["kind"] = "bars" if bars else "prices"
-    out.attrs["timezone"] = str(timezone)
+    out.attrs["timezone"] = str(timezone) if timezone is not None else (
+        str(out.index.tz) if written is None else AS_WRITTEN)
+    if written is not None:
+        out.attrs["utc_offset_ns"] = written[out.attrs["positions"]]
     return out
+
+
+def _join_date_and_time(frame: pd.DataFrame, key, time_column, checker: RowChecker):
+    """A file with a date column and a separate clock-time column: the two joined (noted)."""
+    names = {str(column).strip().lower(): column for column in frame.columns}
+    if time_column is not None or str(key).strip().lower() != "date" or "time" not in names:
+        return frame, key
+    clock = frame[names["time"]]
+    if pd.api.types.is_datetime64_any_dtype(frame[key]) or \
+            pd.api.types.is_datetime64_any_dtype(clock):
+        return frame, key
+    frame = frame.copy()
+    frame["_smle_timestamp"] = (frame[key].astype("string").str.strip() + " "
+                                + clock.astype("string").str.strip())
+    checker.notes.append(f"timestamps joined from the columns {key!r} (dates) and "
+                         f"{names['time']!r} (clock times)")
+    return frame, "_smle_timestamp"
 
 
 def _bar_columns_without_open(frame, columns, key) -> dict:
@@ -368,7 +570,11 @@ def _bar_columns_without_open(frame, columns, key) -> dict:
     return mapping
 
 
-def _to_zone(stamps: pd.DatetimeIndex, timezone: str, source_timezone: str | None):
+def _to_zone(stamps: pd.DatetimeIndex, timezone: str | None, source_timezone: str | None):
+    if timezone is None:
+        if stamps.tz is not None:
+            return stamps
+        timezone = source_timezone or "UTC"
     try:
         if stamps.tz is not None:
             return stamps.tz_convert(timezone)

@@ -27,12 +27,25 @@ from __future__ import annotations
 
 import numpy as np
 
+from smle.errors import SmleInputError, describe
+
 HALF_PI = np.pi / 2.0
+
+
+def _as_returns(returns) -> np.ndarray:
+    try:
+        values = np.asarray(returns, dtype=float)
+    except (TypeError, ValueError):
+        values = None
+    if values is None or values.ndim == 0:
+        raise SmleInputError(f"returns={describe(returns)} is not accepted; give numbers (an "
+                             f"array of returns)")
+    return values
 
 
 def realized_variance(returns, axis: int = -1) -> np.ndarray:
     """Sum of squared returns along ``axis`` (unit: the returns' unit squared)."""
-    returns = np.asarray(returns, dtype=float)
+    returns = _as_returns(returns)
     return np.sum(returns * returns, axis=axis)
 
 
@@ -41,10 +54,11 @@ def bipower_variation(returns, axis: int = -1) -> np.ndarray:
 
     References: Barndorff-Nielsen and Shephard (2004).
     """
-    size = np.abs(np.moveaxis(np.asarray(returns, dtype=float), axis, -1))
+    size = np.abs(np.moveaxis(_as_returns(returns), axis, -1))
     count = size.shape[-1]
     if count < 2:
-        raise ValueError("bipower variation needs at least 2 returns")
+        raise SmleInputError(f"returns has {count} value(s) along axis {axis}; bipower "
+                             f"variation needs at least 2")
     return HALF_PI * count / (count - 1) * np.sum(size[..., 1:] * size[..., :-1], axis=-1)
 
 

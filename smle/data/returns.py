@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 
 from smle.data import units
-from smle.errors import SmleInputError
+from smle.errors import SmleInputError, describe
 
 
 def log_returns(prices, unit: str = "percent"):
@@ -21,7 +21,11 @@ def log_returns(prices, unit: str = "percent"):
       ``return_dec``) on the index from the second price on, with ``attrs["return_unit"]``.
     """
     scale = units.scale(unit)
-    values = np.asarray(prices, dtype=float)
+    try:
+        values = np.asarray(prices, dtype=float)
+    except (TypeError, ValueError):
+        raise SmleInputError(f"prices={describe(prices)} is not accepted; give positive numbers "
+                             f"(a 1-d array or a Series)") from None
     if values.ndim != 1:
         raise SmleInputError(f"prices must be one-dimensional; got shape {values.shape}")
     bad = np.flatnonzero(~(np.isfinite(values) & (values > 0)))
