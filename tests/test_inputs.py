@@ -90,7 +90,7 @@ def test_grid_filter_refuses_a_random_walk_state():
         smle.reference.grid_loglik("local-level", dict(sigma_eta=1.0, sigma_eps=1.0), y)
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=25, deadline=None, derandomize=True)  # the same examples on every run: CI must not be flaky
 @given(
     phi=st.floats(-0.999, 0.999),
     sigma_eta=st.floats(0.01, 3.0),
