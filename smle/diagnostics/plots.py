@@ -107,7 +107,7 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     figure.savefig(paths[-1], dpi=110)
 
     # autocorrelation of scores and squared scores
-    from smle.diagnostics.gof import autocorrelations
+    from smle.diagnostics.residual_tests import autocorrelations
 
     max_lag = int(min(30, n // 4))
     lags = np.arange(1, max_lag + 1)
