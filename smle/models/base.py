@@ -155,3 +155,9 @@ class Model:
         data hold leaves that are not indexed by time override this.
         """
         return jax.tree.map(lambda leaf: jax.lax.dynamic_slice_in_dim(leaf, t, 1, axis=0), data)
+
+
+def model_options(model: Model) -> dict:
+    """The constructor options of a model instance, by name (``dataclasses.fields`` leaves out
+    the class-level attributes such as ``name``), as saved with a fit or a health report."""
+    return {f.name: getattr(model, f.name) for f in dataclasses.fields(model)}

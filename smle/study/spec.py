@@ -166,7 +166,7 @@ def _check_int(where: str, name: str, value, minimum: int) -> int:
 
 def check_design(design: Design) -> Design:
     """Validate a design against the model registry and the estimator's rules; return it normalised."""
-    from smle.likelihood import check_settings
+    from smle.validation import check_settings
     from smle.models import get_model
     from smle.params import check_params
 
