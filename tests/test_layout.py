@@ -45,7 +45,14 @@ LAYERS = [
 MAX_MODULE_LINES = 450
 MAX_FUNCTION_LINES = 80
 # Functions allowed to be longer than MAX_FUNCTION_LINES, each with the reason.
-LONG_FUNCTIONS: dict[str, str] = {}
+LONG_FUNCTIONS: dict[str, str] = {
+    "smle.data.demo.demo_scenario": "the demo scenario's steps read best in one place; its file is being changed "
+                                    "on another branch, split after that merge",
+    "smle.data.prepare.prepare_daily": "one pass over the intraday table; its file is being changed on another "
+                                       "branch, split after that merge",
+    "smle.study.runner.run_study": "the study loop with its resume and store bookkeeping; its file is being "
+                                   "changed on another branch, split after that merge",
+}
 
 
 def _module_name(path: Path) -> str:

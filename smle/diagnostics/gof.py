@@ -245,43 +245,17 @@ def diagnose(
     filtered = filter_factor(model, result.params, y, n_particles=n_particles, seed=seed)
     pit = filtered.pit
     scores = normal_scores(pit)
-    series = ["return"] if model.n_series == 1 else ["return", "realized measure"]
-    if model.n_series == 1 and model.name in ("ar1-noise", "local-level"):
-        series = ["observation"]
+    series = list(model.series_labels[:model.n_series])
     if progress:
         progress("residual tests")
     tests = []
     for k, label in enumerate(series):
-        z = scores[:, k]
-        q, p = ljung_box(z, lags)
-        tests += [TestResult("Ljung-Box", f"{label} scores", float(qi), int(h), float(pi))
-                  for qi, pi, h in zip(q, p, lags)]
-        q, p = ljung_box(z**2, lags)
-        tests += [TestResult("Ljung-Box", f"{label} squared scores", float(qi), int(h), float(pi))
-                  for qi, pi, h in zip(q, p, lags)]
-        lm, p_lm = arch_lm(z, arch_lags)
-        tests.append(TestResult("ARCH-LM", f"{label} scores", lm, int(arch_lags), p_lm))
-        tests.append(TestResult("Durbin-Watson", f"{label} scores", durbin_watson(z), None, None))
-        ks = stats.kstest(pit[:, k], "uniform")
-        tests.append(TestResult("Kolmogorov-Smirnov", f"{label} PITs", float(ks.statistic), None, float(ks.pvalue)))
-        b = berkowitz_test(z)
-        tests.append(TestResult("Berkowitz LR", f"{label} scores", b["statistic"], 3, b["p_value"]))
-        jb = stats.jarque_bera(z)
-        tests.append(TestResult("Jarque-Bera", f"{label} scores", float(jb.statistic), 2, float(jb.pvalue)))
-        tail = tail_test(z, tail_probability)
-        tests.append(TestResult(f"tails LR ({tail_probability:.0%} each)", f"{label} scores",
-                                tail["statistic"], 2, tail["p_value"]))
+        tests += _series_tests(label, scores[:, k], pit[:, k], lags, arch_lags, tail_probability)
     if progress:
         progress("drawing a factor path from the smoothing distribution (EIS at the estimates)")
     path = posterior_path(model, result, y, seed)
     innovations = factor_innovations(model, result.params, path)
-    q, p = ljung_box(innovations, lags)
-    tests += [TestResult("Ljung-Box", "factor innovations", float(qi), int(h), float(pi))
-              for qi, pi, h in zip(q, p, lags)]
-    q, p = ljung_box(innovations**2, lags)
-    tests += [TestResult("Ljung-Box", "squared factor innovations", float(qi), int(h), float(pi))
-              for qi, pi, h in zip(q, p, lags)]
-    tests.append(TestResult("Durbin-Watson", "factor innovations", durbin_watson(innovations), None, None))
+    tests += _factor_tests(innovations, lags)
     return Diagnostics(
         model=model.name, series=series, filter=filtered, pit=pit, scores=scores,
         factor_innovations=innovations, factor_path=path,
@@ -289,6 +263,36 @@ def diagnose(
         smoothed_upper=np.asarray(result.smoothed_upper), tests=tests, fit_loglik=result.loglik,
         fit_nse=result.nse,
     )
+
+
+def _ljung_box_tests(x, lags, applied_to: str) -> list[TestResult]:
+    q, p = ljung_box(x, lags)
+    return [TestResult("Ljung-Box", applied_to, float(qi), int(h), float(pi)) for qi, pi, h in zip(q, p, lags)]
+
+
+def _series_tests(label: str, z, pit, lags, arch_lags: int, tail_probability: float) -> list[TestResult]:
+    """The tests of one observed series: its normal scores ``z`` and PITs."""
+    tests = _ljung_box_tests(z, lags, f"{label} scores") + _ljung_box_tests(z**2, lags, f"{label} squared scores")
+    lm, p_lm = arch_lm(z, arch_lags)
+    tests.append(TestResult("ARCH-LM", f"{label} scores", lm, int(arch_lags), p_lm))
+    tests.append(TestResult("Durbin-Watson", f"{label} scores", durbin_watson(z), None, None))
+    ks = stats.kstest(pit, "uniform")
+    tests.append(TestResult("Kolmogorov-Smirnov", f"{label} PITs", float(ks.statistic), None, float(ks.pvalue)))
+    b = berkowitz_test(z)
+    tests.append(TestResult("Berkowitz LR", f"{label} scores", b["statistic"], 3, b["p_value"]))
+    jb = stats.jarque_bera(z)
+    tests.append(TestResult("Jarque-Bera", f"{label} scores", float(jb.statistic), 2, float(jb.pvalue)))
+    tail = tail_test(z, tail_probability)
+    tests.append(TestResult(f"tails LR ({tail_probability:.0%} each)", f"{label} scores",
+                            tail["statistic"], 2, tail["p_value"]))
+    return tests
+
+
+def _factor_tests(innovations, lags) -> list[TestResult]:
+    """The tests of the standardised innovations of a factor path drawn from the smoother."""
+    return (_ljung_box_tests(innovations, lags, "factor innovations")
+            + _ljung_box_tests(innovations**2, lags, "squared factor innovations")
+            + [TestResult("Durbin-Watson", "factor innovations", durbin_watson(innovations), None, None)])
 
 
 def posterior_path(model, result: FitResult, y, seed) -> np.ndarray:

@@ -88,6 +88,15 @@ def _evaluate(model, params, y, n_draws, seed, settings, n_score_draws=None, con
         ) from None
 
 
+def _seed_run(model, params, y, n_draws, seed, settings, control_variates) -> tuple[_Run, np.ndarray]:
+    """One seed run, as the report keeps it, and its per-period regression R^2."""
+    result = _evaluate(model, params, y, n_draws, seed, settings, control_variates=control_variates)
+    plain = result.value if result.value_uncorrected is None else result.value_uncorrected
+    error = math.nan if result.independent_error is None else result.independent_error
+    return _Run(result.value, result.nse, result.ess, result.iterations, result.converged, result.last_change,
+                plain, error), result.r_squared
+
+
 class EstimatorBreakdown(FloatingPointError):
     """The health check met a run with a non-finite estimate: the likelihood is unreliable there."""
 
@@ -252,21 +261,13 @@ def check(
         control_variates)
     say = progress or (lambda text: None)
     seeds = list(range(seed, seed + n_seeds))
-    runs: dict[tuple[int, int], _Run] = {}
-    r_squared = None
+    runs: dict[tuple[int, int], tuple[_Run, np.ndarray]] = {}
 
     def seed_runs(draws: int) -> list[_Run]:
-        nonlocal r_squared
         for s in seeds:
             if (draws, s) not in runs:
-                result = _evaluate(resolved, checked, y_array, draws, s, settings, control_variates=control_variates)
-                plain = result.value if result.value_uncorrected is None else result.value_uncorrected
-                error = math.nan if result.independent_error is None else result.independent_error
-                runs[draws, s] = _Run(result.value, result.nse, result.ess, result.iterations, result.converged,
-                                      result.last_change, plain, error)
-                if draws == settings.n_draws and s == seed:
-                    r_squared = result.r_squared
-        return [runs[draws, s] for s in seeds]
+                runs[draws, s] = _seed_run(resolved, checked, y_array, draws, s, settings, control_variates)
+        return [runs[draws, s][0] for s in seeds]
 
     say(f"seed runs: {n_seeds} seeds at {settings.n_draws} draws"
         + (f", control variates {control_variates!r}" if control_variates else ""))
@@ -278,6 +279,7 @@ def check(
         say(f"NSE scaling: {n_seeds} seeds at {draws} draws")
         scaling_runs[draws] = seed_runs(draws)
     say("assembling the report")
+    r_squared = runs[settings.n_draws, seed][1]
     return _report(resolved, checked, y_array, settings, seeds, main, r_squared, tail_result, tail_draws,
                    scaling_runs, labels, level, control_variates)
 

@@ -42,6 +42,14 @@ class Model:
     stationary_state: ClassVar[bool] = True
     expects_returns: ClassVar[bool] = False
     factor_name: ClassVar[str] = "latent state x_t"
+    series_labels: ClassVar[tuple[str, ...]] = ("return",)
+    """What each observed series is, in column order (its first ``n_series`` entries label the
+    goodness-of-fit tests and figures): ``("return",)``, ``("observation",)``,
+    ``("return", "realized measure")``."""
+    state_dim: ClassVar[int] = 1
+    """Dimension of the latent state: 1 for the AR(1) factor every model has today; 0 means no
+    latent state (the likelihood in closed form). Nothing reads it yet: it is there for the
+    likelihood methods to come (the exact grid method is for ``state_dim == 1``)."""
 
     # -- to be supplied by each model ---------------------------------------------------------
     def constraints(self) -> dict[str, Constraint]:
