@@ -4,7 +4,7 @@
     smle models                       list the registered models and their parameters
     smle demo                         fit the invented demo scenario end to end
     smle prepare intraday.csv         prices to the aligned daily table of returns and measures
-    smle check data.csv --params ...  health check of the simulated likelihood (smle/health_cli.py)
+    smle check data.csv --params ...  health check of the simulated likelihood (smle/cli/check.py)
     smle diagnose result.json         goodness of fit of a saved fit: PITs, residual tests, figures
 """
 

@@ -1,21 +1,42 @@
-"""The model plug-in interface.
+"""The model plug-in interface, stated once.
 
-A model is a frozen (hashable) dataclass: the engine JIT-compiles once per (model, data shape)
-and treats the model instance as static. It supplies, as pure JAX functions of a parameter
-mapping ``params`` (name -> scalar):
+A model is a frozen (hashable) dataclass subclassing :class:`Model`, registered by
+``@smle.models.register``: the engine JIT-compiles once per (model, data shape) and treats the
+model instance as static. The engine takes a model instance and never imports this package.
+Everything below is a pure JAX function of a parameter mapping ``params`` (name -> scalar).
+
+Class attributes (set in the model's own module):
+
+* ``name`` (the registry name), ``summary``, ``equations``: required;
+* ``n_series`` (observed series, columns of y; default 1), ``series_labels`` (what each
+  series is, for the goodness-of-fit tests; default ``("return",)``), ``min_periods``,
+  ``stationary_state``, ``expects_returns``, ``factor_name``;
+* ``state_dim``: dimension of the latent state (default 1; 0 means no latent state, the
+  likelihood in closed form).
+
+Required methods:
 
 * ``constraints()``: the admissible region of each parameter and its bijection to the real line;
 * ``latent(params)``: the latent Gaussian AR(1) coefficients implied by theta;
-* ``prepare(params, y)``: any data-only precomputation (a GARCH scale path, say);
 * ``log_obs_density(params, data, x)``: log g_t(y_t | x_t) for paths ``x`` of shape (T, S);
 * ``simulate(params, n_periods, key)``: observations and the latent path;
-* ``start_params(y)``: sensible start values from the data;
-* optionally ``independent_params(params)``: the parameters with the factor autocorrelation set
-  to zero, enabling :meth:`Model.independent_loglik` (adaptive Gauss-Hermite per period, or a
-  model's own closed form).
+* ``start_params(y)``: sensible start values from the data.
+
+Optional hooks (each has a default here):
+
+* ``prepare(params, y)``: data-only precomputation (a GARCH scale path, say);
+* ``mode_guess(params, data)``: a rough posterior-mode path starting the EIS Newton steps;
+* ``check_data(y)``, ``check_joint(params)``: model-specific checks of data and of joint
+  parameter constraints (with ``to_real``/``from_real`` for a joint bijection);
+* ``independent_params(params)``: the parameters with the factor autocorrelation set to zero,
+  enabling the independent control variate and :meth:`Model.independent_loglik` (adaptive
+  Gauss-Hermite per period, or a model's own closed form);
+* ``obs_cdf(params, data, x)``: the conditional CDF, for PITs (:func:`smle.diagnose`);
+* ``period_data(data, t)``: one period of prepared data, for the particle filter.
 
 The engine knows nothing about any particular model.
 """
+
 
 from __future__ import annotations
 
