@@ -2,7 +2,7 @@
 
 What it measures (design mu = -7.36, phi = 0.95, sigma_eta = 0.26; data from smle.simulate):
 
-1. smle's compiled kernel, ``smle.likelihood.compiled_eis(model, settings)`` called directly
+1. smle's compiled kernel, ``smle.engine.methods.compiled_eis(model, settings)`` called directly
    with ``block_until_ready``, median of >= 20 repeats after a warm-up, at T in {500, 2000,
    8000} and S in {32, 64, 128}: with exactly 5 EIS iterations (tol = 0, max_iter = 5) and with
    the default convergence rule (tol = 1e-6, max_iter = 50; iterations used are reported).
@@ -182,7 +182,7 @@ def bench_smle(repeats: int) -> list[dict]:
     import jax
 
     import smle
-    from smle.likelihood import compiled_eis
+    from smle.engine.methods import compiled_eis
 
     model = smle.get_model("sv")
     rows = []
@@ -270,7 +270,7 @@ def probe(kind: str) -> dict:
     import jax
 
     import smle
-    from smle.likelihood import compiled_eis
+    from smle.engine.methods import compiled_eis
 
     import_s = time.perf_counter() - start
     model = smle.get_model("sv")
@@ -370,7 +370,7 @@ def bench_efficiency(quick: bool, log: dict) -> dict:
 
     import particle_filter
     import smle
-    from smle.likelihood import compiled_eis
+    from smle.engine.methods import compiled_eis
     from smle.reference import grid_loglik
 
     model = smle.get_model("sv")

@@ -1,6 +1,6 @@
 """Benchmark: the EIS log-likelihood of `garch-mix` (ig and lognormal links) against `sv`.
 
-Each model's compiled kernel (``smle.likelihood.compiled_eis``) is called directly with
+Each model's compiled kernel (``smle.engine.methods.compiled_eis``) is called directly with
 ``block_until_ready`` at T = 2000, S = 64, with exactly 5 EIS iterations (tol = 0,
 max_iter = 5) so that the models do the same amount of sampler work, and with the default
 convergence rule (iterations used reported). Median of the repeats after a warm-up; the
@@ -27,7 +27,8 @@ import jax.numpy as jnp
 
 import smle
 from smle.distributions import normal_to_inverse_gaussian
-from smle.likelihood import check_settings, compiled_eis
+from smle.engine.methods import compiled_eis
+from smle.validation import check_settings
 from smle.models import get_model
 
 HERE = Path(__file__).resolve().parent

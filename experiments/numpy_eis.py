@@ -211,7 +211,7 @@ def check_against_smle(n_periods: int, n_draws: int, seed: int = 0, tol: float =
 
     import smle
     from smle.engine import eis
-    from smle.likelihood import compiled_eis
+    from smle.engine.methods import compiled_eis
 
     model = smle.get_model("sv")
     y, _ = smle.simulate("sv", DESIGN, n_periods, seed=seed)

@@ -15,7 +15,6 @@ Math. Programming 45 (L-BFGS); Durbin and Koopman (1997), Biometrika 84 (bias co
 
 from __future__ import annotations
 
-import dataclasses
 import functools
 import math
 import sys
@@ -29,11 +28,13 @@ import optax
 from scipy.special import ndtri
 
 from smle.engine import eis
+from smle.engine.control import ControlSpec, control_facts, controlled_output
+from smle.engine.posterior import path_quantiles
 from smle.errors import SmleInputError
-from smle.likelihood import ControlSpec, as_key, check_control, check_observations, check_settings, controlled_output
 from smle.models import Model, get_model
-from smle.params import check_params
+from smle.models.base import model_options
 from smle.results import FitResult
+from smle.validation import as_key, check_control, check_integer, check_observations, check_settings, checked_params
 
 NO_CONTROL = ControlSpec()
 
@@ -135,18 +136,6 @@ def _hessian(evaluate, u, n_periods, step=1e-4):
     return 0.5 * (hessian + hessian.T)
 
 
-def _weighted_quantiles(paths: np.ndarray, weights: np.ndarray, probabilities) -> np.ndarray:
-    """Per-period weighted quantiles of the draws (paths (T, S), weights (S,) summing to 1)."""
-    order = np.argsort(paths, axis=1)
-    sorted_paths = np.take_along_axis(paths, order, axis=1)
-    cumulative = np.cumsum(weights[order], axis=1)
-    out = []
-    for p in probabilities:
-        index = np.minimum((cumulative < p).sum(axis=1), paths.shape[1] - 1)
-        out.append(sorted_paths[np.arange(paths.shape[0]), index])
-    return np.stack(out)
-
-
 def check_fit_data(model: Model, y) -> np.ndarray:
     """Observation checks that matter for estimation, beyond :func:`check_observations`."""
     array = check_observations(model, y)
@@ -213,18 +202,15 @@ def fit(
     y = check_fit_data(model, y)
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
     control = check_control(model, control_variates, cv_coefficient)
-    if isinstance(n_seeds, bool) or not isinstance(n_seeds, (int, np.integer)) or n_seeds < 1:
-        raise SmleInputError(f"n_seeds = {n_seeds!r} is not accepted; accepted: an integer >= 1")
+    n_seeds = check_integer("n_seeds", n_seeds, 1)
     if not (isinstance(level, float) and 0.5 <= level < 1):
         raise SmleInputError(f"level = {level!r} is not accepted; accepted: a number in [0.5, 1)")
-    if isinstance(max_steps, bool) or not isinstance(max_steps, (int, np.integer)) or max_steps < 1:
-        raise SmleInputError(f"max_steps = {max_steps!r} is not accepted; accepted: an integer >= 1")
+    max_steps = check_integer("max_steps", max_steps, 1)
     if start is None:
         start_params = model.start_params(y)
     else:
         try:
-            start_params = check_params(model.name, model.constraints(), start)
-            model.check_joint(start_params)
+            start_params = checked_params(model, start)
         except SmleInputError as error:
             raise SmleInputError(f"start values: {error}") from None
     key = as_key(seed)
@@ -240,8 +226,7 @@ def fit(
             print(f"refit with seed {seed + offset} ({offset + 1}/{n_seeds})", file=sys.stderr, flush=True)
         extra.append(_fit_one(model, settings, control, y_jax, as_key(seed + offset), start_params, max_steps, gtol,
                               False))
-    return _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start_params, level,
-                     time.perf_counter() - started)
+    return _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started)
 
 
 def _evaluator(model, settings, control, y, key):
@@ -259,21 +244,94 @@ def _fit_one(model, settings, control, y, key, start_params, max_steps, gtol, ve
     return _lbfgs(_evaluator(model, settings, control, y, key), u0, int(max_steps), float(gtol), verbose)
 
 
-def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start_params, level, elapsed):
+def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started):
     names = model.param_names
     n_periods = y.shape[0]
     u = first["u"]
     params = {n: float(v) for n, v in model.from_real(jnp.asarray(u)).items()}
-    converged = first["grad_norm"] <= first["gtol"]
-    if converged:
-        message = "converged: gradient below tolerance"
-    elif first["stalled"]:
-        message = (f"not converged: the line search made no progress (max|grad| = {first['grad_norm']:.2e}, "
-                   f"tolerance {first['gtol']:.0e}); try other start values or more draws")
-    else:
-        message = f"not converged: reached max_steps = {first['max_steps']} (max|grad| = {first['grad_norm']:.2e})"
-
+    converged, message = _convergence(first)
     hessian = _hessian(_evaluator(model, settings, control, y_jax, key), u, n_periods)
+    covariance, std_errors, conf_int, problem = _standard_errors(model, u, params, hessian, level)
+    if problem:
+        converged = False
+        message += problem
+
+    out, diagnostics, cv_extra = first["aux"]
+    log_weights = np.asarray(out.log_weights)
+    weights = np.exp(log_weights - log_weights.max())
+    weights /= weights.sum()
+    lower, upper = np.asarray(path_quantiles(out.paths, weights, (0.05, 0.95)))
+    loglik = float(cv_extra["value"])
+    facts = control_facts(control, settings.antithetic, out, diagnostics["nse"], cv_extra)
+    k = len(names)
+
+    simulation_std_errors = None
+    seed_estimates = None
+    if extra:
+        seed_estimates = [params] + [
+            {n: float(v) for n, v in model.from_real(jnp.asarray(e["u"])).items()} for e in extra
+        ]
+        simulation_std_errors = {n: float(np.std([s[n] for s in seed_estimates], ddof=1)) for n in names}
+
+    return FitResult(
+        model=model.name,
+        model_options=model_options(model),
+        param_names=list(names),
+        params=params,
+        std_errors=std_errors,
+        conf_int=conf_int,
+        level=level,
+        covariance=covariance,
+        loglik=loglik,
+        nse=float(cv_extra["nse"]) if facts is not None else float(diagnostics["nse"]),
+        n_obs=n_periods,
+        aic=-2 * loglik + 2 * k,
+        bic=-2 * loglik + k * math.log(n_periods),
+        converged=bool(converged),
+        message=message,
+        iterations=first["steps"],
+        n_evaluations=first["evaluations"] + 2 * k,
+        grad_norm=first["grad_norm"],
+        elapsed_seconds=time.perf_counter() - started,  # the Hessian and the smoothing included
+        start=dict(start_params),
+        eis={
+            "n_draws": settings.n_draws,
+            "antithetic": settings.antithetic,
+            "seed": int(seed),
+            "tol": settings.tol,
+            "iterations": int(out.info.iterations),
+            "converged": bool(out.info.converged),
+            "last_change": float(out.info.last_change),
+            "ess": float(diagnostics["ess"]),
+            "min_r_squared": float(np.min(np.asarray(out.info.r_squared))),
+            "n_score_draws": settings.score_draws,
+            **_control_entries(facts),
+        },
+        factor_name=model.factor_name,
+        smoothed_mean=np.asarray(out.paths) @ weights,
+        smoothed_lower=lower,
+        smoothed_upper=upper,
+        log_weights=log_weights,
+        simulation_std_errors=simulation_std_errors,
+        seed_estimates=seed_estimates,
+        observations=np.array(y, dtype=float),
+    )
+
+
+def _convergence(first) -> tuple[bool, str]:
+    """Whether the optimiser converged, and the message saying so or why not."""
+    if first["grad_norm"] <= first["gtol"]:
+        return True, "converged: gradient below tolerance"
+    if first["stalled"]:
+        return False, (f"not converged: the line search made no progress (max|grad| = {first['grad_norm']:.2e}, "
+                       f"tolerance {first['gtol']:.0e}); try other start values or more draws")
+    return False, f"not converged: reached max_steps = {first['max_steps']} (max|grad| = {first['grad_norm']:.2e})"
+
+
+def _standard_errors(model, u, params, hessian, level):
+    """``(covariance, std_errors, conf_int, problem)`` from the Hessian of minus the log-likelihood
+    on the unconstrained scale, mapped by the delta method; ``problem`` is "" or why there are none."""
+    names = model.param_names
     jacobian = np.asarray(jax.jacfwd(lambda v: jnp.stack(list(model.from_real(v).values())))(jnp.asarray(u)))
     finite = bool(np.all(np.isfinite(hessian)))
     eigenvalues = np.linalg.eigvalsh(hessian) if finite else np.full(len(names), np.nan)
@@ -301,88 +359,17 @@ def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start
         covariance = np.full((len(names), len(names)), np.nan)
         std_errors = {n: math.nan for n in names}
         conf_int = {n: (math.nan, math.nan) for n in names}
-        converged = False
         if finite:
-            message += "; the Hessian is not positive definite (no standard errors): the optimum is not a strict maximum"
-        else:
-            message += ("; the Hessian is not finite (no standard errors): the likelihood could not be evaluated "
-                        "near the estimate, which often means a parameter is at the edge of its region")
-
-    out, diagnostics, cv_extra = first["aux"]
-    log_weights = np.asarray(out.log_weights)
-    paths = np.asarray(out.paths)
-    weights = np.exp(log_weights - log_weights.max())
-    weights /= weights.sum()
-    smoothed_mean = paths @ weights
-    lower, upper = _weighted_quantiles(paths, weights, (0.05, 0.95))
-    loglik = float(cv_extra["value"])
-    nse = float(cv_extra["nse"]) if control.label is not None else float(diagnostics["nse"])
-    k = len(names)
-
-    simulation_std_errors = None
-    seed_estimates = None
-    if extra:
-        seed_estimates = [params] + [
-            {n: float(v) for n, v in model.from_real(jnp.asarray(e["u"])).items()} for e in extra
-        ]
-        simulation_std_errors = {n: float(np.std([s[n] for s in seed_estimates], ddof=1)) for n in names}
-
-    return FitResult(
-        model=model.name,
-        # constructor options only (dataclasses.fields leaves out the ClassVar attributes)
-        model_options={f.name: getattr(model, f.name) for f in dataclasses.fields(model)},
-        param_names=list(names),
-        params=params,
-        std_errors=std_errors,
-        conf_int=conf_int,
-        level=level,
-        covariance=covariance,
-        loglik=loglik,
-        nse=nse,
-        n_obs=n_periods,
-        aic=-2 * loglik + 2 * k,
-        bic=-2 * loglik + k * math.log(n_periods),
-        converged=bool(converged),
-        message=message,
-        iterations=first["steps"],
-        n_evaluations=first["evaluations"] + 2 * k,
-        grad_norm=first["grad_norm"],
-        elapsed_seconds=elapsed,
-        start=dict(start_params),
-        eis={
-            "n_draws": settings.n_draws,
-            "antithetic": settings.antithetic,
-            "seed": int(seed),
-            "tol": settings.tol,
-            "iterations": int(out.info.iterations),
-            "converged": bool(out.info.converged),
-            "last_change": float(out.info.last_change),
-            "ess": float(diagnostics["ess"]),
-            "min_r_squared": float(np.min(np.asarray(out.info.r_squared))),
-            "n_score_draws": settings.score_draws,
-            **_control_facts(control, settings, out, diagnostics, cv_extra),
-        },
-        factor_name=model.factor_name,
-        smoothed_mean=smoothed_mean,
-        smoothed_lower=lower,
-        smoothed_upper=upper,
-        log_weights=log_weights,
-        simulation_std_errors=simulation_std_errors,
-        seed_estimates=seed_estimates,
-        observations=np.array(y, dtype=float),
-    )
+            return covariance, std_errors, conf_int, (
+                "; the Hessian is not positive definite (no standard errors): the optimum is not a strict maximum")
+        return covariance, std_errors, conf_int, (
+            "; the Hessian is not finite (no standard errors): the likelihood could not be evaluated "
+            "near the estimate, which often means a parameter is at the edge of its region")
+    return covariance, std_errors, conf_int, ""
 
 
-def _control_facts(control: ControlSpec, settings, out, diagnostics, extra) -> dict:
+def _control_entries(facts) -> dict:
     """The control-variate entries of ``FitResult.eis`` (none without control variates)."""
-    if control.label is None:
+    if facts is None:
         return {}
-    facts = {
-        "control_variates": control.label,
-        "loglik_uncorrected": float(out.value),
-        "nse_uncorrected": float(diagnostics["nse"]),
-        "cv_coefficients": dict(zip(control.names(settings.antithetic), np.asarray(extra["coefficients"]).tolist())),
-    }
-    if "independent_error" in extra:
-        facts["independent_error"] = float(extra["independent_error"])
-    return facts
+    return {k: v for k, v in facts._asdict().items() if v is not None}

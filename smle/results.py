@@ -114,6 +114,8 @@ class FitResult:
         data["conf_int"] = {k: tuple(v) for k, v in data["conf_int"].items()}
         if data.get("observations") is not None:
             data["observations"] = np.asarray(data["observations"], dtype=float)
+        if "loglik_uncorrected" in data.get("eis", {}):  # the name this entry had in results saved by earlier versions
+            data["eis"] = {("value_uncorrected" if k == "loglik_uncorrected" else k): v for k, v in data["eis"].items()}
         return cls(**data)
 
     @classmethod
@@ -171,7 +173,7 @@ def _control_lines(eis: dict) -> list[str]:
         return []
     coefficients = ", ".join(f"{k} {v:.3f}" for k, v in eis.get("cv_coefficients", {}).items())
     return [f"control variates {eis['control_variates']!r} ({coefficients}): uncorrected log-likelihood "
-            f"{eis['loglik_uncorrected']:.4f}, NSE {eis['nse_uncorrected']:.4f}"]
+            f"{eis['value_uncorrected']:.4f}, NSE {eis['nse_uncorrected']:.4f}"]
 
 
 def _equal(a, b) -> bool:

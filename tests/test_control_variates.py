@@ -13,6 +13,7 @@ import pytest
 
 import smle
 from smle.engine import eis
+from smle.engine.control import draw_statistics
 from smle.errors import SmleInputError
 from smle.reference import grid_loglik, kalman_loglik
 
@@ -98,7 +99,7 @@ def test_draw_statistics_have_mean_zero_and_unit_variance():
     # the probabilists' Hermite polynomials are orthonormal (up to k!) under N(0, 1)
     # (Abramowitz and Stegun 1964, 22.2.15); checked on 40000 independent draws
     z = jax.random.normal(jax.random.PRNGKey(0), (50, 40000))
-    stats = np.asarray(eis.draw_statistics(z, antithetic=False))
+    stats = np.asarray(draw_statistics(z, antithetic=False))
     assert stats.shape == (40000, 4)
     # every product moment E[H_i H_j] = delta_ij, within 4 of its own standard errors (the
     # products are far from normal, so each error is measured from the draws themselves)
@@ -113,7 +114,7 @@ def test_corrected_objective_gradient_matches_finite_differences():
     # the corrected log-likelihood is what fit maximises; its gradient (implicit differentiation of
     # both fixed points plus the quadrature's) must be exact: central differences, h = 1e-5
     fit_module = pytest.importorskip("smle.fit")
-    from smle.likelihood import ControlSpec
+    from smle.engine.control import ControlSpec
 
     model = smle.get_model("sv")
     y, _ = smle.simulate(model, JPR_DESIGNS["phi=0.95"], 500, seed=31)

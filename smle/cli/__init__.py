@@ -1,4 +1,4 @@
-"""The ``smle`` command line: one module per command, shared options and readers in :mod:`smle.cli.app`."""
+"""The ``smle`` command line: one module per command, shared options and readers in :mod:`smle.cli.shared`."""
 
 from smle.cli.app import main
 

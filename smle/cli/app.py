@@ -4,7 +4,7 @@
     smle models                       list the registered models and their parameters
     smle demo                         fit the invented demo scenario end to end
     smle prepare intraday.csv         prices to the aligned daily table of returns and measures
-    smle check data.csv --params ...  health check of the simulated likelihood (smle/health_cli.py)
+    smle check data.csv --params ...  health check of the simulated likelihood (smle/cli/check.py)
     smle diagnose result.json         goodness of fit of a saved fit: PITs, residual tests, figures
 """
 
@@ -15,55 +15,9 @@ import sys
 import tempfile
 from pathlib import Path
 
-import numpy as np
 
+from smle.cli.shared import add_column_options, read_saved_fit, read_series
 from smle.errors import SmleInputError
-
-
-def _read_series(path: str, column: str | None, prices: bool, drop_missing: bool) -> tuple[np.ndarray, object, str]:
-    """One numeric column of a CSV file as returns (percent log returns when ``prices``)."""
-    import pandas as pd
-
-    try:
-        frame = pd.read_csv(path)
-    except FileNotFoundError:
-        raise SmleInputError(f"data file {path!r} does not exist") from None
-    except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as error:
-        raise SmleInputError(f"data file {path!r} could not be read as CSV: {error}") from None
-    if column is None:
-        numeric = [c for c in frame.columns if pd.api.types.is_numeric_dtype(frame[c]) and str(c).lower() not in ("rownames", "index", "")]
-        if not numeric:
-            raise SmleInputError(f"{path!r} has no numeric column; its columns are: {', '.join(map(str, frame.columns))}")
-        column = numeric[-1]
-    elif column not in frame.columns:
-        raise SmleInputError(f"--column {column!r} is not in {path!r}; its columns are: {', '.join(map(str, frame.columns))}")
-    series = pd.to_numeric(frame[column], errors="coerce")
-    bad_text = series.isna() & frame[column].notna()
-    if bad_text.any():
-        rows = [int(r) + 2 for r in np.flatnonzero(bad_text.to_numpy())[:5]]
-        raise SmleInputError(f"column {column!r} of {path!r} has non-numeric values at file line(s) {rows}")
-    missing = series.isna().to_numpy()
-    if missing.any():
-        rows = [int(r) + 2 for r in np.flatnonzero(missing)[:10]]
-        if not drop_missing:
-            raise SmleInputError(
-                f"column {column!r} of {path!r} has {int(missing.sum())} missing value(s), at file line(s) {rows}"
-                f"{' ...' if missing.sum() > 10 else ''}; fix them, or pass --drop-missing to drop those rows"
-            )
-        print(f"dropped {int(missing.sum())} row(s) with a missing {column!r} (file lines {rows}...)", file=sys.stderr)
-        frame = frame.loc[~missing]
-        series = series.loc[~missing]
-    values = series.to_numpy(dtype=float)
-    index = frame.iloc[:, 0].to_numpy() if frame.shape[1] > 1 else np.arange(len(values))
-    unit = "as given"
-    if prices:
-        if np.any(values <= 0):
-            row = int(np.flatnonzero(values <= 0)[0]) + 2
-            raise SmleInputError(f"--prices: column {column!r} has a non-positive price at file line {row}")
-        values = 100.0 * np.diff(np.log(values))
-        index = index[1:]
-        unit = "percent log returns"
-    return values, index, f"{column} ({unit})"
 
 
 def _write_report(result, y, folder: Path, label: str, args=None) -> list[str]:
@@ -106,27 +60,15 @@ def _fit_and_report(model_name, y, label, args) -> int:
 
 
 def _command_fit(args) -> int:
-    y, _, label = _read_series(args.data, args.column, args.prices, args.drop_missing)
+    y, _, label = read_series(args.data, args.column, args.prices, args.drop_missing)
     return _fit_and_report(args.model, y, label, args)
-
-
-def read_saved_fit(path: str, argument: str):
-    """A :class:`~smle.FitResult` from its JSON file, or an error naming ``argument`` and the file."""
-    import smle
-
-    try:
-        return smle.FitResult.from_json(path)
-    except FileNotFoundError:
-        raise SmleInputError(f"{argument} {path!r} does not exist") from None
-    except (ValueError, KeyError, TypeError) as error:
-        raise SmleInputError(f"{argument} {path!r} is not a fit saved by 'smle fit --report' ({error})") from None
 
 
 def _command_diagnose(args) -> int:
     result = read_saved_fit(args.result, "result file")
     y = None
     if args.data:
-        y, _, _ = _read_series(args.data, args.column, args.prices, args.drop_missing)
+        y, _, _ = read_series(args.data, args.column, args.prices, args.drop_missing)
     elif result.observations is None:
         raise SmleInputError(f"{args.result!r} stores no observations; give the data with --data")
     diagnostics = _diagnose(result, y, args)
@@ -176,15 +118,6 @@ def _command_prepare(args) -> int:
     print(table.head().to_string())
     print(f"... {len(table)} daily rows written to {table.attrs['output_path']}")
     return 0
-
-
-def add_column_options(parser, which: str = "") -> None:
-    """``--column``, ``--prices`` and ``--drop-missing``: how a CSV column becomes returns (see _read_series)."""
-    parser.add_argument("--column", help=f"column {which}to use (default: the last numeric column)")
-    parser.add_argument("--prices", action="store_true",
-                        help=f"the column {which}holds prices: convert to percent log returns")
-    parser.add_argument("--drop-missing", action="store_true",
-                        help=f"drop rows {which}with a missing value instead of failing")
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -51,7 +51,7 @@ def _model_and_params(args):
         raise SmleInputError("give exactly one of --params NAME=VALUE,... and --from-fit RESULT.json")
     if args.params is not None:
         return smle.get_model(args.model), _parse_params(args.params)
-    from smle.cli.app import read_saved_fit
+    from smle.cli.shared import read_saved_fit
 
     fitted = read_saved_fit(args.from_fit, "--from-fit")
     return smle.get_model(fitted.model, **fitted.model_options), dict(fitted.params)
@@ -61,10 +61,10 @@ def _command_check(args) -> int:
     import numpy as np
 
     import smle
-    from smle.cli.app import _read_series
+    from smle.cli.shared import read_series
 
     model, params = _model_and_params(args)
-    y, index, label = _read_series(args.data, args.column, args.prices, args.drop_missing)
+    y, index, label = read_series(args.data, args.column, args.prices, args.drop_missing)
     index = np.asarray(index)
     dates = None if index.dtype.kind in "iu" else [str(v) for v in index]
 
@@ -92,7 +92,7 @@ def add_check_command(commands) -> None:
     """Register ``smle check`` on the ``smle`` sub-command parser."""
     import argparse
 
-    from smle.cli.app import add_column_options
+    from smle.cli.shared import add_column_options
 
     check = commands.add_parser(
         "check", help="health check of the simulated likelihood at given parameters (noise, weight tail, NSE)",

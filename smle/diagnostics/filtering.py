@@ -51,7 +51,8 @@ import jax.numpy as jnp
 import numpy as np
 
 from smle.errors import SmleInputError
-from smle.likelihood import as_key, checked_inputs
+from smle.engine.posterior import weighted_quantiles
+from smle.validation import as_key, check_integer, checked_inputs, jax_params
 from smle.models import Model
 
 MIN_PARTICLES = 100
@@ -135,28 +136,6 @@ def systematic_ancestors(log_weights: jax.Array, uniform: jax.Array) -> jax.Arra
     return jnp.minimum(jnp.cumsum(marks[:n]), n - 1)
 
 
-def _weighted_quantiles(x, weights, probabilities, n_bisections: int = 30):
-    """Weighted quantiles of particles ``x`` (N,) with normalised ``weights`` by bisection.
-
-    Bisection on the weighted empirical CDF between the smallest and largest particle: the
-    bracket shrinks to (max - min) / 2^30, far below the Monte Carlo error, and costs O(N)
-    per step, against a sort that took four times as long for 2000 particles on CPU.
-    """
-    probabilities = jnp.asarray(probabilities, x.dtype)
-    lower = jnp.full(probabilities.shape, jnp.min(x))
-    upper = jnp.full(probabilities.shape, jnp.max(x))
-
-    def bisect(_, bracket):
-        lower, upper = bracket
-        middle = 0.5 * (lower + upper)
-        below = (x[None, :] <= middle[:, None]).astype(x.dtype) @ weights
-        short = below < probabilities
-        return jnp.where(short, middle, lower), jnp.where(short, upper, middle)
-
-    _, upper = jax.lax.fori_loop(0, n_bisections, bisect, (lower, upper))
-    return upper
-
-
 def guided_filter(model: Model, params: Mapping, y, key, n_particles: int,
                   resample_threshold=0.5) -> FilterOutput:
     """Pure JAX guided particle filter (see the module docstring); ``params`` are JAX scalars."""
@@ -196,7 +175,7 @@ def guided_filter(model: Model, params: Mapping, y, key, n_particles: int,
         else:
             pit = jnp.zeros((n_series,), dtype=log_w.dtype)
         mean = weights @ current
-        quantiles = _weighted_quantiles(current, weights, QUANTILES)
+        quantiles = weighted_quantiles(current, weights, QUANTILES)
         ess = 1.0 / jnp.sum(weights**2)
         resample = ess < threshold
         ancestors = systematic_ancestors(log_w, jax.random.uniform(period_keys[1], dtype=log_w.dtype))
@@ -253,11 +232,7 @@ class FilterResult:
 
 def check_filter_settings(n_particles, resample_threshold) -> tuple[int, float]:
     """Validate the filter's settings; return them as (int, float)."""
-    if isinstance(n_particles, bool) or not isinstance(n_particles, (int, np.integer)) or n_particles < MIN_PARTICLES:
-        raise SmleInputError(
-            f"n_particles = {n_particles!r} is not accepted; accepted: an integer >= {MIN_PARTICLES} "
-            "(2000 is a good default)"
-        )
+    check_integer("n_particles", n_particles, MIN_PARTICLES, "2000 is a good default")
     if isinstance(resample_threshold, bool) or not isinstance(resample_threshold, (int, float)) \
             or not 0.0 < resample_threshold <= 1.0:
         raise SmleInputError(
@@ -290,8 +265,7 @@ def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000
     model, checked, y = checked_inputs(model, params, y)
     n_particles, resample_threshold = check_filter_settings(n_particles, resample_threshold)
     key = as_key(seed)
-    params_jax = {k: jnp.asarray(v, float) for k, v in checked.items()}
-    out = compiled_filter(model, n_particles)(params_jax, jnp.asarray(y), key, resample_threshold)
+    out = compiled_filter(model, n_particles)(jax_params(checked), jnp.asarray(y), key, resample_threshold)
     log_predictive = np.asarray(out.log_predictive)
     if not np.all(np.isfinite(log_predictive)):
         bad = np.flatnonzero(~np.isfinite(log_predictive))

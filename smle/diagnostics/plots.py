@@ -7,6 +7,8 @@ from pathlib import Path
 import numpy as np
 from matplotlib.figure import Figure
 
+from smle.diagnostics.residual_tests import autocorrelations
+
 
 def _subplots(*args, figsize, **kwargs):
     """A figure and its axes without pyplot, so that drawing here leaves a notebook's backend alone."""
@@ -57,19 +59,31 @@ def _band_normal(n: int, level: float = 0.95) -> float:
     return float(ndtri(0.5 + level / 2)) / np.sqrt(n)
 
 
+_COLOURS = ("#33506e", "#8c3b1e")
+
+
 def diagnostics_figures(diagnostics, folder) -> list[Path]:
     """The four goodness-of-fit figures of a :class:`smle.diagnostics.gof.Diagnostics` report into ``folder``:
     Q-Q plot of the normal scores, PIT histogram with a 95% band, autocorrelation of the scores
     and squared scores with 95% bands, and the filtered and smoothed factor paths."""
+    folder = Path(folder)
+    figures = ((_qq_scores, "qq_scores.png"), (_pit_histogram, "pit_histogram.png"),
+               (_autocorrelation_scores, "autocorrelation_scores.png"),
+               (_factor_filtered_smoothed, "factor_filtered_smoothed.png"))
+    paths = []
+    for draw, name in figures:
+        figure = draw(diagnostics)
+        figure.tight_layout()
+        paths.append(folder / name)
+        figure.savefig(paths[-1], dpi=110)
+    return paths
+
+
+def _qq_scores(d) -> Figure:
+    """Q-Q plot, with a pointwise 95% band from the order statistics of a normal sample."""
     from scipy import stats
 
-    folder = Path(folder)
-    d = diagnostics
     n, n_series = d.scores.shape
-    colours = ("#33506e", "#8c3b1e")
-    paths = []
-
-    # Q-Q plot, with a pointwise 95% band from the order statistics of a normal sample
     figure, axes = _subplots(1, n_series, figsize=(5.2 * n_series, 4.6), squeeze=False)
     probabilities = (np.arange(1, n + 1) - 0.5) / n
     theoretical = stats.norm.ppf(probabilities)
@@ -78,23 +92,26 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     upper = stats.norm.ppf(stats.beta.ppf(0.975, ranks, n + 1 - ranks))
     for k, axis in enumerate(axes[0]):
         axis.fill_between(theoretical, lower, upper, color="#cccccc", alpha=0.7, label="95% pointwise band")
-        axis.plot(theoretical, np.sort(d.scores[:, k]), ".", ms=2.5, color=colours[k], label="normal scores")
+        axis.plot(theoretical, np.sort(d.scores[:, k]), ".", ms=2.5, color=_COLOURS[k], label="normal scores")
         axis.plot(theoretical, theoretical, color="black", lw=0.8, label="45-degree line")
         axis.set_xlabel("standard normal quantile (no unit)")
         axis.set_ylabel("ordered normal score (no unit)")
         axis.set_title(f"Q-Q plot of {d.series[k]} normal scores ({d.model})")
         axis.legend(loc="upper left", fontsize=8)
         axis.grid(alpha=0.3)
-    figure.tight_layout()
-    paths.append(folder / "qq_scores.png")
-    figure.savefig(paths[-1], dpi=110)
+    return figure
 
-    # PIT histogram: 20 bins; band from the binomial count of a bin under uniform PITs
+
+def _pit_histogram(d) -> Figure:
+    """PIT histogram: 20 bins; band from the binomial count of a bin under uniform PITs."""
+    from scipy import stats
+
+    n, n_series = d.scores.shape
     bins = 20
     figure, axes = _subplots(1, n_series, figsize=(5.2 * n_series, 4.2), squeeze=False)
     low, high = stats.binom.ppf([0.025, 0.975], n, 1.0 / bins) * bins / n
     for k, axis in enumerate(axes[0]):
-        axis.hist(d.pit[:, k], bins=bins, range=(0, 1), density=True, color=colours[k], alpha=0.75,
+        axis.hist(d.pit[:, k], bins=bins, range=(0, 1), density=True, color=_COLOURS[k], alpha=0.75,
                   edgecolor="white", label="PITs")
         axis.axhspan(low, high, color="#e3a857", alpha=0.35, label="95% band per bin (uniform PITs)")
         axis.axhline(1.0, color="black", lw=0.8)
@@ -102,13 +119,12 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
         axis.set_ylabel("density (no unit)")
         axis.set_title(f"Histogram of {d.series[k]} PITs ({n} periods)")
         axis.legend(loc="lower center", fontsize=8)
-    figure.tight_layout()
-    paths.append(folder / "pit_histogram.png")
-    figure.savefig(paths[-1], dpi=110)
+    return figure
 
-    # autocorrelation of scores and squared scores
-    from smle.diagnostics.gof import autocorrelations
 
+def _autocorrelation_scores(d) -> Figure:
+    """Autocorrelation of the scores and the squared scores, with 95% bands under i.i.d. data."""
+    n, n_series = d.scores.shape
     max_lag = int(min(30, n // 4))
     lags = np.arange(1, max_lag + 1)
     band = _band_normal(n)
@@ -116,20 +132,20 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     for k in range(n_series):
         for j, (values, what) in enumerate(((d.scores[:, k], "normal scores"), (d.scores[:, k] ** 2, "squared scores"))):
             axis = axes[k, j]
-            axis.vlines(lags, 0, autocorrelations(values, max_lag), color=colours[k], lw=2)
+            axis.vlines(lags, 0, autocorrelations(values, max_lag), color=_COLOURS[k], lw=2)
             axis.axhspan(-band, band, color="#cccccc", alpha=0.6, label="95% band, i.i.d. (1.96 / sqrt(T))")
             axis.axhline(0, color="black", lw=0.6)
             axis.set_xlabel("lag (periods)")
             axis.set_ylabel("autocorrelation (no unit)")
             axis.set_title(f"Autocorrelation of {d.series[k]} {what}")
             axis.legend(loc="upper right", fontsize=8)
-    figure.tight_layout()
-    paths.append(folder / "autocorrelation_scores.png")
-    figure.savefig(paths[-1], dpi=110)
+    return figure
 
-    # factor paths: filtered (data up to t) and smoothed (all data)
+
+def _factor_filtered_smoothed(d) -> Figure:
+    """Factor paths: filtered (data up to t) and smoothed (all data)."""
     f = d.filter
-    t = np.arange(1, n + 1)
+    t = np.arange(1, d.scores.shape[0] + 1)
     figure, axis = _subplots(figsize=(10, 4.2))
     axis.fill_between(t, f.filtered_lower, f.filtered_upper, color="#9fb8d0", alpha=0.5, label="filtered 5%-95%")
     axis.plot(t, f.filtered_mean, color="#33506e", lw=0.8, label="filtered mean (data up to t)")
@@ -139,7 +155,4 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     axis.set_title(f"Filtered and smoothed {f.factor_name} ({d.model}, {f.n_particles} particles)")
     axis.legend(loc="upper right", fontsize=8)
     axis.grid(alpha=0.3)
-    figure.tight_layout()
-    paths.append(folder / "factor_filtered_smoothed.png")
-    figure.savefig(paths[-1], dpi=110)
-    return paths
+    return figure

@@ -18,6 +18,8 @@ def register(cls: type[Model]) -> type[Model]:
     """Class decorator adding a model to the registry under ``cls.name``."""
     if not cls.name:
         raise ValueError(f"{cls.__name__} has no name")
+    if len(cls.series_labels) < cls.n_series:
+        raise ValueError(f"{cls.__name__} has {cls.n_series} series but series_labels {cls.series_labels}")
     if cls.name in _REGISTRY and _REGISTRY[cls.name] is not cls:
         raise ValueError(f"a model named '{cls.name}' is already registered")
     _REGISTRY[cls.name] = cls

@@ -31,6 +31,8 @@ from smle.models.base import Model
 class _GaussianNoise:
     """The measurement shared by both forms: y_t = x_t + N(0, sigma_eps^2)."""
 
+    series_labels = ("observation",)
+
     def log_obs_density(self, params, data, x):
         return log_normal_density(data[:, None], x, params["sigma_eps"] ** 2)
 

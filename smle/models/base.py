@@ -1,21 +1,42 @@
-"""The model plug-in interface.
+"""The model plug-in interface, stated once.
 
-A model is a frozen (hashable) dataclass: the engine JIT-compiles once per (model, data shape)
-and treats the model instance as static. It supplies, as pure JAX functions of a parameter
-mapping ``params`` (name -> scalar):
+A model is a frozen (hashable) dataclass subclassing :class:`Model`, registered by
+``@smle.models.register``: the engine JIT-compiles once per (model, data shape) and treats the
+model instance as static. The engine takes a model instance and never imports this package.
+Everything below is a pure JAX function of a parameter mapping ``params`` (name -> scalar).
+
+Class attributes (set in the model's own module):
+
+* ``name`` (the registry name), ``summary``, ``equations``: required;
+* ``n_series`` (observed series, columns of y; default 1), ``series_labels`` (what each
+  series is, for the goodness-of-fit tests; default ``("return",)``), ``min_periods``,
+  ``stationary_state``, ``expects_returns``, ``factor_name``;
+* ``state_dim``: dimension of the latent state (default 1; 0 means no latent state, the
+  likelihood in closed form).
+
+Required methods:
 
 * ``constraints()``: the admissible region of each parameter and its bijection to the real line;
 * ``latent(params)``: the latent Gaussian AR(1) coefficients implied by theta;
-* ``prepare(params, y)``: any data-only precomputation (a GARCH scale path, say);
 * ``log_obs_density(params, data, x)``: log g_t(y_t | x_t) for paths ``x`` of shape (T, S);
 * ``simulate(params, n_periods, key)``: observations and the latent path;
-* ``start_params(y)``: sensible start values from the data;
-* optionally ``independent_params(params)``: the parameters with the factor autocorrelation set
-  to zero, enabling :meth:`Model.independent_loglik` (adaptive Gauss-Hermite per period, or a
-  model's own closed form).
+* ``start_params(y)``: sensible start values from the data.
+
+Optional hooks (each has a default here):
+
+* ``prepare(params, y)``: data-only precomputation (a GARCH scale path, say);
+* ``mode_guess(params, data)``: a rough posterior-mode path starting the EIS Newton steps;
+* ``check_data(y)``, ``check_joint(params)``: model-specific checks of data and of joint
+  parameter constraints (with ``to_real``/``from_real`` for a joint bijection);
+* ``independent_params(params)``: the parameters with the factor autocorrelation set to zero,
+  enabling the independent control variate and :meth:`Model.independent_loglik` (adaptive
+  Gauss-Hermite per period, or a model's own closed form);
+* ``obs_cdf(params, data, x)``: the conditional CDF, for PITs (:func:`smle.diagnose`);
+* ``period_data(data, t)``: one period of prepared data, for the particle filter.
 
 The engine knows nothing about any particular model.
 """
+
 
 from __future__ import annotations
 
@@ -42,6 +63,14 @@ class Model:
     stationary_state: ClassVar[bool] = True
     expects_returns: ClassVar[bool] = False
     factor_name: ClassVar[str] = "latent state x_t"
+    series_labels: ClassVar[tuple[str, ...]] = ("return",)
+    """What each observed series is, in column order (its first ``n_series`` entries label the
+    goodness-of-fit tests and figures): ``("return",)``, ``("observation",)``,
+    ``("return", "realized measure")``."""
+    state_dim: ClassVar[int] = 1
+    """Dimension of the latent state: 1 for the AR(1) factor every model has today; 0 means no
+    latent state (the likelihood in closed form). Nothing reads it yet: it is there for the
+    likelihood methods to come (the exact grid method is for ``state_dim == 1``)."""
 
     # -- to be supplied by each model ---------------------------------------------------------
     def constraints(self) -> dict[str, Constraint]:
@@ -155,3 +184,9 @@ class Model:
         data hold leaves that are not indexed by time override this.
         """
         return jax.tree.map(lambda leaf: jax.lax.dynamic_slice_in_dim(leaf, t, 1, axis=0), data)
+
+
+def model_options(model: Model) -> dict:
+    """The constructor options of a model instance, by name (``dataclasses.fields`` leaves out
+    the class-level attributes such as ``name``), as saved with a fit or a health report."""
+    return {f.name: getattr(model, f.name) for f in dataclasses.fields(model)}

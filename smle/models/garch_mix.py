@@ -140,6 +140,7 @@ class GarchMix(Model):
     )
     expects_returns = True
     factor_name = "standardised mixing state x_t"
+    series_labels = ("return", "realized measure")  # the first n_series of them (the second with realized)
 
     def __post_init__(self):
         if self.link not in LINKS:

@@ -86,6 +86,7 @@ class RealizedStochasticVolatility(LogVarianceState):
         "x_t - mu = phi (x_{t-1} - mu) + sigma_eta eta_t"
     )
     n_series = 2
+    series_labels = ("return", "realized measure")
 
     def constraints(self):
         return {

@@ -88,7 +88,7 @@ def grid_filter(model, params, y, n_grid: int = 1000, width: float = 8.0) -> Gri
       n_grid: number of grid points.
       width: half-width of the grid in stationary standard deviations of the state.
     """
-    from smle.likelihood import checked_inputs
+    from smle.validation import checked_inputs, jax_params
 
     model, checked, y = checked_inputs(model, params, y)
     if not model.stationary_state:
@@ -100,8 +100,7 @@ def grid_filter(model, params, y, n_grid: int = 1000, width: float = 8.0) -> Gri
         raise SmleInputError(f"n_grid = {n_grid!r} is too small; accepted: an integer >= 50")
     if not float(width) > 3.0:
         raise SmleInputError(f"width = {width!r} is too narrow; accepted: > 3 stationary standard deviations")
-    params_jax = {k: jnp.asarray(v, float) for k, v in checked.items()}
-    return _grid_filter_jit(model, params_jax, jnp.asarray(y), int(n_grid), float(width))
+    return _grid_filter_jit(model, jax_params(checked), jnp.asarray(y), int(n_grid), float(width))
 
 
 def grid_loglik(model, params, y, n_grid: int = 1000, width: float = 8.0) -> float:

@@ -56,7 +56,7 @@ def bias_rmse_against_length(summary, path, title: str = "study") -> Path:
 
 def estimate_distributions(store, path, title: str = "study") -> Path:
     """Histograms of the estimates per design (rows) and parameter (columns), truth marked."""
-    from smle.study.summary import read_results
+    from smle.study.tables import read_results
 
     plt = _pyplot()
     designs, replications, estimates = read_results(store)

@@ -159,14 +159,17 @@ def _is_int(value) -> bool:
 
 
 def _check_int(where: str, name: str, value, minimum: int) -> int:
-    if not _is_int(value) or value < minimum:
-        raise SmleInputError(f"{where}: {name} = {describe(value)} is not accepted; accepted: an integer >= {minimum}")
-    return int(value)
+    from smle.validation import check_integer
+
+    try:
+        return check_integer(name, value, minimum)
+    except SmleInputError as error:
+        raise SmleInputError(f"{where}: {error}") from None
 
 
 def check_design(design: Design) -> Design:
     """Validate a design against the model registry and the estimator's rules; return it normalised."""
-    from smle.likelihood import check_settings
+    from smle.validation import check_settings
     from smle.models import get_model
     from smle.params import check_params
 

@@ -23,7 +23,6 @@ and their Monte Carlo standard errors).
 
 from __future__ import annotations
 
-import json
 import math
 from pathlib import Path
 
@@ -32,28 +31,9 @@ import pandas as pd
 
 from smle.study import store as store_module
 from smle.study.runner import format_duration
+from smle.study.tables import read_results
 
 STATISTICS = ("mean", "bias", "median", "sd", "rmse", "mean_se", "se_ratio", "coverage", "convergence_rate")
-
-
-def read_results(store) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
-    """``(designs, replications, estimates)`` tables of a store, in study order."""
-    connection = store_module.open_read_only(store)
-    try:
-        designs = pd.read_sql_query("SELECT name, position, replications, definition FROM designs ORDER BY position",
-                                    connection)
-        replications = pd.read_sql_query(
-            "SELECT r.* FROM replications r JOIN designs d ON d.name = r.design ORDER BY d.position, r.replication",
-            connection)
-        estimates = pd.read_sql_query(
-            "SELECT e.* FROM estimates e JOIN designs d ON d.name = e.design ORDER BY d.position, e.replication, e.rowid",
-            connection)
-    finally:
-        connection.close()
-    designs["definition"] = designs["definition"].map(json.loads)
-    designs["n_periods"] = designs["definition"].map(lambda d: d["n_periods"])
-    designs["model"] = designs["definition"].map(lambda d: d["model"])
-    return designs, replications, estimates
 
 
 def _proportion(flags: np.ndarray) -> tuple[float, float]:

@@ -1,0 +1,154 @@
+"""The findings of a likelihood health check, one small function each, and the verdict.
+
+Each finding reads the :class:`Evidence` the check measured and returns :class:`Finding` s: a
+sentence for the report and, when it counts against the likelihood, a severity ('doubtful' or
+'unreliable') with the words the verdict gives. Adding a finding is one function added to
+:data:`FINDINGS` (plus the report's figures or text only if it draws or prints something new).
+The thresholds and their sources are in :mod:`smle.diagnostics.health_report`.
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+from scipy import stats
+
+from smle.diagnostics.health_report import (
+    AGREEMENT_LEVEL, FULL_TAIL_DRAWS, NSE_LIMIT, SCALING_MIN_SEEDS,
+)
+from smle.diagnostics.weight_tail import TailVerdict
+
+
+class Evidence(NamedTuple):
+    """What the findings judge (measured by :func:`smle.diagnostics.health.check`).
+
+    Attributes:
+      n_seeds: R; n_draws: S of the seed runs; main: the seed runs (value, nse, ess,
+        iterations, converged, last_change each).
+      sd: spread of log L_hat over the seeds; nse_single: root mean square single-run NSE;
+        ratio: ``nse_single / sd``; ratio_range: its range under agreement.
+      degenerate: all tail-run weights equal (exact sampler); tail: the tail verdict (None when
+        degenerate); tail_draws: scoring draws of the tail run.
+      scaling: rows of the NSE-against-S table (empty when not measured); slope, slope_se: the
+        log-log slope and its se; holds_from: smallest S from which the scaling holds.
+    """
+
+    n_seeds: int
+    n_draws: int
+    main: list
+    sd: float
+    nse_single: float
+    ratio: float
+    ratio_range: tuple
+    degenerate: bool
+    tail: TailVerdict | None
+    tail_draws: int
+    scaling: list
+    slope: float
+    slope_se: float
+    holds_from: int | None
+
+    @property
+    def scaling_judged(self) -> bool:
+        """Whether the NSE scaling enters the verdict (enough seeds and grid points to judge it)."""
+        return bool(self.scaling) and not self.degenerate and self.n_seeds >= SCALING_MIN_SEEDS \
+            and len(self.scaling) >= 3
+
+
+class Finding(NamedTuple):
+    """One sentence of the report; with a severity, ``against`` is what the verdict says of it."""
+
+    text: str
+    severity: str | None = None
+    against: str | None = None
+
+
+def weight_tail_finding(e: Evidence) -> list[Finding]:
+    """The tail of the importance weights (Koopman, Shephard and Creal 2009; Vehtari et al. 2024)."""
+    if e.degenerate:
+        return [Finding("all importance weights are equal (to rounding): the sampler is exact, as EIS is for a "
+                        "linear Gaussian model, so the likelihood has no simulation error")]
+    text = f"weight tail {e.tail.verdict}: {e.tail.reason}"
+    severity = e.tail.verdict if e.tail.verdict in ("unreliable", "doubtful") else None
+    out = [Finding(text, severity, text if severity else None)]
+    if e.tail_draws < FULL_TAIL_DRAWS:
+        out.append(Finding(f"tail run with {e.tail_draws} draws: the tests at the smallest thresholds need "
+                           f"{FULL_TAIL_DRAWS} draws"))
+    return out
+
+
+def nse_level_finding(e: Evidence) -> list[Finding]:
+    """The size of the NSE of one run against ``NSE_LIMIT`` (common practice)."""
+    text = (f"NSE of one run from the spread over seeds is {e.sd:.3f} log units"
+            f" ({'above' if e.sd > NSE_LIMIT else 'below'} {NSE_LIMIT:g}; common practice: above {NSE_LIMIT:g}, "
+            "likelihood-ratio comparisons are mostly simulation noise)")
+    return [Finding(text, "unreliable", text) if e.sd > NSE_LIMIT else Finding(text)]
+
+
+def nse_agreement_finding(e: Evidence) -> list[Finding]:
+    """Single-run NSE against the spread (meaningless at rounding level, for an exact sampler)."""
+    if e.degenerate:
+        return [Finding("single-run NSE and the spread over seeds are both rounding error only")]
+    if e.sd <= 0:
+        text = "every seed gave the same log-likelihood although the weights differ"
+        return [Finding(text, "doubtful", text)]
+    low, high = e.ratio_range
+    agrees = low <= e.ratio <= high
+    text = (f"single-run NSE {e.nse_single:.4f} {'agrees' if agrees else 'disagrees'} with the spread over "
+            f"{e.n_seeds} seeds {e.sd:.4f} (ratio {e.ratio:.2f}; {1 - AGREEMENT_LEVEL:.0%} range for agreement "
+            f"{low:.2f}-{high:.2f})")
+    if agrees:
+        return [Finding(text)]
+    return [Finding(text, "doubtful", text + ("; the single-run NSE understates the error" if e.ratio < 1 else ""))]
+
+
+def convergence_finding(e: Evidence) -> list[Finding]:
+    """EIS convergence over the seed runs."""
+    n_converged = sum(r.converged for r in e.main)
+    text = (f"EIS converged in {n_converged} of {e.n_seeds} runs (iterations {min(r.iterations for r in e.main)}-"
+            f"{max(r.iterations for r in e.main)}, largest last change {max(r.last_change for r in e.main):.1e})")
+    return [Finding(text, "doubtful", text) if n_converged < e.n_seeds else Finding(text)]
+
+
+def scaling_finding(e: Evidence) -> list[Finding]:
+    """The NSE against the number of draws: 1/sqrt(S) under a finite weight variance."""
+    if not e.scaling:
+        return []
+    if e.degenerate:
+        return [Finding("NSE against draws: rounding error only at every S (exact sampler)")]
+    text = (f"NSE falls with the draws with log-log slope {e.slope:.2f} (se {e.slope_se:.2f}; 1/sqrt(S) gives "
+            f"-0.5); NSE sqrt(S) is flat from S = {e.holds_from}")
+    if not e.scaling_judged:
+        text += f" (reported, not judged: that needs at least {SCALING_MIN_SEEDS} seeds and 3 grid points)"
+        return [Finding(text)]
+    z = (e.slope + 0.5) / e.slope_se if e.slope_se > 0 else 0.0
+    if z > stats.norm.ppf(1 - AGREEMENT_LEVEL / 2):
+        return [Finding(text, "doubtful", f"the NSE falls more slowly than 1/sqrt(S) (slope {e.slope:.2f}, "
+                                          f"se {e.slope_se:.2f}): a sign of an infinite weight variance")]
+    if e.holds_from is not None and e.n_draws < e.holds_from:
+        return [Finding(text, "doubtful", f"at {e.n_draws} draws the NSE is not yet in its 1/sqrt(S) regime "
+                                          f"(that starts at S = {e.holds_from} on the grid)")]
+    return [Finding(text)]
+
+
+FINDINGS = (weight_tail_finding, nse_level_finding, nse_agreement_finding, convergence_finding, scaling_finding)
+"""The findings, in the order the report lists them."""
+
+
+def judge(e: Evidence) -> tuple[list[str], str, str]:
+    """``(findings, verdict, reason)``: every finding's sentence, and the verdict with its reason."""
+    findings = [f for finding in FINDINGS for f in finding(e)]
+    unreliable = [f.against for f in findings if f.severity == "unreliable"]
+    doubtful = [f.against for f in findings if f.severity == "doubtful"]
+    if unreliable:
+        verdict, reason = "unreliable", "; ".join(unreliable + doubtful)
+    elif doubtful:
+        verdict, reason = "doubtful", "; ".join(doubtful)
+    else:
+        verdict = "healthy"
+        reason = ("the weights are equal (exact sampler)" if e.degenerate else
+                  f"no sign of an infinite weight variance, NSE {e.sd:.3f} from {e.n_seeds} seeds agrees with the "
+                  "single-run NSE, EIS converged")
+        if e.scaling_judged:
+            reason += ", and the NSE falls as 1/sqrt(S)"
+    return [f.text for f in findings], verdict, reason

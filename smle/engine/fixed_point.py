@@ -1,0 +1,219 @@
+"""The EIS fixed point and its implicit gradient.
+
+The auxiliary parameters are the fixed point ``a* = Phi(a*, theta)`` of one EIS iteration
+(:func:`eis_map`), started by Newton steps towards the posterior mode. The fixed point is found by
+iteration to ``tol`` and differentiated by the implicit function theorem: a custom VJP whose
+adjoint equation is solved by fixed-point iteration to ``tangent_tol``, so the gradient is the
+exact gradient of the function evaluated (auxiliary parameters re-fitted at every theta with the
+same random numbers). Richard and Zhang (2007), J. Econometrics 141.
+"""
+
+from __future__ import annotations
+
+import functools
+from typing import NamedTuple
+
+import jax
+import jax.numpy as jnp
+
+from smle.engine.latent import LatentAR1
+from smle.engine.sampler import (
+    Auxiliary, EISSettings, assemble, draw_paths, fit_quadratic, mean_path,
+)
+
+
+class EISInfo(NamedTuple):
+    """Diagnostics of one EIS evaluation.
+
+    Attributes:
+      iterations: EIS iterations used after the Newton start.
+      converged: whether the last change fell below the tolerance.
+      last_change: largest relative change of the auxiliary parameters at the last iteration.
+      r_squared: per-period R^2 of the final regressions, shape (T,).
+    """
+
+    iterations: jax.Array
+    converged: jax.Array
+    last_change: jax.Array
+    r_squared: jax.Array
+
+
+# ---------------------------------------------------------------------------------------------
+# The EIS fixed point
+
+
+def _elementwise_derivatives(log_obs_fn, x):
+    """First and second derivatives of a separable function of x, elementwise."""
+    grad_fn = jax.grad(lambda v: jnp.sum(log_obs_fn(v)))
+    first, second = jax.jvp(grad_fn, (x,), (jnp.ones_like(x),))
+    return first, second
+
+
+def newton_start(state: LatentAR1, log_obs_fn, guess: jax.Array, n_newton: int) -> Auxiliary:
+    """Auxiliary parameters from a second-order expansion of log g_t about the posterior mode.
+
+    Each step expands log g_t about the current path (curvature clipped at zero so that the
+    kernel stays integrable), assembles the Gaussian approximation and moves to its mean path;
+    for log-concave g_t this is Newton's method for the joint mode.
+    """
+
+    def expand(point):
+        first, second = _elementwise_derivatives(log_obs_fn, point[:, None])
+        c_obs = jnp.maximum(-second[:, 0], 0.0)
+        b_obs = first[:, 0] + c_obs * point
+        return Auxiliary(b_obs, c_obs)
+
+    def step(point, _):
+        return mean_path(assemble(state, expand(point))), None
+
+    point, _ = jax.lax.scan(step, guess, None, length=n_newton)
+    return expand(point)
+
+
+def eis_map(state: LatentAR1, log_obs_fn, normals: jax.Array, auxiliary: Auxiliary):
+    """One EIS iteration: draw with the current sampler, regress, return new parameters and R^2.
+
+    The regression is run on the residual of log g_t from the current quadratic, and its
+    coefficients are added to the current ones: the same least-squares solution, but with a
+    rounding error proportional to the residual, which vanishes at an exact (Gaussian) fit.
+    """
+    paths = draw_paths(assemble(state, auxiliary), normals)
+    log_obs = log_obs_fn(paths)
+    current = auxiliary.b_obs[:, None] * paths - 0.5 * auxiliary.c_obs[:, None] * paths**2
+    total_var = jnp.var(log_obs, axis=1)
+    db, dc, r_squared = fit_quadratic(paths, log_obs - current, total_var)
+    # a period whose regression is not finite (a draw far in a tail where log g overflows)
+    # keeps its current parameters; at a fixed point of finite regressions this never acts
+    usable = jnp.isfinite(db) & jnp.isfinite(dc)
+    new = Auxiliary(
+        jnp.where(usable, auxiliary.b_obs + db, auxiliary.b_obs),
+        jnp.where(usable, auxiliary.c_obs + dc, auxiliary.c_obs),
+    )
+    return new, jnp.where(usable, r_squared, 0.0)
+
+
+def _relative_change(new: Auxiliary, old: Auxiliary):
+    return jnp.maximum(
+        jnp.max(jnp.abs(new.b_obs - old.b_obs) / (1.0 + jnp.abs(old.b_obs))),
+        jnp.max(jnp.abs(new.c_obs - old.c_obs) / (1.0 + jnp.abs(old.c_obs))),
+    )
+
+
+def _iterate_to_fixed_point(update, start: Auxiliary, tol, max_iter: int):
+    """Iterate ``a <- update(a)`` until the relative change is below tol or max_iter is reached.
+
+    ``update`` returns ``(new, extra)``; the last ``extra`` (the regressions' R^2) is carried out.
+    """
+
+    def cond(carry):
+        _, _, iteration, change = carry
+        return (iteration < max_iter) & (change > tol)
+
+    def body(carry):
+        current, _, iteration, _ = carry
+        new, extra = update(current)
+        return new, extra, iteration + 1, _relative_change(new, current)
+
+    inf = jnp.asarray(jnp.inf, start.b_obs.dtype)
+    extra = jnp.zeros_like(start.b_obs)
+    return jax.lax.while_loop(cond, body, (start, extra, jnp.asarray(0), inf))
+
+
+def _solve_adjoint(transposed_map, cotangent, tol, max_iter: int):
+    """Solve ``w = cotangent + A^T w`` by fixed-point iteration, A the EIS map's Jacobian in a.
+
+    Converges when the EIS map is a contraction at its fixed point (spectral radius of A below
+    one), the same condition under which the forward iteration converges.
+    """
+
+    def cond(carry):
+        _, iteration, change = carry
+        return (iteration < max_iter) & (change > tol)
+
+    def body(carry):
+        w, iteration, _ = carry
+        new = jax.tree.map(jnp.add, cotangent, transposed_map(w))
+        leaves_new, leaves_old = jax.tree.leaves(new), jax.tree.leaves(w)
+        size = jnp.max(jnp.stack([jnp.max(jnp.abs(n)) for n in leaves_new]))
+        change = jnp.max(jnp.stack([jnp.max(jnp.abs(n - o)) for n, o in zip(leaves_new, leaves_old)])) / (
+            1e-300 + size
+        )
+        return new, iteration + 1, change
+
+    inf = jnp.asarray(jnp.inf, jax.tree.leaves(cotangent)[0].dtype)
+    w, _, change = jax.lax.while_loop(cond, body, (cotangent, jnp.asarray(0), inf))
+    finite = jnp.all(jnp.stack([jnp.all(jnp.isfinite(leaf)) for leaf in jax.tree.leaves(w)]))
+
+    def krylov(_):
+        # the iteration diverged (a numerical spectral radius of A at or above one, seen for an
+        # ill-conditioned exact case): solve (I - A^T) w = cotangent by restarted GMRES instead
+        def operator(v):
+            return jax.tree.map(jnp.subtract, v, transposed_map(v))
+
+        solution, _ = jax.scipy.sparse.linalg.gmres(
+            operator, cotangent, x0=cotangent, tol=tol, atol=0.0, restart=20, maxiter=max(1, max_iter // 20),
+            solve_method="batched",
+        )
+        return solution
+
+    return jax.lax.cond(finite & (change <= tol), lambda _: w, krylov, None)
+
+
+@functools.partial(jax.custom_vjp, nondiff_argnums=(0, 1))
+def _fixed_point(log_obs_fn, settings: EISSettings, inputs, normals, start: Auxiliary):
+    """The EIS fixed point a* = Phi(a*; inputs) with diagnostics (R^2, iterations, change).
+
+    ``inputs = (state, obs_args)`` are the differentiable quantities: the latent AR(1)
+    coefficients and whatever ``log_obs_fn(obs_args, paths)`` depends on. The custom VJP applies
+    the implicit function theorem: d a*/d inputs = (I - A)^{-1} d Phi/d inputs.
+    """
+    state, obs_args = inputs
+
+    def update(a):
+        return eis_map(state, functools.partial(log_obs_fn, obs_args), normals, a)
+
+    fixed, r_squared, iterations, change = _iterate_to_fixed_point(update, start, settings.tol, settings.max_iter)
+    return fixed, (r_squared, iterations.astype(r_squared.dtype), change)
+
+
+def _fixed_point_forward(log_obs_fn, settings, inputs, normals, start):
+    out = _fixed_point(log_obs_fn, settings, inputs, normals, start)
+    return out, (inputs, normals, start, out[0])
+
+
+def _fixed_point_backward(log_obs_fn, settings, residuals, cotangents):
+    inputs, normals, start, fixed = residuals
+    fixed_cotangent = cotangents[0]
+
+    def eis_step(inputs_, a):
+        state, obs_args = inputs_
+        return eis_map(state, functools.partial(log_obs_fn, obs_args), normals, a)[0]
+
+    _, vjp = jax.vjp(eis_step, inputs, fixed)
+    adjoint = _solve_adjoint(lambda w: vjp(w)[1], fixed_cotangent, settings.tangent_tol, settings.max_tangent_iter)
+    inputs_cotangent, _ = vjp(adjoint)
+    return inputs_cotangent, jnp.zeros_like(normals), jax.tree.map(jnp.zeros_like, start)
+
+
+_fixed_point.defvjp(_fixed_point_forward, _fixed_point_backward)
+
+
+def fit_auxiliary(
+    state: LatentAR1, log_obs_fn, obs_args, normals: jax.Array, guess: jax.Array, settings: EISSettings
+) -> tuple[Auxiliary, EISInfo]:
+    """The EIS auxiliary parameters (differentiable by implicit differentiation) and diagnostics.
+
+    ``log_obs_fn(obs_args, paths)`` gives log g_t at paths of shape (T, S).
+    """
+    bound = functools.partial(log_obs_fn, obs_args)
+    start = jax.lax.stop_gradient(newton_start(state, bound, guess, settings.n_newton))
+    auxiliary, (r_squared, iterations, change) = _fixed_point(
+        log_obs_fn, settings, (state, obs_args), normals, start
+    )
+    info = EISInfo(
+        iterations=jax.lax.stop_gradient(iterations).astype(jnp.int32),
+        converged=jax.lax.stop_gradient(change) <= settings.tol,
+        last_change=jax.lax.stop_gradient(change),
+        r_squared=jax.lax.stop_gradient(r_squared),
+    )
+    return auxiliary, info
