@@ -130,32 +130,24 @@ def check_compatible(path, study: Study | None = None, allow_new_version: bool =
 
 
 class Store:
-    """A study store opened for writing by the (single) runner."""
+    """A study store opened for writing by the (single) runner.
+
+    A new store is built complete (tables, meta, designs) in a temporary file of the same
+    folder and then linked into place, so a reader never sees a store file without its tables.
+    """
 
     def __init__(self, path, study: Study, allow_new_version: bool = False):
-        import smle
-
         self.path = Path(path)
         check_compatible(self.path, study, allow_new_version)
         self.path.parent.mkdir(parents=True, exist_ok=True)
+        if not self.path.exists():
+            _create_atomically(self.path, study)
         self.connection = _connect(self.path, read_only=False)
         c = self.connection
         c.execute("PRAGMA journal_mode=WAL")
         c.execute("PRAGMA synchronous=FULL")
         c.execute("PRAGMA foreign_keys=ON")
-        c.executescript(_SCHEMA)
-        with self.transaction():
-            c.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
-            c.execute("INSERT OR IGNORE INTO meta VALUES ('smle_version', ?)", (smle.__version__,))
-            c.execute("INSERT OR IGNORE INTO meta VALUES ('created_at', ?)", (_now(),))
-            c.execute("INSERT OR IGNORE INTO meta VALUES ('master_seed', ?)", (str(study.master_seed),))
-            c.execute("INSERT OR REPLACE INTO meta VALUES ('study', ?)", (canonical_json(study.to_dict()),))
-            c.execute("INSERT OR REPLACE INTO meta VALUES ('study_name', ?)", (study.name,))
-            for position, design in enumerate(study.designs):
-                c.execute(
-                    "INSERT INTO designs VALUES (?, ?, ?, ?) ON CONFLICT(name) DO UPDATE SET "
-                    "position = excluded.position, replications = excluded.replications",
-                    (design.name, position, design.replications, canonical_json(design.identity())))
+        _write_definition(c, study)
 
     def transaction(self):
         return _Transaction(self.connection)
@@ -207,6 +199,51 @@ class Store:
 
     def close(self) -> None:
         self.connection.close()
+
+
+def _write_definition(c: sqlite3.Connection, study: Study) -> None:
+    """Tables (if missing), meta and design rows; the identity of existing designs is kept."""
+    import smle
+
+    c.executescript(_SCHEMA)
+    with _Transaction(c):
+        c.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
+        c.execute("INSERT OR IGNORE INTO meta VALUES ('smle_version', ?)", (smle.__version__,))
+        c.execute("INSERT OR IGNORE INTO meta VALUES ('created_at', ?)", (_now(),))
+        c.execute("INSERT OR IGNORE INTO meta VALUES ('master_seed', ?)", (str(study.master_seed),))
+        c.execute("INSERT OR REPLACE INTO meta VALUES ('study', ?)", (canonical_json(study.to_dict()),))
+        c.execute("INSERT OR REPLACE INTO meta VALUES ('study_name', ?)", (study.name,))
+        for position, design in enumerate(study.designs):
+            c.execute(
+                "INSERT INTO designs VALUES (?, ?, ?, ?) ON CONFLICT(name) DO UPDATE SET "
+                "position = excluded.position, replications = excluded.replications",
+                (design.name, position, design.replications, canonical_json(design.identity())))
+
+
+def _create_atomically(path: Path, study: Study) -> None:
+    """Write a complete new store to a temporary file beside ``path``, then link it to ``path``.
+
+    ``os.link`` fails if ``path`` appeared meanwhile (another runner won the race): that store
+    is then used as it is (:func:`check_compatible` is run on it by the caller's next step).
+    The temporary file is closed (WAL checkpointed, no -wal/-shm left) before it is linked.
+    """
+    temporary = path.with_name(f".{path.name}.{os.getpid()}.{os.urandom(4).hex()}.creating")
+    try:
+        connection = sqlite3.connect(temporary, isolation_level=None)
+        try:
+            connection.execute("PRAGMA journal_mode=WAL")
+            _write_definition(connection, study)
+        finally:
+            connection.close()
+        try:
+            os.link(temporary, path)
+        except FileExistsError:
+            pass
+        except OSError:  # a file system without hard links: replace only if still absent (best effort)
+            if not path.exists():
+                os.replace(temporary, path)
+    finally:
+        temporary.unlink(missing_ok=True)
 
 
 class _Transaction:
