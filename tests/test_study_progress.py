@@ -40,6 +40,12 @@ def test_each_design_has_its_own_typical_time():
     assert remaining_seconds(finished, {"short": 5, "long": 3, "new": 4}, workers=1) == pytest.approx(expected)
 
 
+def test_designs_sharing_a_compiled_program_warm_up_once_per_worker():
+    finished = [("a", "w1", 30.0), ("b", "w1", 2.0), ("b", "w1", 2.0), ("a", "w1", 2.0)]
+    assert remaining_seconds(finished, {"a": 1}, workers=1) is None  # b's first row counted as compiling
+    assert remaining_seconds(finished, {"a": 1}, workers=1, shape_of={"a": 1, "b": 1}) == pytest.approx(2.0)
+
+
 def test_failed_rows_without_a_time_are_ignored():
     finished = [("a", "w1", 30.0), ("a", "w1", None), ("a", "w1", float("nan"))] + [("a", "w1", 4.0)] * 3
     assert remaining_seconds(finished, {"a": 2}, workers=1) == pytest.approx(8.0)
@@ -68,7 +74,8 @@ def test_progress_lines_announce_compilation_and_hold_the_estimate_until_it_mean
         meter.update({"design": design, "status": "ok", "worker": "w1", "elapsed_seconds": seconds})
     lines = stream.getvalue().splitlines()[1:]
     assert len(lines) == 6
-    # warm rows: 2, 3 and 5 (row 1 compiles 'a'; row 4 is the first of 'b' on w1)
-    assert all("estimated once 3 replications" in line for line in lines[:4])
-    assert "about 2 s left" in lines[4]  # one replication of b left, b has no warm row: median 2 s
+    # warm rows: all but row 1 (which compiled the program that 'a' and 'b' share)
+    assert all("estimated once 3 replications" in line for line in lines[:3])
+    assert "about 4 s left" in lines[3]  # one of a and one of b left, 2 s each, one worker
+    assert "about 2 s left" in lines[4]
     assert lines[5].endswith("; done") and "left" not in lines[5]

@@ -48,7 +48,8 @@ def format_duration(seconds: float) -> str:
     return f"{seconds / 3600:.1f} h"
 
 
-def remaining_seconds(finished, remaining: dict, workers: int, min_warm: int = 3) -> float | None:
+def remaining_seconds(finished, remaining: dict, workers: int, min_warm: int = 3,
+                      shape_of: dict | None = None) -> float | None:
     """Wall time left, from the compute times of replications finished after warm-up (None: too early).
 
     Args:
@@ -57,17 +58,21 @@ def remaining_seconds(finished, remaining: dict, workers: int, min_warm: int = 3
       remaining: replications still to run, per design.
       workers: how many run at once.
       min_warm: warm replications needed before an estimate is given.
+      shape_of: design name -> compiled shape (:func:`compile_shape`); designs of one shape
+        share a compiled program (default: each design its own).
 
-    The first replication of a design on a worker carries the compilation of the estimator
-    (tens of seconds against a few for a fit) and is left out; a design's typical time is the
+    The first replication of a compiled shape on a worker carries the compilation of the
+    estimator (tens of seconds against a few for a fit) and is left out; a design's typical time is the
     median of its warm replications (of all warm ones while it has none). The remaining work,
     sum over designs of count x typical time, is shared by ``min(workers, replications left)``.
     """
     seen, warm = set(), {}
+    shape_of = shape_of or {}
     for design, worker, seconds in finished:
-        if (design, worker) in seen and seconds is not None and math.isfinite(seconds):
+        key = (shape_of.get(design, design), worker)
+        if key in seen and seconds is not None and math.isfinite(seconds):
             warm.setdefault(design, []).append(float(seconds))
-        seen.add((design, worker))
+        seen.add(key)
     every = [t for times in warm.values() for t in times]
     if len(every) < min_warm:
         return None
@@ -102,7 +107,7 @@ class Progress:
         self.every = every
         self.done = self.failed = 0
         self.finished = []
-        self.shapes = set()
+        self.shape_of = {}
         self.started = time.perf_counter()
         self.last = -1e9
 
@@ -113,8 +118,9 @@ class Progress:
     def starting(self, design: dict) -> None:
         """Called as a task is handed out: say so when it is the first of its compiled shape."""
         shape = compile_shape(design)
-        if shape not in self.shapes:
-            self.shapes.add(shape)
+        known = shape in self.shape_of.values()
+        self.shape_of[design["name"]] = shape
+        if not known:
             e = design["estimator"]
             self.write(f"study {self.name}: compiling the estimator for design '{design['name']}' ({design['model']}, "
                        f"T = {design['n_periods']}, {e['n_draws']} draws) on each worker that takes it; "
@@ -137,7 +143,7 @@ class Progress:
                 f"in {format_duration(elapsed)}")
         if self.done >= self.to_run:
             return head + "; done"
-        left = remaining_seconds(self.finished, self.remaining, self.workers, self.min_warm)
+        left = remaining_seconds(self.finished, self.remaining, self.workers, self.min_warm, self.shape_of)
         if left is None:
             return head + f"; time left: estimated once {self.min_warm} replications have run after compilation"
         return head + f"; about {format_duration(left)} left"
