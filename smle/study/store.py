@@ -17,6 +17,9 @@ Tables (schema version :data:`SCHEMA_VERSION`):
 
 The runner is the only writer; each finished replication is one transaction, committed before
 the next result is taken, so a killed study loses at most the replications still computing.
+A new store is written complete in a temporary file of the same folder and then linked into
+place, so a store file that exists always has its tables (a reader polling a starting study
+sees "does not exist" or a whole store, never an empty file).
 """
 
 from __future__ import annotations
@@ -140,8 +143,8 @@ class Store:
         self.path = Path(path)
         check_compatible(self.path, study, allow_new_version)
         self.path.parent.mkdir(parents=True, exist_ok=True)
-        if not self.path.exists():
-            _create_atomically(self.path, study)
+        if not self.path.exists() and not _create_atomically(self.path, study):
+            check_compatible(self.path, study, allow_new_version)  # another process created it meanwhile
         self.connection = _connect(self.path, read_only=False)
         c = self.connection
         c.execute("PRAGMA journal_mode=WAL")
@@ -220,11 +223,11 @@ def _write_definition(c: sqlite3.Connection, study: Study) -> None:
                 (design.name, position, design.replications, canonical_json(design.identity())))
 
 
-def _create_atomically(path: Path, study: Study) -> None:
+def _create_atomically(path: Path, study: Study) -> bool:
     """Write a complete new store to a temporary file beside ``path``, then link it to ``path``.
 
-    ``os.link`` fails if ``path`` appeared meanwhile (another runner won the race): that store
-    is then used as it is (:func:`check_compatible` is run on it by the caller's next step).
+    Returns False if ``path`` appeared meanwhile (``os.link`` refuses to replace it: another
+    runner won the race), and the caller checks that store instead.
     The temporary file is closed (WAL checkpointed, no -wal/-shm left) before it is linked.
     """
     temporary = path.with_name(f".{path.name}.{os.getpid()}.{os.urandom(4).hex()}.creating")
@@ -238,10 +241,12 @@ def _create_atomically(path: Path, study: Study) -> None:
         try:
             os.link(temporary, path)
         except FileExistsError:
-            pass
+            return False
         except OSError:  # a file system without hard links: replace only if still absent (best effort)
-            if not path.exists():
-                os.replace(temporary, path)
+            if path.exists():
+                return False
+            os.replace(temporary, path)
+        return True
     finally:
         temporary.unlink(missing_ok=True)
 
