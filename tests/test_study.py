@@ -324,3 +324,58 @@ def test_command_line(tmp_path, capsys):
     assert len(lines) == 5 and "sigma_eta_upper" in lines[0]
     with pytest.raises(SmleInputError, match="does not exist"):
         cli(["study", "status", str(tmp_path / "missing.sqlite")])
+
+
+# ---------------------------------------------------------------------------------------------
+# intervals for proportions, figures against the design
+
+
+@pytest.mark.parametrize("successes, n", [(4, 4), (0, 4), (3, 10), (19, 20), (50, 100), (1, 1)])
+def test_wilson_interval_matches_statsmodels(successes, n):
+    # Reference: statsmodels' proportion_confint(method="wilson"), the score interval of
+    # Wilson (1927), Journal of the American Statistical Association 22, 209-212.
+    from statsmodels.stats.proportion import proportion_confint
+
+    from smle.study.summary import wilson_interval
+
+    expected = proportion_confint(successes, n, alpha=0.05, method="wilson")
+    assert wilson_interval(successes, n) == pytest.approx(expected, rel=1e-12, abs=1e-15)
+
+
+def test_coverage_is_shown_with_its_wilson_interval(finished_store):
+    from smle.study.summary import markdown_tables, wilson_interval
+
+    folder, _ = finished_store
+    summary = summarize(folder / "small.sqlite")
+    for r in summary.itertuples():
+        lower, upper = wilson_interval(round(r.coverage * r.n_ci), r.n_ci)
+        assert (r.coverage_lower, r.coverage_upper) == pytest.approx((lower, upper), rel=1e-12)
+        assert r.coverage_upper - r.coverage_lower > 0.2  # 3 replications: never "1 ± 0"
+    text = markdown_tables(summary)
+    r = summary.iloc[0]
+    assert f"| {r.coverage:.3g} [{r.coverage_lower:.2g}, {r.coverage_upper:.2g}] |" in text
+    assert "Wilson" in text and " ± 0 |" not in text
+
+
+def _drawn_axes(monkeypatch, summary, tmp_path):
+    """The axes of the bias/RMSE figure, caught as the figure is closed."""
+    import matplotlib.pyplot as plt
+
+    from smle.study.figures import bias_rmse_against_length
+
+    caught, close = [], plt.close
+    monkeypatch.setattr(plt, "close", lambda fig=None: (caught.append(fig), close(fig)))
+    bias_rmse_against_length(summary, tmp_path / "f.png")
+    return caught[0].axes
+
+
+def test_bias_figure_uses_designs_when_all_have_one_length(finished_store, tmp_path, monkeypatch):
+    folder, study = finished_store
+    summary = summarize(folder / "small.sqlite")
+    assert summary["n_periods"].nunique() == 1
+    axes = _drawn_axes(monkeypatch, summary, tmp_path)
+    assert axes[0].get_xlabel() == "design"
+    assert [t.get_text() for t in axes[0].get_xticklabels()] == [d.name for d in study.designs]
+    two_lengths = summary.assign(n_periods=np.where(summary["design"] == "phi=0.90", 500, 200))
+    axes = _drawn_axes(monkeypatch, two_lengths, tmp_path)
+    assert axes[0].get_xlabel() == "sample length T"

@@ -4,6 +4,9 @@
     smle study status study.toml|store.sqlite
     smle study summary study.toml|store.sqlite [--output DIR] [--no-figures]
     smle study export study.toml|store.sqlite [--output FILE.csv]
+    smle study example PATH.toml          # a commented study file to start from
+
+``smle study --help`` describes the study file format (:func:`smle.study.spec.format_text`).
 
 :func:`add_study_commands` adds the ``study`` command to an argparse subparsers object; each
 leaf sets ``handler(args) -> exit code``.
@@ -11,6 +14,7 @@ leaf sets ``handler(args) -> exit code``.
 
 from __future__ import annotations
 
+import argparse
 import sys
 from pathlib import Path
 
@@ -79,9 +83,21 @@ def _command_export(args) -> int:
     return 0
 
 
+def _command_example(args) -> int:
+    from smle.study.spec import write_example
+
+    path = write_example(args.path)
+    print(f"example study written to {path}; try: smle study run {path} --max-replications 3")
+    return 0
+
+
 def add_study_commands(subparsers) -> None:
-    """Add ``study run|status|summary|export`` to an argparse subparsers object."""
-    study = subparsers.add_parser("study", help="Monte Carlo studies: run, status, summary, export")
+    """Add ``study run|status|summary|export|example`` to an argparse subparsers object."""
+    from smle.study.spec import format_text
+
+    study = subparsers.add_parser("study", help="Monte Carlo studies: run, status, summary, export, example",
+                                  description="Monte Carlo studies of smle's estimators from a study file (TOML).",
+                                  epilog=format_text(), formatter_class=argparse.RawDescriptionHelpFormatter)
     commands = study.add_subparsers(dest="study_command", required=True)
 
     run = commands.add_parser("run", help="run or resume a study file (TOML)")
@@ -114,3 +130,7 @@ def add_study_commands(subparsers) -> None:
         if name == "export":
             p.add_argument("--output", help="CSV file (default: the store's name with .csv)")
         p.set_defaults(handler={"status": _command_status, "summary": _command_summary, "export": _command_export}[name])
+
+    example = commands.add_parser("example", help="write a commented example study file (TOML) to start from")
+    example.add_argument("path", help="new file to write (.toml); an existing file is not overwritten")
+    example.set_defaults(handler=_command_example)

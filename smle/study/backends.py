@@ -7,7 +7,8 @@ touch the store, so every back-end gives the same numbers and the store has one 
 
 * :class:`InProcess`: sequential, in this process.
 * :class:`ProcessPool`: ``concurrent.futures.ProcessPoolExecutor`` with the 'spawn' start
-  method (JAX is not fork-safe).
+  method (JAX is not fork-safe); its workers end when the runner dies, even by SIGKILL
+  (:func:`smle.study.replication.pool_worker_start`).
 * :class:`DaskCluster`: a ``distributed.Client`` on a scheduler address, or on a new
   ``LocalCluster``.
 """
@@ -20,7 +21,7 @@ from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
 
 from smle.errors import SmleInputError, describe
-from smle.study.replication import run_batch, warm_up
+from smle.study.replication import pool_worker_start, run_batch, warm_up
 
 
 class InProcess:
@@ -54,7 +55,7 @@ class ProcessPool:
 
     def __enter__(self):
         self.executor = ProcessPoolExecutor(max_workers=self.workers, mp_context=multiprocessing.get_context("spawn"),
-                                            initializer=warm_up)
+                                            initializer=pool_worker_start, initargs=(os.getpid(),))
         return self
 
     def __exit__(self, kind, value, tb):

@@ -24,29 +24,33 @@ def bias_rmse_against_length(summary, path, title: str = "study") -> Path:
     """Per parameter: bias and RMSE (with ±2 MCSE bars) against T, one line per design family.
 
     A family is the designs with the same model, true parameters and name apart from T; with
-    one T per family the points stand alone.
+    one T per family the points stand alone. When every design has the same T, the designs
+    themselves are the horizontal axis.
     """
     plt = _pyplot()
     parameters = list(dict.fromkeys(summary["parameter"]))
-    families = summary.assign(family=summary["design"].str.replace(r"[, ]*T\s*=\s*\d+", "", regex=True))
+    by_design = summary["n_periods"].nunique() == 1
+    x, x_label = ("design", "design") if by_design else ("n_periods", "sample length T")
+    families = summary.assign(family=f"T = {summary['n_periods'].iloc[0]}" if by_design else
+                              summary["design"].str.replace(r"[, ]*T\s*=\s*\d+", "", regex=True))
     fig, axes = plt.subplots(2, len(parameters), figsize=(4.2 * len(parameters), 7), squeeze=False)
     for j, parameter in enumerate(parameters):
         rows = families[families["parameter"] == parameter]
         for family, group in rows.groupby("family", sort=False):
-            group = group.sort_values("n_periods")
+            group = group if by_design else group.sort_values("n_periods")
             for i, (stat, label) in enumerate((("bias", "bias"), ("rmse", "RMSE"))):
-                axes[i, j].errorbar(group["n_periods"], group[stat], yerr=2 * group[f"{stat}_mcse"].fillna(0),
+                axes[i, j].errorbar(group[x], group[stat], yerr=2 * group[f"{stat}_mcse"].fillna(0),
                                     marker="o", capsize=3, label=family)
         axes[0, j].axhline(0.0, color="grey", lw=0.8)
         axes[0, j].set_title(f"{parameter}: bias")
         axes[1, j].set_title(f"{parameter}: RMSE")
         for i, label in enumerate(("bias (estimate − truth)", "RMSE")):
-            axes[i, j].set_xlabel("sample length T")
+            axes[i, j].set_xlabel(x_label)
             axes[i, j].set_ylabel(label)
     handles, labels = axes[0, 0].get_legend_handles_labels()
     if len(labels) <= 12:
         fig.legend(handles, labels, loc="lower center", ncol=min(len(labels), 3), fontsize="small")
-    fig.suptitle(f"{title}: bias and RMSE against T (bars: ±2 Monte Carlo s.e.)")
+    fig.suptitle(f"{title}: bias and RMSE against {'design' if by_design else 'T'} (bars: ±2 Monte Carlo s.e.)")
     fig.tight_layout(rect=(0, 0.1 if len(labels) <= 12 else 0, 1, 0.96))
     path = Path(path)
     fig.savefig(path, dpi=110)

@@ -12,6 +12,8 @@ import datetime
 import math
 import os
 import socket
+import sys
+import threading
 import time
 import traceback
 
@@ -89,3 +91,33 @@ def warm_up() -> None:
     import smle  # noqa: F401
 
     np.seterr(all="ignore")
+
+
+def pool_worker_start(runner_pid: int, check_every: float = 0.5) -> None:
+    """Initialiser of a local pool worker: :func:`warm_up`, then end the worker when its runner dies.
+
+    A SIGKILLed runner cannot shut its pool down, and its spawned workers (each holding JAX,
+    hundreds of MB) would otherwise run on as orphans. Two guards: on Linux the kernel sends
+    SIGKILL to the worker when its parent ends (``prctl(PR_SET_PDEATHSIG)``); everywhere, a
+    daemon thread checks every ``check_every`` seconds that the parent is still ``runner_pid``
+    (an orphan is re-parented) and ends the process with ``os._exit``. A worker never touches
+    the store, so nothing is lost that the runner had not already committed.
+    """
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+            import signal
+
+            pr_set_pdeathsig = 1
+            ctypes.CDLL(None, use_errno=True).prctl(pr_set_pdeathsig, int(signal.SIGKILL), 0, 0, 0)
+        except (OSError, AttributeError):  # no libc symbol: the watchdog thread still guards
+            pass
+    threading.Thread(target=_watch_runner, args=(runner_pid, check_every), name="smle-runner-watchdog",
+                     daemon=True).start()
+    warm_up()
+
+
+def _watch_runner(runner_pid: int, check_every: float) -> None:
+    while os.getppid() == runner_pid:
+        time.sleep(check_every)
+    os._exit(70)

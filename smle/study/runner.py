@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+import statistics
 import sys
 import time
 from pathlib import Path
@@ -10,7 +12,7 @@ from typing import NamedTuple
 from smle.errors import SmleInputError
 from smle.study import store as store_module
 from smle.study.backends import make_backend
-from smle.study.spec import Study, check_study, load_study
+from smle.study.spec import Study, canonical_json, check_study, load_study
 
 
 class RunReport(NamedTuple):
@@ -46,33 +48,112 @@ def format_duration(seconds: float) -> str:
     return f"{seconds / 3600:.1f} h"
 
 
-class Progress:
-    """Counts, rate and time remaining, printed to standard error (at most every ``every`` seconds)."""
+def remaining_seconds(finished, remaining: dict, workers: int, min_warm: int = 3,
+                      shape_of: dict | None = None) -> float | None:
+    """Wall time left, from the compute times of replications finished after warm-up (None: too early).
 
-    def __init__(self, name: str, total: int, already: int, to_run: int, stream=None, every: float = 2.0):
-        self.name, self.total, self.already, self.to_run = name, total, already, to_run
+    Args:
+      finished: ``(design, worker, seconds)`` of each finished replication, in arrival order;
+        ``seconds`` is its own compute time on its worker.
+      remaining: replications still to run, per design.
+      workers: how many run at once.
+      min_warm: warm replications needed before an estimate is given.
+      shape_of: design name -> compiled shape (:func:`compile_shape`); designs of one shape
+        share a compiled program (default: each design its own).
+
+    The first replication of a compiled shape on a worker carries the compilation of the
+    estimator (tens of seconds against a few for a fit) and is left out; a design's typical time is the
+    median of its warm replications (of all warm ones while it has none). The remaining work,
+    sum over designs of count x typical time, is shared by ``min(workers, replications left)``.
+    """
+    seen, warm = set(), {}
+    shape_of = shape_of or {}
+    for design, worker, seconds in finished:
+        key = (shape_of.get(design, design), worker)
+        if key in seen and seconds is not None and math.isfinite(seconds):
+            warm.setdefault(design, []).append(float(seconds))
+        seen.add(key)
+    every = [t for times in warm.values() for t in times]
+    if len(every) < min_warm:
+        return None
+    left = sum(remaining.values())
+    if left <= 0:
+        return 0.0
+    overall = statistics.median(every)
+    work = sum(n * (statistics.median(warm[d]) if d in warm else overall) for d, n in remaining.items())
+    return work / max(1, min(workers, left))
+
+
+def compile_shape(design: dict) -> tuple:
+    """What the compiled fit program of a design depends on (model, options, T, EIS settings)."""
+    estimator = {k: v for k, v in design["estimator"].items() if k not in ("seed_offset", "start", "level")}
+    return (design["model"], canonical_json(design.get("model_options", {})), design["n_periods"],
+            canonical_json(estimator))
+
+
+class Progress:
+    """Counts and time remaining, printed to standard error (at most every ``every`` seconds).
+
+    The estimate of the time left comes from :func:`remaining_seconds` (compilation excluded)
+    and is shown only once ``min_warm`` replications have run warm.
+    """
+
+    def __init__(self, name: str, total: int, already: int, remaining: dict, workers: int = 1, stream=None,
+                 every: float = 2.0, min_warm: int = 3):
+        self.name, self.total, self.already = name, total, already
+        self.remaining, self.workers, self.min_warm = dict(remaining), workers, min_warm
+        self.to_run = sum(remaining.values())
         self.stream = stream if stream is not None else sys.stderr
         self.every = every
         self.done = self.failed = 0
+        self.finished = []
+        self.shape_of = {}
         self.started = time.perf_counter()
         self.last = -1e9
 
-    def update(self, status: str) -> None:
+    def write(self, text: str) -> None:
+        self.stream.write(text + "\n")
+        self.stream.flush()
+
+    def starting(self, design: dict) -> None:
+        """Called as a task is handed out: say so when it is the first of its compiled shape."""
+        shape = compile_shape(design)
+        known = shape in self.shape_of.values()
+        self.shape_of[design["name"]] = shape
+        if not known:
+            e = design["estimator"]
+            self.write(f"study {self.name}: compiling the estimator for design '{design['name']}' ({design['model']}, "
+                       f"T = {design['n_periods']}, {e['n_draws']} draws) on each worker that takes it; "
+                       "the first results come after that ...")
+
+    def update(self, row: dict) -> None:
         self.done += 1
-        self.failed += status == "failed"
+        self.failed += row["status"] == "failed"
+        self.remaining[row["design"]] = max(0, self.remaining.get(row["design"], 0) - 1)
+        self.finished.append((row["design"], row.get("worker"), row.get("elapsed_seconds")))
         now = time.perf_counter()
         if now - self.last >= self.every or self.done == self.to_run:
             self.last = now
-            self.stream.write(self.line(now) + "\n")
-            self.stream.flush()
+            self.write(self.line(now))
 
     def line(self, now: float | None = None) -> str:
         elapsed = (now or time.perf_counter()) - self.started
-        rate = self.done / elapsed if elapsed > 0 else float("nan")
-        left = (self.to_run - self.done) / rate if rate > 0 else float("nan")
-        return (f"study {self.name}: {self.already + self.done}/{self.total} replications stored"
+        head = (f"study {self.name}: {self.already + self.done}/{self.total} replications stored"
                 f"{f' ({self.failed} failed this run)' if self.failed else ''}; this run {self.done}/{self.to_run} "
-                f"in {format_duration(elapsed)}, {60 * rate:.1f}/min; about {format_duration(left)} left")
+                f"in {format_duration(elapsed)}")
+        if self.done >= self.to_run:
+            return head + "; done"
+        left = remaining_seconds(self.finished, self.remaining, self.workers, self.min_warm, self.shape_of)
+        if left is None:
+            return head + f"; time left: estimated once {self.min_warm} replications have run after compilation"
+        return head + f"; about {format_duration(left)} left"
+
+
+def _announcing(tasks, meter: Progress):
+    """The tasks, telling ``meter`` as each is handed to the back-end."""
+    for task in tasks:
+        meter.starting(task[0])
+        yield task
 
 
 def _store_path(study: Study, store) -> Path:
@@ -165,18 +246,22 @@ def run_study(
         writer = store_module.Store(path, study, allow_new_version)
         try:
             writer.claim()
-            meter = Progress(study.name, total, already, len(todo)) if progress else None
+            remaining = {}
+            for d, _ in todo:
+                remaining[d.name] = remaining.get(d.name, 0) + 1
+            meter = Progress(study.name, total, already, remaining, executor.workers) if progress else None
             if progress:
                 print(f"study {study.name}: {len(todo)} replications to run on {executor.name} "
                       f"({executor.workers} worker{'s' if executor.workers != 1 else ''}), store {path}",
                       file=sys.stderr, flush=True)
+                tasks = _announcing(tasks, meter)
             rows = executor.map(tasks)
             for row in rows:
                 writer.record(row)
                 completed += row["status"] == "ok"
                 failed += row["status"] == "failed"
                 if meter:
-                    meter.update(row["status"])
+                    meter.update(row)
                 if stop_after_seconds is not None and time.perf_counter() - started > stop_after_seconds:
                     if progress:
                         print(f"study {study.name}: stopping after {format_duration(stop_after_seconds)} as asked",

@@ -7,6 +7,79 @@ alone (:func:`replication_seeds`), so any row can be recomputed on its own and n
 depends on the order or place in which replications run. The design key is derived from the
 design's *name* (not its position), so designs may be reordered or added to a file without
 changing the numbers of the others.
+
+Study file format
+=================
+
+A study file is TOML with four tables; ``smle study example PATH`` writes a commented one.
+Unknown keys are refused with the list of accepted ones.
+
+[study]
+  master_seed   integer >= 0, required. Root of every replication's seeds.
+  name          string, default "study". Label of tables and figures.
+  description   string, default "". Free text.
+
+[outputs]       (optional; relative paths are relative to the study file)
+  store         path of the SQLite store. No default: without it, give --store.
+  folder        folder for summary.csv, summary.md and the figures.
+                Default: "<store name>-summary" beside the store.
+
+[defaults]      (optional) any design key except name; applied to every [[design]],
+                which may override it. A params table here is merged key by key.
+
+[[design]]      one table per cell of the study, at least one:
+  name          string, required, unique. Part of every replication's seed: renaming
+                a design changes its numbers; reordering designs does not.
+  model         string, required: a model name (smle.model_names(): sv, sv-t,
+                ar1-noise, realized-sv, garch-mix, local-level).
+  params        table, required: the true parameters, e.g. { mu = -7.36, phi = 0.95,
+                sigma_eta = 0.26 } for sv; every parameter of the model.
+  n_periods     integer >= 2, required. T, the length of each simulated series.
+  replications  integer >= 1, required. May grow later; the store keeps what is done.
+  model_options table, default {}: keyword arguments of the model (e.g. garch-mix link).
+  Estimator settings (passed to smle.fit):
+  n_draws       integer >= 4, even with antithetic draws; default 64.
+                EIS draws per set.
+  antithetic    boolean, default true. Antithetic EIS draws.
+  n_seeds       integer >= 1, default 1. Refits with independent EIS seeds for the
+                simulation standard errors (1: none).
+  seed_offset   integer >= 0, default 0. Added to each replication's EIS seed: new
+                common random numbers, the same simulated data.
+  start         "data" (default: the model's start values from the data) or "truth".
+  max_steps     integer >= 1, default 200. Optimiser steps.
+  gtol          number > 0, default 1e-6. Gradient tolerance of the optimiser.
+  tol           number > 0, default 1e-8. EIS fixed-point tolerance.
+  max_iter      integer >= 1, default 100. EIS fixed-point iterations.
+  level         number in [0.5, 1), default 0.95. Confidence level of the intervals
+                whose coverage the summary reports.
+
+A design's numbers depend on everything above except replications; changing any of it
+for a design that already has stored results is refused (rename the design or use a new
+store). Example::
+
+    [study]
+    name = "pilot"
+    master_seed = 2024
+
+    [outputs]
+    store = "pilot.sqlite"
+    folder = "pilot-summary"
+
+    [defaults]
+    model = "sv"
+    params = { mu = -7.36, phi = 0.95, sigma_eta = 0.26 }
+    replications = 100
+    n_draws = 32
+
+    [[design]]
+    name = "T=500"
+    n_periods = 500
+
+    [[design]]
+    name = "T=2000"
+    n_periods = 2000
+
+Run it with ``smle study run pilot.toml``; see ``smle study --help``.
 """
 
 from __future__ import annotations
@@ -279,7 +352,7 @@ def study_from_mapping(data: Mapping, base: Path | None = None) -> Study:
 
 
 def load_study(path) -> Study:
-    """Read and validate a study file (TOML).
+    """Read and validate a study file (TOML); the format is in this module's docstring.
 
     Layout::
 
@@ -317,3 +390,59 @@ def load_study(path) -> Study:
 def canonical_json(value) -> str:
     """Stable JSON text (sorted keys) for comparing definitions stored in a study store."""
     return json.dumps(value, sort_keys=True, separators=(",", ":"))
+
+
+def format_text() -> str:
+    """The "Study file format" section of this module's docstring (for ``smle study --help``)."""
+    text = __doc__[__doc__.index("Study file format"):]
+    return text.replace("Example::", "Example:")
+
+
+EXAMPLE_STUDY = """\
+# An smle Monte Carlo study (TOML). Run:      smle study run THIS_FILE
+# Watch it from another terminal:             smle study status THIS_FILE
+# Tables and figures when done (or at any time): smle study summary THIS_FILE
+# Every key is described by `smle study --help`.
+
+[study]
+name = "example"
+master_seed = 2024            # root of every replication's seeds (integer >= 0)
+description = "sv at two sample lengths and two persistences; invented settings for a first look"
+
+[outputs]                     # paths relative to this file
+store = "example.sqlite"      # results, one committed row per replication; a rerun resumes
+folder = "example-summary"    # summary.csv, summary.md, figures
+
+[defaults]                    # applied to every [[design]] below, which may override them
+model = "sv"
+replications = 20             # raise it later: stored replications are kept
+n_draws = 16                  # EIS draws per set (antithetic by default)
+start = "data"                # or "truth": start the optimiser at the true parameters
+
+[[design]]
+name = "phi=0.95, T=200"      # the name is part of the seeds: keep it once results exist
+params = { mu = -7.36, phi = 0.95, sigma_eta = 0.26 }
+n_periods = 200
+
+[[design]]
+name = "phi=0.95, T=800"
+params = { mu = -7.36, phi = 0.95, sigma_eta = 0.26 }
+n_periods = 800
+
+[[design]]
+name = "phi=0.90, T=200"
+params = { mu = -7.36, phi = 0.90, sigma_eta = 0.363 }
+n_periods = 200
+"""
+
+
+def write_example(path) -> Path:
+    """Write :data:`EXAMPLE_STUDY` to ``path`` (refusing to overwrite a file); return the path."""
+    path = Path(path)
+    if path.suffix.lower() != ".toml":
+        raise SmleInputError(f"path = {str(path)!r} is not accepted; accepted: a file name ending in .toml")
+    if path.exists():
+        raise SmleInputError(f"path = {str(path)!r} already exists; accepted: a new file (nothing was written)")
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(EXAMPLE_STUDY)
+    return path

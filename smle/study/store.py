@@ -17,6 +17,9 @@ Tables (schema version :data:`SCHEMA_VERSION`):
 
 The runner is the only writer; each finished replication is one transaction, committed before
 the next result is taken, so a killed study loses at most the replications still computing.
+A new store is written complete in a temporary file of the same folder and then linked into
+place, so a store file that exists always has its tables (a reader polling a starting study
+sees "does not exist" or a whole store, never an empty file).
 """
 
 from __future__ import annotations
@@ -130,32 +133,24 @@ def check_compatible(path, study: Study | None = None, allow_new_version: bool =
 
 
 class Store:
-    """A study store opened for writing by the (single) runner."""
+    """A study store opened for writing by the (single) runner.
+
+    A new store is built complete (tables, meta, designs) in a temporary file of the same
+    folder and then linked into place, so a reader never sees a store file without its tables.
+    """
 
     def __init__(self, path, study: Study, allow_new_version: bool = False):
-        import smle
-
         self.path = Path(path)
         check_compatible(self.path, study, allow_new_version)
         self.path.parent.mkdir(parents=True, exist_ok=True)
+        if not self.path.exists() and not _create_atomically(self.path, study):
+            check_compatible(self.path, study, allow_new_version)  # another process created it meanwhile
         self.connection = _connect(self.path, read_only=False)
         c = self.connection
         c.execute("PRAGMA journal_mode=WAL")
         c.execute("PRAGMA synchronous=FULL")
         c.execute("PRAGMA foreign_keys=ON")
-        c.executescript(_SCHEMA)
-        with self.transaction():
-            c.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
-            c.execute("INSERT OR IGNORE INTO meta VALUES ('smle_version', ?)", (smle.__version__,))
-            c.execute("INSERT OR IGNORE INTO meta VALUES ('created_at', ?)", (_now(),))
-            c.execute("INSERT OR IGNORE INTO meta VALUES ('master_seed', ?)", (str(study.master_seed),))
-            c.execute("INSERT OR REPLACE INTO meta VALUES ('study', ?)", (canonical_json(study.to_dict()),))
-            c.execute("INSERT OR REPLACE INTO meta VALUES ('study_name', ?)", (study.name,))
-            for position, design in enumerate(study.designs):
-                c.execute(
-                    "INSERT INTO designs VALUES (?, ?, ?, ?) ON CONFLICT(name) DO UPDATE SET "
-                    "position = excluded.position, replications = excluded.replications",
-                    (design.name, position, design.replications, canonical_json(design.identity())))
+        _write_definition(c, study)
 
     def transaction(self):
         return _Transaction(self.connection)
@@ -207,6 +202,53 @@ class Store:
 
     def close(self) -> None:
         self.connection.close()
+
+
+def _write_definition(c: sqlite3.Connection, study: Study) -> None:
+    """Tables (if missing), meta and design rows; the identity of existing designs is kept."""
+    import smle
+
+    c.executescript(_SCHEMA)
+    with _Transaction(c):
+        c.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
+        c.execute("INSERT OR IGNORE INTO meta VALUES ('smle_version', ?)", (smle.__version__,))
+        c.execute("INSERT OR IGNORE INTO meta VALUES ('created_at', ?)", (_now(),))
+        c.execute("INSERT OR IGNORE INTO meta VALUES ('master_seed', ?)", (str(study.master_seed),))
+        c.execute("INSERT OR REPLACE INTO meta VALUES ('study', ?)", (canonical_json(study.to_dict()),))
+        c.execute("INSERT OR REPLACE INTO meta VALUES ('study_name', ?)", (study.name,))
+        for position, design in enumerate(study.designs):
+            c.execute(
+                "INSERT INTO designs VALUES (?, ?, ?, ?) ON CONFLICT(name) DO UPDATE SET "
+                "position = excluded.position, replications = excluded.replications",
+                (design.name, position, design.replications, canonical_json(design.identity())))
+
+
+def _create_atomically(path: Path, study: Study) -> bool:
+    """Write a complete new store to a temporary file beside ``path``, then link it to ``path``.
+
+    Returns False if ``path`` appeared meanwhile (``os.link`` refuses to replace it: another
+    runner won the race), and the caller checks that store instead.
+    The temporary file is closed (WAL checkpointed, no -wal/-shm left) before it is linked.
+    """
+    temporary = path.with_name(f".{path.name}.{os.getpid()}.{os.urandom(4).hex()}.creating")
+    try:
+        connection = sqlite3.connect(temporary, isolation_level=None)
+        try:
+            connection.execute("PRAGMA journal_mode=WAL")
+            _write_definition(connection, study)
+        finally:
+            connection.close()
+        try:
+            os.link(temporary, path)
+        except FileExistsError:
+            return False
+        except OSError:  # a file system without hard links: replace only if still absent (best effort)
+            if path.exists():
+                return False
+            os.replace(temporary, path)
+        return True
+    finally:
+        temporary.unlink(missing_ok=True)
 
 
 class _Transaction:

@@ -17,6 +17,13 @@ coverage           share of intervals holding theta               sqrt(p (1 - p)
 convergence_rate   share of fits reporting convergence            sqrt(p (1 - p) / n)
 =================  =============================================  ==========================================
 
+For the two proportions (coverage, convergence rate) the tables show a 95% Wilson score
+interval (Wilson 1927, Journal of the American Statistical Association 22, 209-212) instead of
+"p ± MCSE": with few replications, or p at 0 or 1, sqrt(p (1 - p) / n) is 0 or meaningless,
+while the score interval stays honest (4 intervals of 4 covering: [0.51, 1]). The CSV carries
+both (``coverage_lower``, ``coverage_upper``, ``coverage_mcse``; the same for
+``convergence_rate``).
+
 References: Morris, White and Crowther (2019), Statistics in Medicine 38 (simulation studies
 and their Monte Carlo standard errors).
 """
@@ -44,6 +51,30 @@ def _proportion(flags: np.ndarray) -> tuple[float, float]:
     return p, math.sqrt(p * (1 - p) / n)
 
 
+def wilson_interval(successes: float, n: int, level: float = 0.95) -> tuple[float, float]:
+    """Wilson score interval of a binomial proportion (Wilson 1927, JASA 22, 209-212); NaNs for n = 0.
+
+    (p + z^2/(2n) ± z sqrt(p (1 - p)/n + z^2/(4 n^2))) / (1 + z^2/n), z the normal quantile of
+    (1 + level)/2.
+    """
+    from statistics import NormalDist
+
+    if n == 0:
+        return math.nan, math.nan
+    z = NormalDist().inv_cdf((1 + level) / 2)
+    p = successes / n
+    centre = p + z * z / (2 * n)
+    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n))
+    scale = 1 + z * z / n
+    return max(0.0, (centre - half) / scale), min(1.0, (centre + half) / scale)
+
+
+def _with_interval(name: str, flags: np.ndarray) -> dict:
+    value, mcse = _proportion(flags)
+    lower, upper = wilson_interval(float(np.sum(flags)), int(flags.size))
+    return {name: value, f"{name}_mcse": mcse, f"{name}_lower": lower, f"{name}_upper": upper}
+
+
 def parameter_statistics(estimates, truth: float, std_errors=None, lower=None, upper=None, converged=None) -> dict:
     """The statistics of the module docstring for one design and parameter (arrays over replications)."""
     theta = np.asarray(estimates, float)
@@ -51,7 +82,8 @@ def parameter_statistics(estimates, truth: float, std_errors=None, lower=None, u
     n = theta.size
     out = {"n": n}
     if n == 0:
-        return out | {k: math.nan for s in STATISTICS for k in (s, f"{s}_mcse")}
+        return out | {k: math.nan for s in STATISTICS for k in (s, f"{s}_mcse")} | {
+            f"{s}_{end}": math.nan for s in ("coverage", "convergence_rate") for end in ("lower", "upper")}
     mean = float(np.mean(theta))
     sd = float(np.std(theta, ddof=1)) if n > 1 else math.nan
     error2 = (theta - truth) ** 2
@@ -77,15 +109,12 @@ def parameter_statistics(estimates, truth: float, std_errors=None, lower=None, u
     if lower is not None and upper is not None:
         lo, hi = np.asarray(lower, float), np.asarray(upper, float)
         finite = np.isfinite(lo) & np.isfinite(hi)
-        coverage, coverage_mcse = _proportion((lo[finite] <= truth) & (truth <= hi[finite]))
-        out.update(n_ci=int(finite.sum()), coverage=coverage, coverage_mcse=coverage_mcse)
+        covered = (lo[finite] <= truth) & (truth <= hi[finite])
+        out.update(n_ci=int(finite.sum()), **_with_interval("coverage", covered.astype(float)))
     else:
-        out.update(n_ci=0, coverage=math.nan, coverage_mcse=math.nan)
-    if converged is not None:
-        rate, rate_mcse = _proportion(np.asarray(converged, float))
-    else:
-        rate = rate_mcse = math.nan
-    out.update(convergence_rate=rate, convergence_rate_mcse=rate_mcse)
+        out.update(n_ci=0, **_with_interval("coverage", np.zeros(0)))
+    flags = np.asarray(converged if converged is not None else [], float)
+    out.update(_with_interval("convergence_rate", flags[np.isfinite(flags)]))
     return out
 
 
@@ -124,25 +153,34 @@ def _cell(value, mcse, digits=4) -> str:
     return text + (f" ± {mcse:.2g}" if mcse is not None and math.isfinite(mcse) else "")
 
 
+def _share(value, lower, upper) -> str:
+    """A proportion with its Wilson interval: "0.75 [0.3, 0.95]"."""
+    if value is None or not math.isfinite(value):
+        return "–"
+    return f"{value:.3g} [{lower:.2g}, {upper:.2g}]"
+
+
 def markdown_tables(summary: pd.DataFrame, title: str = "study") -> str:
-    """Markdown: one table per design, parameters as rows, each statistic as "value ± MCSE"."""
+    """Markdown: one table per design, parameters as rows, each statistic as "value ± MCSE"
+    (proportions as "value [Wilson 95% interval]")."""
     lines = [f"# Monte Carlo study: {title}", "",
              "Each cell: statistic ± its Monte Carlo standard error (over the successful replications). "
              "se/sd: mean reported standard error over the empirical standard deviation. "
-             "Coverage: of the nominal 95% intervals (the level set in the design).", ""]
+             "Coverage: share of the intervals (at the level set in the design) that hold the truth. "
+             "Coverage and convergence rate: share [95% Wilson score interval; Wilson 1927, JASA 22].", ""]
     for design, table in summary.groupby("design", sort=False):
         first = table.iloc[0]
         lines += [f"## {design}", "",
                   f"{first['model']}, T = {first['n_periods']}; {first['replications_ok']} of "
                   f"{first['replications_planned']} replications done, {first['replications_failed']} failed; "
-                  f"convergence rate {_cell(first['convergence_rate'], first['convergence_rate_mcse'], 3)}.", "",
+                  f"convergence rate {_share(first['convergence_rate'], first['convergence_rate_lower'], first['convergence_rate_upper'])}.", "",
                   "| parameter | truth | mean | bias | median | sd | rmse | mean se | se/sd | coverage |",
                   "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|"]
         for r in table.itertuples():
             lines.append(f"| {r.parameter} | {r.truth:.4g} | {_cell(r.mean, r.mean_mcse)} | {_cell(r.bias, r.bias_mcse, 3)} "
                          f"| {_cell(r.median, r.median_mcse)} | {_cell(r.sd, r.sd_mcse, 3)} | {_cell(r.rmse, r.rmse_mcse, 3)} "
                          f"| {_cell(r.mean_se, r.mean_se_mcse, 3)} | {_cell(r.se_ratio, r.se_ratio_mcse, 3)} "
-                         f"| {_cell(r.coverage, r.coverage_mcse, 3)} |")
+                         f"| {_share(r.coverage, r.coverage_lower, r.coverage_upper)} |")
         lines.append("")
     return "\n".join(lines)
 
