@@ -30,15 +30,14 @@ rows left out, zero returns, which are kept as observations).
 from __future__ import annotations
 
 import inspect
-import json
 import logging
-import os
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from smle.data import checks, ranges, readers, realized, units
+from smle.data import checks, daily_table, ranges, readers, realized, sessions, tables, timestamps, units
+from smle.data.daily_table import read_daily_table, write_daily  # noqa: F401 (public here too)
 from smle.data.checks import Repair
 from smle.errors import SmleInputError, describe
 
@@ -52,38 +51,6 @@ DEFAULT_MEASURES = REALIZED_MEASURES + RANGE_MEASURES
 DEFAULT_SESSION_OPEN = None
 DEFAULT_SESSION_CLOSE = None
 DEFAULT_INTERVAL = "5min"
-
-_DAY_NS = 86_400 * 10**9
-
-
-def _clock_seconds(text: str, argument: str) -> float:
-    """Seconds after midnight of a clock time ``"HH:MM"`` or ``"HH:MM:SS"``."""
-    try:
-        parts = [float(part) for part in str(text).split(":")]
-        if not 2 <= len(parts) <= 3:
-            raise ValueError
-        hours, minutes, seconds = (parts + [0.0])[:3]
-        if not (0 <= hours < 24 and 0 <= minutes < 60 and 0 <= seconds < 60):
-            raise ValueError
-    except ValueError:
-        raise SmleInputError(
-            f"{argument}={describe(text)} is not a clock time; use 'HH:MM' or 'HH:MM:SS' "
-            f"(24-hour, venue time)") from None
-    return hours * 3600.0 + minutes * 60.0 + seconds
-
-
-def _interval_seconds(interval, session_seconds: float) -> float:
-    try:
-        seconds = pd.Timedelta(interval).total_seconds()
-    except (ValueError, TypeError):
-        raise SmleInputError(
-            f"interval={describe(interval)} is not a duration; use e.g. '5min', '30s', '1h'"
-        ) from None
-    if not 0 < seconds <= session_seconds:
-        raise SmleInputError(
-            f"interval={interval!r} must be positive and at most the session length "
-            f"({session_seconds / 60:g} min)")
-    return seconds
 
 
 def _check_measures(measures) -> tuple[str, ...]:
@@ -102,57 +69,6 @@ def _check_measures(measures) -> tuple[str, ...]:
             f"names from {DEFAULT_MEASURES}" if unknown else
             f"measures={measures!r} is empty; accepted: names from {DEFAULT_MEASURES}")
     return measures
-
-
-def _clock_text(seconds: float) -> str:
-    whole = int(round(seconds))
-    hours, rest = divmod(whole, 3600)
-    minutes, secs = divmod(rest, 60)
-    return f"{hours:02d}:{minutes:02d}" + (f":{secs:02d}" if secs else "")
-
-
-def _day_runs(day_number: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """First and last row of each run of equal day numbers (data are sorted in time)."""
-    starts = np.flatnonzero(np.r_[True, day_number[1:] != day_number[:-1]])
-    ends = np.r_[starts[1:], len(day_number)] - 1
-    return starts, ends
-
-
-def _mode(values: np.ndarray, latest: bool = False) -> float:
-    """The most common value; among equally common ones the earliest (or the latest), so
-    that a tie widens the session rather than cutting a day short."""
-    found, counts = np.unique(values, return_counts=True)
-    tied = found[counts == counts.max()]
-    return float(tied[-1] if latest else tied[0])
-
-
-def _usual_session(day_number: np.ndarray, clock: np.ndarray, bars: bool) -> tuple[float, float]:
-    """The data's own session, in seconds after midnight: the most common minute of a day's
-    first row (for bars stamped at their end, less the most common bar length) and of its
-    last row (rounded up to the minute)."""
-    starts, ends = _day_runs(day_number)
-    first = np.floor(clock[starts] / 60.0) * 60.0
-    if bars:
-        same_day = day_number[1:] == day_number[:-1]
-        gaps = np.diff(clock)[same_day]
-        gaps = gaps[gaps > 0]
-        if len(gaps):
-            first = np.maximum(np.floor((clock[starts] - _mode(gaps)) / 60.0) * 60.0, 0.0)
-    last = np.minimum(np.ceil(clock[ends] / 60.0) * 60.0, 86_400.0 - 1.0)
-    return _mode(first), _mode(last, latest=True)
-
-
-def _refuse_daily(day_number: np.ndarray, clock: np.ndarray, source: str | None) -> None:
-    """Intraday preparation needs several rows per day: one a day means daily data."""
-    starts, _ = _day_runs(day_number)
-    if len(starts) > 1 and len(starts) == len(day_number):
-        where = f" in {source}" if source is not None else ""
-        at = "midnight" if not clock.any() else "one time a day"
-        raise SmleInputError(
-            f"source{where} has one row per date ({len(starts)} dates, at {at}): these are "
-            f"daily data, and intraday preparation needs several rows per day. Use "
-            f"prepare_from_daily, or prepare_file(kind='daily') (command line: smle prepare "
-            f"--kind daily, or the default --kind auto)")
 
 
 def _note_zero_returns(table: pd.DataFrame, unit: str, notes: list[str]) -> None:
@@ -222,10 +138,10 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
         min_observations = checks.positive_integer(min_observations, "min_observations")
     min_days = checks.positive_integer(min_days, "min_days")
     add_overnight = checks.flag(add_overnight, "add_overnight")
-    given_open = None if session_open is None else _clock_seconds(session_open, "session_open")
-    given_close = None if session_close is None else _clock_seconds(session_close,
+    given_open = None if session_open is None else sessions.clock_seconds(session_open, "session_open")
+    given_close = None if session_close is None else sessions.clock_seconds(session_close,
                                                                      "session_close")
-    _interval_seconds(interval, _DAY_NS / 1e9)
+    sessions.interval_seconds(interval, sessions.DAY_NS / 1e9)
 
     earlier = list(source.attrs.get("repairs", [])) if isinstance(source, pd.DataFrame) else []
     intraday = readers.read_intraday(
@@ -243,20 +159,20 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
         wall = intraday.index.as_unit("ns").asi8 + intraday.attrs["utc_offset_ns"]
     else:
         wall = intraday.index.tz_localize(None).as_unit("ns").asi8
-    day_number = wall // _DAY_NS
-    clock = (wall - day_number * _DAY_NS) / 1e9
-    _refuse_daily(day_number, clock, source_name)
-    inferred_open, inferred_close = _usual_session(day_number, clock, bars)
+    day_number = wall // sessions.DAY_NS
+    clock = (wall - day_number * sessions.DAY_NS) / 1e9
+    sessions.refuse_daily(day_number, clock, source_name)
+    inferred_open, inferred_close = sessions.usual_session(day_number, clock, bars)
     open_seconds = inferred_open if given_open is None else given_open
     close_seconds = inferred_close if given_close is None else given_close
-    session_open = _clock_text(open_seconds) if session_open is None else session_open
-    session_close = _clock_text(close_seconds) if session_close is None else session_close
+    session_open = sessions.clock_text(open_seconds) if session_open is None else session_open
+    session_close = sessions.clock_text(close_seconds) if session_close is None else session_close
     if close_seconds <= open_seconds:
         raise SmleInputError(
             f"session_close={session_close!r} must be later than session_open="
             f"{session_open!r} on the same day (sessions over midnight are not supported); "
-            f"the data's usual session is {_clock_text(inferred_open)}-"
-            f"{_clock_text(inferred_close)}")
+            f"the data's usual session is {sessions.clock_text(inferred_open)}-"
+            f"{sessions.clock_text(inferred_close)}")
     if given_open is None or given_close is None:
         notes.append(f"session {session_open}-{session_close} (clock: "
                      f"{intraday.attrs['timezone']}) inferred from the data, from the usual time "
@@ -264,7 +180,7 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
                      f"{checks.suggest('session_close', repr(session_close), session_close)} "
                      f"to choose another")
     length = close_seconds - open_seconds
-    interval_seconds = _interval_seconds(interval, length)
+    interval_seconds = sessions.interval_seconds(interval, length)
     n_intervals = int(np.ceil(length / interval_seconds - 1e-9))
     if min_observations is None:
         min_observations = n_intervals
@@ -290,7 +206,7 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
     counts = np.diff(np.r_[starts, len(keep)])
     sparse = counts < min_observations
     if sparse.any():
-        dates = pd.to_datetime(day_kept[starts] * _DAY_NS)
+        dates = pd.to_datetime(day_kept[starts] * sessions.DAY_NS)
         rule = (f"a session needs at least {min_observations} rows for interval "
                 f"{interval} (min_observations)")
         first = np.flatnonzero(sparse)[0]
@@ -349,7 +265,7 @@ def prepare_daily(source, interval=DEFAULT_INTERVAL, *, measures=DEFAULT_MEASURE
                     "low": np.minimum(np.minimum.reduceat(low_source, starts), first_price)}
         values.update(ranges.range_measures(day_bars, wanted_ranges, unit))
 
-    dates = pd.DatetimeIndex(pd.to_datetime(day_kept[starts] * _DAY_NS), name="date")
+    dates = pd.DatetimeIndex(pd.to_datetime(day_kept[starts] * sessions.DAY_NS), name="date")
     table = _assemble(dates, log_open, log_close, values, measures, add_overnight, unit)
     table["n_observations"] = counts[1:]
     table.attrs.update(units.describe_units(unit))
@@ -410,7 +326,7 @@ def prepare_from_daily(source, *, measures=RANGE_MEASURES, add_overnight: bool =
     measures = asked
     min_days = checks.positive_integer(min_days, "min_days")
     add_overnight = checks.flag(add_overnight, "add_overnight")
-    frame, _ = readers.load_table(source)
+    frame, _ = tables.load_table(source)
     lowered = {str(column).strip().lower() for column in frame.columns}
     is_bars = columns is not None or set(readers.BAR_FIELDS) <= lowered
     if is_bars and price_column is None:
@@ -447,96 +363,14 @@ def prepare_from_daily(source, *, measures=RANGE_MEASURES, add_overnight: bool =
     return table
 
 
-def write_daily(table: pd.DataFrame, path, *, metadata: bool = True) -> Path:
-    """Write a daily table as CSV (``date`` first), and its ``attrs`` beside it as JSON.
-
-    Args:
-      table: a table from :func:`prepare_daily` or :func:`prepare_from_daily`.
-      path: the CSV file to write.
-      metadata: also write ``<path>.meta.json`` with units, settings and repairs.
-
-    Returns:
-      The path of the CSV file.
-    """
-    path = _writable(path, "path")
-    table.to_csv(path, index=True, index_label="date", date_format="%Y-%m-%d",
-                 float_format="%.10g")
-    if metadata:
-        attrs = dict(table.attrs)
-        attrs["repairs"] = [repair._asdict() for repair in attrs.get("repairs", [])]
-        attrs["columns"] = list(table.columns)
-        with open(_metadata_path(path), "w", encoding="utf-8") as handle:
-            json.dump(attrs, handle, indent=2, default=str)
-    return path
-
-
-def _writable(path, argument: str) -> Path:
-    """A path a CSV can be written to, or a clear error."""
-    if not isinstance(path, (str, os.PathLike)):
-        raise SmleInputError(f"{argument}={describe(path)} is not accepted; give a file path")
-    path = Path(path)
-    if path.is_dir():
-        raise SmleInputError(f"{argument}={str(path)!r} is a directory; give a file path such "
-                             f"as {str(path / 'daily.csv')!r}")
-    if not path.parent.is_dir():
-        raise SmleInputError(f"{argument}={str(path)!r}: the folder {str(path.parent)!r} does "
-                             f"not exist; create it first")
-    return path
-
-
-def read_daily_table(path) -> pd.DataFrame:
-    """Read a table written by :func:`write_daily` (with its ``attrs`` when the JSON is there).
-
-    The file must have a ``date`` column of readable dates, oldest first without repeats, and
-    numbers in every other column; anything else is an error naming the row.
-    """
-    path = Path(path)
-    if not path.exists():
-        raise SmleInputError(f"path={str(path)!r}: no such file")
-    frame, name = readers.load_table(path)
-    if "date" not in frame.columns:
-        raise SmleInputError(
-            f"path={str(path)!r} has no 'date' column (columns {list(frame.columns)}); "
-            f"accepted: a daily table written by write_daily or smle prepare")
-    checker = checks.RowChecker("raise", name, "date")
-    frame = frame.copy()
-    frame[checks.POSITION] = np.arange(len(frame))
-    raw = frame.pop("date")
-    keys = pd.DatetimeIndex(readers._wall_clock(raw), name="date").as_unit("ns")
-    frame = frame.set_axis(keys)
-    frame, keys = checks.check_missing_key(frame, keys, checker, raw.set_axis(keys))
-    data_columns = [column for column in frame.columns if column != checks.POSITION]
-    frame = readers._as_numbers(frame, data_columns, checker)
-    frame = checks.check_order(frame, checker)
-    table = frame[data_columns]
-    meta = _metadata_path(path)
-    if meta.exists():
-        try:
-            with open(meta, encoding="utf-8") as handle:
-                attrs = json.load(handle)
-            attrs.pop("columns", None)
-            attrs["repairs"] = [Repair(**repair) for repair in attrs.get("repairs", [])]
-        except (OSError, ValueError, TypeError, AttributeError) as error:
-            raise SmleInputError(
-                f"{meta.name} beside path={str(path)!r} is not the JSON that write_daily "
-                f"writes ({type(error).__name__}: {error}); delete it or write the table "
-                f"again") from None
-        table.attrs.update(attrs)
-    return table
-
-
-def _metadata_path(path: Path) -> Path:
-    return path.with_name(path.name + ".meta.json")
-
-
 def _looks_intraday(source, time_column) -> bool:
     """True when some calendar date has more than one row."""
-    frame, _ = readers.load_table(source)
+    frame, _ = tables.load_table(source)
     key = readers._find_key(frame, time_column, "time_column")
     raw = frame[key]
     if pd.api.types.is_integer_dtype(raw):
         return False
-    dates = pd.DatetimeIndex(readers._wall_clock(raw)).normalize()
+    dates = pd.DatetimeIndex(timestamps.wall_clock(raw)).normalize()
     return bool(dates.dropna().has_duplicates)
 
 
@@ -561,7 +395,7 @@ def prepare_file(input_path, output_path=None, *, interval=DEFAULT_INTERVAL,
     if kind not in ("auto", "intraday", "daily"):
         raise SmleInputError(f"kind={kind!r} is not accepted; use 'auto', 'intraday' or 'daily'")
     if kind == "auto":
-        frame, _ = readers.load_table(input_path)
+        frame, _ = tables.load_table(input_path)
         kind = "intraday" if _looks_intraday(
             frame, options.get("time_column") or options.get("date_column")) else "daily"
     target = prepare_daily if kind == "intraday" else prepare_from_daily
@@ -573,14 +407,14 @@ def prepare_file(input_path, output_path=None, *, interval=DEFAULT_INTERVAL,
             f"{', '.join(f'{name}={describe(options[name])}' for name in unknown)}: not an "
             f"option of {target.__name__} ({kind} input); accepted: {accepted}")
     if output_path is not None:
-        output_path = _writable(output_path, "output_path")
+        output_path = daily_table.writable(output_path, "output_path")
     if kind == "intraday":
         table = prepare_daily(input_path, interval, **options)
     else:
         table = prepare_from_daily(input_path, **options)
     if output_path is None:
         output_path = input_path.with_name(f"{input_path.stem}_daily.csv")
-    written = write_daily(table, output_path)
+    written = daily_table.write_daily(table, output_path)
     table.attrs["output_path"] = str(written)
     logger.info("wrote %d daily rows to %s", len(table), written)
     return table

@@ -22,15 +22,12 @@ refuse data with several rows per calendar date (intraday prices), naming what t
 from __future__ import annotations
 
 import datetime
-import os
-import re
-import warnings
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from smle.data import checks, textfile
+from smle.data import checks, timestamps
+from smle.data.tables import load_table
 from smle.data.checks import POSITION, RowChecker
 from smle.errors import SmleInputError, describe
 
@@ -52,61 +49,6 @@ _RETURN_UNITS = {"percent": 100.0, "decimal": 1.0}
 
 
 # ---------------------------------------------------------------- loading and columns
-
-def load_table(source) -> tuple[pd.DataFrame, str | None]:
-    """A raw frame from a path or a frame, and the file name used in messages.
-
-    A frame's non-default index becomes a column so that it can serve as the key. What was
-    inferred while reading a file (encoding, separator, compression) is in
-    ``frame.attrs["notes"]`` (see :mod:`smle.data.textfile`).
-    """
-    if isinstance(source, pd.DataFrame):
-        frame = source
-        if not isinstance(frame.index, pd.RangeIndex):
-            frame = frame.reset_index()
-        frame = frame.copy()
-        frame.attrs = {"notes": list(source.attrs.get("notes", []))}
-        offsets = source.attrs.get("utc_offset_ns")
-        if offsets is not None and len(offsets) == len(frame):
-            frame.attrs["utc_offset_ns"] = np.asarray(offsets)  # the clock as written
-        return frame, None
-    if isinstance(source, pd.Series):
-        return load_table(source.to_frame())
-    if not isinstance(source, (str, os.PathLike)):
-        raise SmleInputError(
-            f"source={describe(source)} is not accepted; pass a path to a CSV or Parquet file "
-            f"or a pandas DataFrame")
-    path = Path(source)
-    if not path.exists():
-        raise SmleInputError(f"source={str(path)!r}: no such file")
-    notes: list[str] = []
-    if path.suffix.lower() in (".parquet", ".pq"):
-        frame = _read_parquet(path)
-    else:
-        frame, notes = textfile.read_csv_file(path)
-    frame.attrs = {"notes": notes}
-    return frame, path.name
-
-
-def _read_parquet(path: Path) -> pd.DataFrame:
-    try:
-        import pyarrow  # noqa: F401  (only to give a clear message when it is missing)
-    except ImportError as error:
-        raise SmleInputError(
-            f"source={str(path)!r} is a Parquet file, which needs the optional package "
-            f"pyarrow (pip install pyarrow); CSV files need nothing extra") from error
-    if path.is_dir():
-        raise SmleInputError(f"source={str(path)!r} is a directory, not a file; accepted: "
-                              f"{textfile.ACCEPTED}")
-    try:
-        frame = pd.read_parquet(path)
-    except Exception as error:  # pyarrow raises several unrelated types for a damaged file
-        raise SmleInputError(
-            f"source={str(path)!r} could not be read as Parquet ({type(error).__name__}: "
-            f"{' '.join(str(error).split())[:200]}); accepted: {textfile.ACCEPTED}") from None
-    if not isinstance(frame.index, pd.RangeIndex):
-        frame = frame.reset_index()
-    return frame
 
 
 def find_column(frame: pd.DataFrame, given: str | None, names, fragments, what: str,
@@ -190,93 +132,11 @@ def _daily_keys(frame: pd.DataFrame, key: str, checker: RowChecker) -> pd.DataFr
         # An integer column (a row number, a trading-day count) is accepted as an ordering key.
         keys = pd.Index(raw.to_numpy(), name="date")
     else:
-        keys = pd.DatetimeIndex(_wall_clock(raw, checker.notes), name="date").as_unit("ns")
+        keys = pd.DatetimeIndex(timestamps.wall_clock(raw, checker.notes), name="date").as_unit("ns")
         _refuse_intraday(keys, checker.source)
     frame = frame.set_axis(keys)
     frame, keys = checks.check_missing_key(frame, keys, checker, raw.set_axis(keys))
     return frame
-
-
-def _wall_clock(raw: pd.Series, notes: list[str] | None = None) -> pd.Series:
-    """Dates or times as written: a UTC offset at the end of the text is dropped, so that a
-    day is the calendar day printed in the file; unreadable entries become NaT.
-
-    Dates such as 06/01/2031 are read month first unless reading them day first leaves fewer
-    unreadable, or (all readable both ways) gives ordered dates closer together; the choice
-    of day first is noted in ``notes``.
-    """
-    if pd.api.types.is_datetime64_any_dtype(raw):
-        parsed = raw
-    else:
-        text = _without_offset(raw.astype("string").str.strip())
-        parsed = _to_datetime(text, dayfirst=False)
-        if _format_of(text) is None and text.str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]",
-                                                          regex=True, na=False).any():
-            day_first = _to_datetime(text, dayfirst=True)
-            if _better_reading(day_first, parsed):
-                parsed = day_first
-                if notes is not None:
-                    notes.append(f"dates such as {text.dropna().iloc[0]!r} were read day "
-                                 f"first (day/month/year)")
-    if isinstance(parsed.dtype, pd.DatetimeTZDtype):
-        parsed = parsed.dt.tz_localize(None)
-    return _within_bounds(parsed)
-
-
-def _within_bounds(parsed):
-    """Times outside what nanosecond timestamps hold (years 1678-2261) become NaT, to be
-    reported as unreadable rows."""
-    low, high = pd.Timestamp("1678-01-01"), pd.Timestamp("2261-12-31")
-    if getattr(parsed.dtype, "tz", None) is not None:
-        low, high = low.tz_localize("UTC"), high.tz_localize("UTC")
-    return parsed.where((parsed >= low) & (parsed <= high))
-
-
-def _without_offset(text: pd.Series) -> pd.Series:
-    """Text with a trailing UTC offset removed; by slicing when every entry ends in an offset
-    of the same form (fast on large files), else by a regular expression."""
-    present = text.dropna()
-    match = _OFFSET_AT_END.search(str(present.iloc[0])) if len(present) else None
-    if match is None:
-        return text
-    width = len(match.group())
-    tail = present.str.slice(-width)
-    same_form = (present.str.len() == len(str(present.iloc[0]))).all() and (
-        (tail == "Z").all() if width == 1 else tail.str.slice(0, 1).isin(["+", "-"]).all())
-    if same_form:
-        return text.str.slice(0, -width)
-    return text.str.replace(_OFFSET_AT_END, "", regex=True)
-
-
-def _to_datetime(text: pd.Series, dayfirst: bool) -> pd.Series:
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", UserWarning)  # pandas' guess-the-format warnings
-        try:
-            return pd.to_datetime(text, errors="coerce", format=_format_of(text),
-                                  dayfirst=dayfirst)
-        except (ValueError, TypeError, OverflowError):
-            return pd.to_datetime(text, errors="coerce", utc=True, format=_format_of(text),
-                                  dayfirst=dayfirst)
-
-
-def _better_reading(candidate: pd.Series, current: pd.Series) -> bool:
-    """Whether ``candidate`` reads more dates, or as many in order and closer together."""
-    missing = (int(candidate.isna().sum()), int(current.isna().sum()))
-    if missing[0] != missing[1]:
-        return missing[0] < missing[1]
-
-    def spread(values):
-        steps = np.diff(values.dropna().to_numpy().astype("datetime64[ns]").astype(np.int64))
-        ordered = len(steps) and (np.all(steps >= 0) or np.all(steps <= 0))
-        return (0 if ordered else 1, float(np.median(np.abs(steps))) if len(steps) else 0.0)
-
-    return spread(candidate) < spread(current)
-
-
-def _format_of(text: pd.Series) -> str | None:
-    present = text.dropna()
-    sample = str(present.iloc[0]).strip() if len(present) else ""
-    return "ISO8601" if _ISO_START.match(sample) else None
 
 
 def _refuse_intraday(keys: pd.DatetimeIndex, source: str | None) -> None:
@@ -420,30 +280,6 @@ def read_ohlc(source, *, date_column: str | None = None, columns: dict | None = 
 
 # ---------------------------------------------------------------- intraday
 
-_OFFSET_AT_END = re.compile(r"(Z|[+-]\d{2}:?\d{2})$")
-_ISO_START = re.compile(r"^\d{4}-\d{2}-\d{2}([ T]\d{2}:\d{2}(:\d{2}(\.\d+)?)?)?")
-
-
-def _parse_timestamps(raw: pd.Series) -> pd.DatetimeIndex:
-    """Timestamps from a column; unreadable entries become NaT (reported by the caller)."""
-    return pd.DatetimeIndex(_within_bounds(pd.Series(_parse_any(raw), index=raw.index)))
-
-
-def _parse_any(raw: pd.Series):
-    if pd.api.types.is_datetime64_any_dtype(raw):
-        return pd.DatetimeIndex(raw)
-    present = raw.dropna()
-    sample = str(present.iloc[0]).strip() if len(present) else ""
-    iso = "ISO8601" if _ISO_START.match(sample) else None
-    if _OFFSET_AT_END.search(sample):
-        # Offsets may change within a file (daylight saving): read instants as UTC, then
-        # convert to the venue's zone.
-        return pd.DatetimeIndex(pd.to_datetime(raw, errors="coerce", utc=True, format=iso))
-    try:
-        return pd.DatetimeIndex(pd.to_datetime(raw, errors="coerce", format=iso))
-    except (ValueError, TypeError):
-        return pd.DatetimeIndex(pd.to_datetime(raw, errors="coerce", utc=True, format=iso))
-
 
 def read_intraday(source, *, time_column: str | None = None, price_column: str | None = None,
                   columns: dict | None = None, timezone: str | None = DEFAULT_TIMEZONE,
@@ -503,26 +339,7 @@ def read_intraday(source, *, time_column: str | None = None, price_column: str |
                             "price_column", exclude=(key,))
         mapping = {"price": price}
     fields = list(mapping)
-    frame = _start(frame)
-    raw = frame[key]
-    stamps = _parse_timestamps(raw)
-    instants = stamps.as_unit("ns").asi8 if stamps.tz is not None else None
-    frame = frame.set_axis(stamps.rename("timestamp"))
-    frame, stamps = checks.check_missing_key(frame, stamps, checker, raw.set_axis(stamps))
-    written = given_offsets if timezone is None else None
-    if timezone is None and not pd.api.types.is_datetime64_any_dtype(raw) \
-            and stamps.tz is not None:
-        # Offsets in the text: keep the clock as written for the session (per original row).
-        written = pd.DatetimeIndex(_wall_clock(raw)).as_unit("ns").asi8 - instants
-    stamps = _to_zone(stamps, timezone, source_timezone)
-    frame = frame.set_axis(stamps.rename("timestamp"))
-    bad = np.asarray(pd.isna(stamps))
-    if bad.any():
-        zone = source_timezone or timezone or "UTC"
-        frame = checker.apply(
-            frame, bad, f"a timestamp without offset must exist, unambiguously, in {zone}",
-            lambda i: f"timestamp {raw.iloc[int(frame[POSITION].iat[i])]!r} falls in a "
-                      f"daylight-saving change of {zone}")
+    frame, stamps, written = _intraday_stamps(frame, key, timezone, source_timezone, given_offsets, checker)
     frame = _as_numbers(frame, list(mapping.values()), checker)
     frame = frame.rename(columns={value: field for field, value in mapping.items()})
     frame = checks.check_prices(frame, fields, checker)
@@ -542,6 +359,32 @@ def read_intraday(source, *, time_column: str | None = None, price_column: str |
     if written is not None:
         out.attrs["utc_offset_ns"] = written[out.attrs["positions"]]
     return out
+
+
+def _intraday_stamps(frame, key, timezone, source_timezone, given_offsets, checker):
+    """Index ``frame`` by its parsed timestamps in the venue's zone: ``(frame, stamps, written)``,
+    ``written`` the UTC offsets as written per row (None when the clock is the zone's own)."""
+    frame = _start(frame)
+    raw = frame[key]
+    stamps = timestamps.parse_timestamps(raw)
+    instants = stamps.as_unit("ns").asi8 if stamps.tz is not None else None
+    frame = frame.set_axis(stamps.rename("timestamp"))
+    frame, stamps = checks.check_missing_key(frame, stamps, checker, raw.set_axis(stamps))
+    written = given_offsets if timezone is None else None
+    if timezone is None and not pd.api.types.is_datetime64_any_dtype(raw) \
+            and stamps.tz is not None:
+        # Offsets in the text: keep the clock as written for the session (per original row).
+        written = pd.DatetimeIndex(timestamps.wall_clock(raw)).as_unit("ns").asi8 - instants
+    stamps = timestamps.to_zone(stamps, timezone, source_timezone)
+    frame = frame.set_axis(stamps.rename("timestamp"))
+    bad = np.asarray(pd.isna(stamps))
+    if bad.any():
+        zone = source_timezone or timezone or "UTC"
+        frame = checker.apply(
+            frame, bad, f"a timestamp without offset must exist, unambiguously, in {zone}",
+            lambda i: f"timestamp {raw.iloc[int(frame[POSITION].iat[i])]!r} falls in a "
+                      f"daylight-saving change of {zone}")
+    return frame, stamps, written
 
 
 def _join_date_and_time(frame: pd.DataFrame, key, time_column, checker: RowChecker):
@@ -568,26 +411,6 @@ def _bar_columns_without_open(frame, columns, key) -> dict:
                                      (field,), field, f"columns={{'{field}': ...}}",
                                      exclude=(key,) + tuple(mapping.values()))
     return mapping
-
-
-def _to_zone(stamps: pd.DatetimeIndex, timezone: str | None, source_timezone: str | None):
-    if timezone is None:
-        if stamps.tz is not None:
-            return stamps
-        timezone = source_timezone or "UTC"
-    try:
-        if stamps.tz is not None:
-            return stamps.tz_convert(timezone)
-        zone = source_timezone or timezone
-        local = stamps.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
-        return local.tz_convert(timezone)
-    except Exception as error:  # unknown zone names come from several libraries
-        if "tz" in type(error).__name__.lower() or isinstance(error, (KeyError, ValueError)):
-            raise SmleInputError(
-                f"timezone={timezone!r} / source_timezone={source_timezone!r}: not a known "
-                f"time zone ({error}); use an IANA name such as 'UTC' or 'Europe/London'"
-            ) from error
-        raise
 
 
 def _shift_bars(frame: pd.DataFrame, bar_timestamp: str, bar_length: str | None):
