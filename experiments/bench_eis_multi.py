@@ -25,6 +25,7 @@ from __future__ import annotations
 import argparse
 import datetime
 import json
+import os
 import platform
 import statistics
 import sys
@@ -186,7 +187,8 @@ def main():
 
     results = {
         "date": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
-        "machine": {"cpu": cpu_model(), "python": platform.python_version(), "jax": jax.__version__},
+        "machine": {"cpu": cpu_model(), "python": platform.python_version(), "jax": jax.__version__,
+                    "load_average_at_end": [round(v, 2) for v in os.getloadavg()]},
         "settings": {"n_draws": N_DRAWS, "antithetic": True, "tol": SETTINGS.tol, "max_iter": SETTINGS.max_iter,
                      "repeats": repeats, "quick": args.quick},
         "against_k": against_k, "against_T": against_t, "one_dimensional_sv": one, "targets": targets,
@@ -198,7 +200,8 @@ def main():
         "# EIS with a k-dimensional VAR(1) state: speed",
         "",
         f"{results['date']}, {results['machine']['cpu']}, JAX {jax.__version__}; S = {N_DRAWS} antithetic, "
-        f"tol = {SETTINGS.tol}, median of {repeats} calls after compilation. Produced by "
+        f"tol = {SETTINGS.tol}, median of {repeats} calls after compilation; 1/5/15-minute load average at "
+        f"the end {results['machine']['load_average_at_end']} on a shared machine. Produced by "
         "`experiments/bench_eis_multi.py`.",
         "",
         "## Against the state dimension (T = 2000)",
