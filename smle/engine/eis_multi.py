@@ -43,7 +43,8 @@ import numpy as np
 from jax.scipy.linalg import solve_triangular
 from jax.scipy.special import logsumexp
 
-from smle.engine.eis import EISSettings, _solve_adjoint, weight_diagnostics
+from smle.engine.eis import EISSettings, weight_diagnostics
+from smle.engine.fixed_point import _solve_adjoint
 from smle.engine.latent_var import LatentVAR1
 from smle.errors import SmleInputError
 
