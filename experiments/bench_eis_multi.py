@@ -13,7 +13,7 @@ max_iter = 50; median of repeated calls of the JIT-compiled function after a war
      Target: k = 11 (N = 10) under 1 s per evaluation after compilation.
 2. Time against T in {500, 1000, 2000, 4000} for the 2-factor SV and for factor-SV with k = 11.
 3. The 2-factor SV, y_t = exp((mu + x1_t + x2_t)/2) eps_t (phi 0.98 and 0.5; full basis), at
-   T = 2000 against the one-dimensional ``sv`` kernel (``smle.likelihood.compiled_eis``) on the
+   T = 2000 against the one-dimensional ``sv`` kernel (``smle.engine.methods.compiled_eis``) on the
    same length. Target: within 3x.
 
 Run: python experiments/bench_eis_multi.py [--quick]
@@ -140,7 +140,7 @@ def run_case(name, state, log_obs, obs_args, pairs, n_periods, repeats):
 
 def one_dimensional_sv(n_periods, repeats):
     """The production 1-d kernel for `sv` at the same T and S, for the ratio."""
-    from smle.likelihood import compiled_eis
+    from smle.engine.methods import compiled_eis
 
     model = smle.get_model("sv")
     params = {"mu": jnp.asarray(0.2), "phi": jnp.asarray(0.98), "sigma_eta": jnp.asarray(0.6 * np.sqrt(1 - 0.98**2))}

@@ -10,7 +10,7 @@ import pytest
 
 from smle.cli.study import add_study_commands
 from smle.errors import SmleInputError
-from smle.likelihood import MIN_DRAWS
+from smle.validation import MIN_DRAWS
 from smle.study import Estimator, load_study, run_study, study_from_mapping, study_status
 from smle.study.spec import _DESIGN_KEYS, _OUTPUT_KEYS, _STUDY_KEYS, format_text
 
