@@ -139,7 +139,9 @@ def newton_start(state: LatentVAR1, log_obs_fn, guess: jax.Array, n_newton: int,
     return expand(point)
 
 
-def eis_map(state: LatentVAR1, log_obs_fn, normals: jax.Array, auxiliary: AuxiliaryMulti, pairs):
+def eis_map(
+    state: LatentVAR1, log_obs_fn, normals: jax.Array, auxiliary: AuxiliaryMulti, pairs, antithetic: bool = False
+):
     """One EIS iteration: draw with the current sampler, regress the residual of log g_t on the
     basis, add the coefficients to the current ones; returns (new parameters, R^2).
 
@@ -152,7 +154,7 @@ def eis_map(state: LatentVAR1, log_obs_fn, normals: jax.Array, auxiliary: Auxili
     c_matrix = symmetric_from_pairs(auxiliary.c_obs, pairs, k)
     current = jnp.sum(paths * auxiliary.b_obs[:, None, :], axis=-1) - 0.5 * quadratic_forms(paths, c_matrix)
     total_var = jnp.var(log_obs, axis=1)
-    db, dc, r_squared = fit_quadratic(paths, log_obs - current, pairs, total_var)
+    db, dc, r_squared = fit_quadratic(paths, log_obs - current, pairs, total_var, antithetic)
     # a period whose regression is not finite keeps its current parameters
     usable = jnp.all(jnp.isfinite(db), axis=1) & jnp.all(jnp.isfinite(dc), axis=1)
     new = AuxiliaryMulti(
@@ -162,10 +164,10 @@ def eis_map(state: LatentVAR1, log_obs_fn, normals: jax.Array, auxiliary: Auxili
     return new, jnp.where(usable, r_squared, 0.0)
 
 
-def _eis_map_of_inputs(log_obs_fn, pairs, inputs, normals, auxiliary: AuxiliaryMulti):
+def _eis_map_of_inputs(log_obs_fn, pairs, antithetic, inputs, normals, auxiliary: AuxiliaryMulti):
     """:func:`eis_map` with ``inputs = (state, obs_args)``, the form the implicit fixed point takes."""
     state, obs_args = inputs
-    return eis_map(state, functools.partial(log_obs_fn, obs_args), normals, auxiliary, pairs)
+    return eis_map(state, functools.partial(log_obs_fn, obs_args), normals, auxiliary, pairs, antithetic)
 
 
 def fit_auxiliary(
@@ -175,7 +177,7 @@ def fit_auxiliary(
     bound = functools.partial(log_obs_fn, obs_args)
     start = jax.lax.stop_gradient(newton_start(state, bound, guess, settings.n_newton, pairs))
     auxiliary, (r_squared, iterations, change) = implicit_fixed_point(
-        functools.partial(_eis_map_of_inputs, log_obs_fn, pairs), settings, (state, obs_args), normals, start
+        functools.partial(_eis_map_of_inputs, log_obs_fn, pairs, settings.antithetic), settings, (state, obs_args), normals, start
     )
     info = EISMultiInfo(
         iterations=jax.lax.stop_gradient(iterations).astype(jnp.int32),

@@ -133,16 +133,48 @@ def small_solve_lower(factor, rhs, transpose: bool = False, small: int = SMALL_D
     return jnp.stack(solution)
 
 
-def fit_quadratic(paths: jax.Array, targets: jax.Array, pairs, total_var=None):
+def _least_squares(design, response):
+    """Per period, least squares of response (T, n) on the columns of design (T, n, p), no intercept.
+
+    Columns are scaled to unit mean square (needed for accuracy when the state is far from zero)
+    and the normal equations solved by Cholesky, batched over periods. Returns the coefficients
+    (T, p) and the mean square of the fitted values (T,).
+    """
+    spread = jnp.sqrt(jnp.mean(design * design, axis=1))
+    spread = jnp.where(spread > 0.0, spread, 1.0)
+    design = design / spread[:, None, :]
+    if design.shape[-1] <= SMALL_BASIS:
+        gram = jnp.mean(design[..., :, None] * design[..., None, :], axis=1)
+    else:
+        gram = jnp.einsum("tsp,tsq->tpq", design, design) / design.shape[1]
+    moment = jnp.mean(design * response[..., None], axis=1)
+    # a relative ridge of 1e-12 on a unit diagonal keeps an exactly collinear column finite
+    gram = gram + 1e-12 * jnp.eye(gram.shape[-1], dtype=gram.dtype)
+    root = jax.vmap(lambda g: small_cholesky(g, SMALL_BASIS))(gram)
+    half = jax.vmap(lambda f, m: small_solve_lower(f, m[:, None], small=SMALL_BASIS))(root, moment)
+    standardised = jax.vmap(lambda f, h: small_solve_lower(f, h, transpose=True, small=SMALL_BASIS))(root, half)
+    return standardised[..., 0] / spread, jnp.sum(half[..., 0] ** 2, axis=-1)
+
+
+def _centred(values):
+    return values - jnp.mean(values, axis=1, keepdims=True)
+
+
+def fit_quadratic(paths: jax.Array, targets: jax.Array, pairs, total_var=None, antithetic: bool = False):
     """Least squares of ``targets ~ a + b'x - x'Cx/2`` per period across draws, all periods at once.
 
-    Regressors: the draws centred on each period's mean, their products on ``pairs``, each column
-    centred and scaled to unit variance (needed for accuracy when the state is far from zero);
-    normal equations solved by Cholesky, batched over periods.
+    Regressors: the draws centred on each period's mean and their products on ``pairs``.
+
+    With ``antithetic`` the draws are pairs (s, s + S/2) of paths mirrored about the mean path
+    (the sampler is affine in the normals), so the centred linear columns are odd and the
+    products even across a pair: the least-squares problem splits exactly into the pair
+    differences on the linear columns and the pair means on the centred products (an intercept),
+    each over S/2 pairs; two small systems instead of one large one.
 
     Args:
       paths: (T, S, k). targets: (T, S). pairs: the basis products (i <= j).
       total_var: (T,) variance the R^2 is relative to (default: of ``targets``).
+      antithetic: whether the draws are antithetic pairs as above.
 
     Returns:
       (b (T, k), c (T, m) entries of C on ``pairs``, r_squared (T,)).
@@ -150,33 +182,25 @@ def fit_quadratic(paths: jax.Array, targets: jax.Array, pairs, total_var=None):
     k = paths.shape[-1]
     rows, cols = pair_index(pairs)
     centre = jnp.mean(paths, axis=1)
-    d = paths - centre[:, None, :]
-    design = jnp.concatenate([d, d[..., rows] * d[..., cols]], axis=-1)
-    design = design - jnp.mean(design, axis=1, keepdims=True)
-    spread = jnp.sqrt(jnp.mean(design * design, axis=1))
-    spread = jnp.where(spread > 0.0, spread, 1.0)
-    design = design / spread[:, None, :]
-    response = targets - jnp.mean(targets, axis=1, keepdims=True)
-    n_draws = paths.shape[1]
-    if design.shape[-1] <= SMALL_BASIS:
-        gram = jnp.mean(design[..., :, None] * design[..., None, :], axis=1)
+    if antithetic:
+        half = paths.shape[1] // 2
+        odd = 0.5 * (paths[:, :half] - paths[:, half:])
+        odd_target = 0.5 * (targets[:, :half] - targets[:, half:])
+        even_target = _centred(0.5 * (targets[:, :half] + targets[:, half:]))
+        linear, explained_odd = _least_squares(odd, odd_target)
+        products, explained_even = _least_squares(_centred(odd[..., rows] * odd[..., cols]), even_target)
+        explained = explained_odd + explained_even
+        response_var = jnp.mean(even_target**2 + odd_target**2, axis=1)
     else:
-        gram = jnp.einsum("tsp,tsq->tpq", design, design) / n_draws
-    moment = jnp.mean(design * response[..., None], axis=1)
-    # a relative ridge of 1e-12 on a unit diagonal keeps an exactly collinear column finite
-    gram = gram + 1e-12 * jnp.eye(gram.shape[-1], dtype=gram.dtype)
-    root = jax.vmap(lambda g: small_cholesky(g, SMALL_BASIS))(gram)
-    half = jax.vmap(lambda f, m: small_solve_lower(f, m[:, None], small=SMALL_BASIS))(root, moment)
-    standardised = jax.vmap(lambda f, h: small_solve_lower(f, h, transpose=True, small=SMALL_BASIS))(root, half)[..., 0]
-    coefficients = standardised / spread
-    linear, products = coefficients[:, :k], coefficients[:, k:]
+        d = paths - centre[:, None, :]
+        response = _centred(targets)
+        coefficients, explained = _least_squares(_centred(jnp.concatenate([d, d[..., rows] * d[..., cols]], -1)), response)
+        linear, products = coefficients[:, :k], coefficients[:, k:]
+        response_var = jnp.mean(response * response, axis=1)
     c = jnp.where(jnp.asarray(rows == cols), -2.0 * products, -products)
     b = linear + jnp.einsum("tij,tj->ti", symmetric_from_pairs(c, pairs, k), centre)
-    total = jnp.mean(response * response, axis=1) if total_var is None else total_var
-    explained = jnp.sum(half[..., 0] ** 2, axis=-1)
-    residual_var = jnp.maximum(jnp.mean(response * response, axis=1) - explained, 0.0)
+    total = response_var if total_var is None else total_var
+    residual_var = jnp.maximum(response_var - explained, 0.0)
     safe_total = jnp.where(total > 1e-300, total, 1.0)
     r_squared = jnp.where(total > 1e-300, 1.0 - residual_var / safe_total, 1.0)
     return b, c, jnp.clip(r_squared, 0.0, 1.0)
-
-

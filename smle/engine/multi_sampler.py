@@ -79,15 +79,18 @@ def _kernel_step(chi_next, inputs):
     root = small_cholesky(jnp.where(ok, precision_z, floored))
 
     r = b - small_matmul(curvature, d)
-    u0 = small_solve_lower(root, small_matmul(factor.T, r))
-    u1 = small_solve_lower(root, small_matmul(factor.T, small_matmul(curvature, slope)))
+    # one triangular solve for the three right-hand sides (u0, U1 and G' = R^{-1} L')
+    solved = small_solve_lower(
+        root, jnp.concatenate([small_matmul(factor.T, r)[:, None], small_matmul(factor.T, small_matmul(curvature, slope)), factor.T], axis=1)
+    )
+    u0, u1, scale_t = solved[:, 0], solved[:, 1 : k + 1], solved[:, k + 1 :]
     alpha = -jnp.sum(jnp.log(jnp.diag(root))) + 0.5 * jnp.sum(u0 * u0) + jnp.sum(b * d) - 0.5 * jnp.sum(
         d * small_matmul(curvature, d)
     )
     beta = small_matmul(slope.T, r) - small_matmul(u1.T, u0)
     gamma = small_matmul(small_matmul(slope.T, curvature), slope) - small_matmul(u1.T, u1)
     gamma = 0.5 * (gamma + gamma.T)
-    scale = small_solve_lower(root, factor.T).T
+    scale = scale_t.T
     moments = (d + small_matmul(scale, u0), slope - small_matmul(scale, u1), scale)
     weight = (alpha_next, beta_next - b, gamma_next - curvature)
     return (alpha, beta, gamma), (moments, weight, alpha)
