@@ -79,10 +79,12 @@ def _kernel_step(chi_next, inputs):
     root = small_cholesky(jnp.where(ok, precision_z, floored))
 
     r = b - small_matmul(curvature, d)
-    # one triangular solve for the three right-hand sides (u0, U1 and G' = R^{-1} L')
-    solved = small_solve_lower(
-        root, jnp.concatenate([small_matmul(factor.T, r)[:, None], small_matmul(factor.T, small_matmul(curvature, slope)), factor.T], axis=1)
-    )
+    left = (small_matmul(factor.T, r)[:, None], small_matmul(factor.T, small_matmul(curvature, slope)), factor.T)
+    if k > SMALL_DIM:
+        # one library call for the three right-hand sides (u0, U1 and G' = R^{-1} L')
+        solved = small_solve_lower(root, jnp.concatenate(left, axis=1))
+    else:
+        solved = jnp.concatenate([small_solve_lower(root, part) for part in left], axis=1)
     u0, u1, scale_t = solved[:, 0], solved[:, 1 : k + 1], solved[:, k + 1 :]
     alpha = -jnp.sum(jnp.log(jnp.diag(root))) + 0.5 * jnp.sum(u0 * u0) + jnp.sum(b * d) - 0.5 * jnp.sum(
         d * small_matmul(curvature, d)
