@@ -2,10 +2,10 @@
 
 The auxiliary parameters are the fixed point ``a* = Phi(a*, theta)`` of one EIS iteration
 (:func:`eis_map`), started by Newton steps towards the posterior mode. The fixed point is found by
-iteration to ``tol`` and differentiated by the implicit function theorem: a custom VJP whose
-adjoint equation is solved by fixed-point iteration to ``tangent_tol``, so the gradient is the
-exact gradient of the function evaluated (auxiliary parameters re-fitted at every theta with the
-same random numbers). Richard and Zhang (2007), J. Econometrics 141.
+iteration to ``tol`` and differentiated by the implicit function theorem
+(:mod:`smle.engine.implicit`, shared with the multivariate engine), so the gradient is the exact
+gradient of the function evaluated (auxiliary parameters re-fitted at every theta with the same
+random numbers). Richard and Zhang (2007), J. Econometrics 141.
 """
 
 from __future__ import annotations
@@ -16,6 +16,7 @@ from typing import NamedTuple
 import jax
 import jax.numpy as jnp
 
+from smle.engine.implicit import implicit_fixed_point
 from smle.engine.latent import LatentAR1
 from smle.engine.sampler import (
     Auxiliary, EISSettings, assemble, draw_paths, fit_quadratic, mean_path,
@@ -92,110 +93,10 @@ def eis_map(state: LatentAR1, log_obs_fn, normals: jax.Array, auxiliary: Auxilia
     return new, jnp.where(usable, r_squared, 0.0)
 
 
-def _relative_change(new: Auxiliary, old: Auxiliary):
-    return jnp.maximum(
-        jnp.max(jnp.abs(new.b_obs - old.b_obs) / (1.0 + jnp.abs(old.b_obs))),
-        jnp.max(jnp.abs(new.c_obs - old.c_obs) / (1.0 + jnp.abs(old.c_obs))),
-    )
-
-
-def _iterate_to_fixed_point(update, start: Auxiliary, tol, max_iter: int):
-    """Iterate ``a <- update(a)`` until the relative change is below tol or max_iter is reached.
-
-    ``update`` returns ``(new, extra)``; the last ``extra`` (the regressions' R^2) is carried out.
-    """
-
-    def cond(carry):
-        _, _, iteration, change = carry
-        return (iteration < max_iter) & (change > tol)
-
-    def body(carry):
-        current, _, iteration, _ = carry
-        new, extra = update(current)
-        return new, extra, iteration + 1, _relative_change(new, current)
-
-    inf = jnp.asarray(jnp.inf, start.b_obs.dtype)
-    extra = jnp.zeros_like(start.b_obs)
-    return jax.lax.while_loop(cond, body, (start, extra, jnp.asarray(0), inf))
-
-
-def _solve_adjoint(transposed_map, cotangent, tol, max_iter: int):
-    """Solve ``w = cotangent + A^T w`` by fixed-point iteration, A the EIS map's Jacobian in a.
-
-    Converges when the EIS map is a contraction at its fixed point (spectral radius of A below
-    one), the same condition under which the forward iteration converges.
-    """
-
-    def cond(carry):
-        _, iteration, change = carry
-        return (iteration < max_iter) & (change > tol)
-
-    def body(carry):
-        w, iteration, _ = carry
-        new = jax.tree.map(jnp.add, cotangent, transposed_map(w))
-        leaves_new, leaves_old = jax.tree.leaves(new), jax.tree.leaves(w)
-        size = jnp.max(jnp.stack([jnp.max(jnp.abs(n)) for n in leaves_new]))
-        change = jnp.max(jnp.stack([jnp.max(jnp.abs(n - o)) for n, o in zip(leaves_new, leaves_old)])) / (
-            1e-300 + size
-        )
-        return new, iteration + 1, change
-
-    inf = jnp.asarray(jnp.inf, jax.tree.leaves(cotangent)[0].dtype)
-    w, _, change = jax.lax.while_loop(cond, body, (cotangent, jnp.asarray(0), inf))
-    finite = jnp.all(jnp.stack([jnp.all(jnp.isfinite(leaf)) for leaf in jax.tree.leaves(w)]))
-
-    def krylov(_):
-        # the iteration diverged (a numerical spectral radius of A at or above one, seen for an
-        # ill-conditioned exact case): solve (I - A^T) w = cotangent by restarted GMRES instead
-        def operator(v):
-            return jax.tree.map(jnp.subtract, v, transposed_map(v))
-
-        solution, _ = jax.scipy.sparse.linalg.gmres(
-            operator, cotangent, x0=cotangent, tol=tol, atol=0.0, restart=20, maxiter=max(1, max_iter // 20),
-            solve_method="batched",
-        )
-        return solution
-
-    return jax.lax.cond(finite & (change <= tol), lambda _: w, krylov, None)
-
-
-@functools.partial(jax.custom_vjp, nondiff_argnums=(0, 1))
-def _fixed_point(log_obs_fn, settings: EISSettings, inputs, normals, start: Auxiliary):
-    """The EIS fixed point a* = Phi(a*; inputs) with diagnostics (R^2, iterations, change).
-
-    ``inputs = (state, obs_args)`` are the differentiable quantities: the latent AR(1)
-    coefficients and whatever ``log_obs_fn(obs_args, paths)`` depends on. The custom VJP applies
-    the implicit function theorem: d a*/d inputs = (I - A)^{-1} d Phi/d inputs.
-    """
+def _eis_map_of_inputs(log_obs_fn, inputs, normals, auxiliary: Auxiliary):
+    """:func:`eis_map` with ``inputs = (state, obs_args)``, the form the implicit fixed point takes."""
     state, obs_args = inputs
-
-    def update(a):
-        return eis_map(state, functools.partial(log_obs_fn, obs_args), normals, a)
-
-    fixed, r_squared, iterations, change = _iterate_to_fixed_point(update, start, settings.tol, settings.max_iter)
-    return fixed, (r_squared, iterations.astype(r_squared.dtype), change)
-
-
-def _fixed_point_forward(log_obs_fn, settings, inputs, normals, start):
-    out = _fixed_point(log_obs_fn, settings, inputs, normals, start)
-    return out, (inputs, normals, start, out[0])
-
-
-def _fixed_point_backward(log_obs_fn, settings, residuals, cotangents):
-    inputs, normals, start, fixed = residuals
-    fixed_cotangent = cotangents[0]
-
-    def eis_step(inputs_, a):
-        state, obs_args = inputs_
-        return eis_map(state, functools.partial(log_obs_fn, obs_args), normals, a)[0]
-
-    _, vjp = jax.vjp(eis_step, inputs, fixed)
-    adjoint = _solve_adjoint(lambda w: vjp(w)[1], fixed_cotangent, settings.tangent_tol, settings.max_tangent_iter)
-    inputs_cotangent, _ = vjp(adjoint)
-    return inputs_cotangent, jnp.zeros_like(normals), jax.tree.map(jnp.zeros_like, start)
-
-
-_fixed_point.defvjp(_fixed_point_forward, _fixed_point_backward)
+    return eis_map(state, functools.partial(log_obs_fn, obs_args), normals, auxiliary)
 
 
 def fit_auxiliary(
@@ -207,8 +108,8 @@ def fit_auxiliary(
     """
     bound = functools.partial(log_obs_fn, obs_args)
     start = jax.lax.stop_gradient(newton_start(state, bound, guess, settings.n_newton))
-    auxiliary, (r_squared, iterations, change) = _fixed_point(
-        log_obs_fn, settings, (state, obs_args), normals, start
+    auxiliary, (r_squared, iterations, change) = implicit_fixed_point(
+        functools.partial(_eis_map_of_inputs, log_obs_fn), settings, (state, obs_args), normals, start
     )
     info = EISInfo(
         iterations=jax.lax.stop_gradient(iterations).astype(jnp.int32),
