@@ -206,6 +206,28 @@ class GarchMix(Model):
             out[n] = shares[0] if n == "alpha" else shares[1] if n == "beta" else c.from_real(unconstrained[i])
         return out
 
+    def pin(self, unconstrained, fixed):
+        """Fixed parameters held in the softmax bijection of (alpha, beta, 1 - alpha - beta).
+
+        With alpha = a fixed, u_alpha = log(a (1 + e^{u_beta}) / (1 - a)) gives alpha = a and
+        beta = (1 - a) e^{u_beta} / (1 + e^{u_beta}): beta ranges over (0, 1 - a) as u_beta ranges
+        over the real line; likewise with beta fixed. Both fixed: their own logits.
+        """
+        names = list(self.constraints())
+        others = {n: v for n, v in fixed.items() if n not in ("alpha", "beta")}
+        u = Model.pin(self, unconstrained, others)
+        pair = {n: jnp.asarray(fixed[n], float) for n in ("alpha", "beta") if n in fixed}
+        if len(pair) == 2:
+            rest = 1.0 - pair["alpha"] - pair["beta"]
+            for n in ("alpha", "beta"):
+                u = u.at[names.index(n)].set(jnp.log(pair[n]) - jnp.log(rest))
+        elif len(pair) == 1:
+            (held, value), = pair.items()
+            other = "beta" if held == "alpha" else "alpha"
+            u = u.at[names.index(held)].set(
+                jnp.log(value) - jnp.log1p(-value) + jnp.logaddexp(0.0, u[names.index(other)]))
+        return u
+
     def latent(self, params):
         return latent.standardised(jnp.asarray(params["rho"], float))
 

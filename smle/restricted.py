@@ -1,0 +1,107 @@
+"""Restricted fits: some parameters held at given values, the others estimated.
+
+A :class:`Restriction` maps the free coordinates of a model's unconstrained parameterisation
+to the full natural parameters. It works through the model's own bijection and its
+:meth:`~smle.models.base.Model.pin` hook: the fixed parameters' coordinates are set so that
+``from_real`` returns their values whatever the free coordinates are, and the fixed values are
+then written over the result, so they hold exactly. With per-parameter bijections this is
+fixing coordinates; with a joint one (GARCH's alpha + beta < 1 in ``garch``, ``garch-mix``)
+the free parameters range over what the fixed ones leave (beta in (0, 1 - alpha) when alpha
+is fixed), so every point of the free space is admissible.
+
+:func:`check_fixed` validates the fixed values (names, finite numbers, inside the open
+admissible region, joint constraints among the fixed values themselves).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from typing import Mapping
+
+import jax.numpy as jnp
+import numpy as np
+
+from smle.errors import SmleInputError, describe
+from smle.models import Model
+
+
+def check_fixed(model: Model, fixed) -> dict[str, float]:
+    """``fixed`` (a mapping name -> value, or None) checked against ``model``; floats by name."""
+    if fixed is None:
+        return {}
+    constraints = model.constraints()
+    if not isinstance(fixed, Mapping):
+        raise SmleInputError(f"fixed = {describe(fixed)} is not accepted; accepted: a mapping from parameter name "
+                             f"to value, e.g. {{'{next(iter(constraints))}': 0.0}}")
+    out = {}
+    for name, raw in fixed.items():
+        if name not in constraints:
+            raise SmleInputError(f"fixed names {name!r}, which model '{model.name}' does not have; its parameters "
+                                 f"are: {', '.join(constraints)}")
+        constraint = constraints[name]
+        try:
+            value = float(np.asarray(raw, dtype=float).reshape(()))
+        except (TypeError, ValueError):
+            raise SmleInputError(f"fixed['{name}'] = {describe(raw)} is not a real number; accepted: "
+                                 f"{constraint.region(name)}") from None
+        if not math.isfinite(value) or not constraint.contains(value):
+            where = "on the boundary of" if value in (constraint.lower, constraint.upper) else "outside"
+            raise SmleInputError(
+                f"fixed['{name}'] = {value!r} is {where} the admissible region of model '{model.name}': "
+                f"{constraint.region(name)} ({constraint.meaning}); the region is open, so a parameter can be held "
+                "only at a value strictly inside it")
+        out[name] = value
+    if len(out) == len(constraints):
+        raise SmleInputError(f"fixed holds every parameter of model '{model.name}'; nothing is left to estimate "
+                             "(use smle.loglik to evaluate the likelihood at given values)")
+    try:  # a joint constraint among the fixed values alone (a check needing a free value raises KeyError)
+        model.check_joint(dict(out))
+    except KeyError:
+        pass
+    return out
+
+
+@dataclasses.dataclass(frozen=True)
+class Restriction:
+    """A model with some parameters fixed (hashable: compiled programs are cached on it).
+
+    Attributes:
+      model: the model.
+      fixed: ``((name, value), ...)`` in the model's parameter order (empty: no restriction).
+    """
+
+    model: Model
+    fixed: tuple = ()
+
+    @classmethod
+    def of(cls, model: Model, fixed: Mapping[str, float]) -> "Restriction":
+        return cls(model, tuple((n, float(fixed[n])) for n in model.param_names if n in fixed))
+
+    @property
+    def fixed_values(self) -> dict[str, float]:
+        return dict(self.fixed)
+
+    @property
+    def free_names(self) -> tuple[str, ...]:
+        held = self.fixed_values
+        return tuple(n for n in self.model.param_names if n not in held)
+
+    @property
+    def free_index(self) -> np.ndarray:
+        return np.array([self.model.param_names.index(n) for n in self.free_names], dtype=int)
+
+    def unconstrained(self, u_free) -> jnp.ndarray:
+        """The model's full unconstrained vector at free coordinates ``u_free``."""
+        full = jnp.zeros(len(self.model.param_names), dtype=jnp.result_type(float))
+        return self.model.pin(full.at[self.free_index].set(u_free), self.fixed_values)
+
+    def natural(self, u_free) -> dict:
+        """Natural parameters (all of them) at free coordinates ``u_free``; fixed ones exact."""
+        params = dict(self.model.from_real(self.unconstrained(u_free)))
+        params.update({n: jnp.asarray(v, float) for n, v in self.fixed})
+        return params
+
+    def free_start(self, start: Mapping[str, float]) -> jnp.ndarray:
+        """Free coordinates of admissible start values (the fixed ones are replaced by pinning)."""
+        return jnp.asarray(self.model.to_real(start))[self.free_index]
