@@ -7,7 +7,8 @@ differentiated implicitly (see :mod:`smle.engine.eis`). The optimiser is L-BFGS 
 recursion) with a weak Wolfe line search; every evaluation of the objective and its gradient is
 one JIT-compiled program, compiled once per (model, settings, data shape). Standard errors come from the inverse
 Hessian of minus the log-likelihood (central differences of the exact gradient), mapped to the
-natural parameters by the delta method.
+natural parameters by the delta method. A model without a latent state is fitted the same way
+on its closed-form likelihood; ``fixed`` parameters are held through :mod:`smle.restricted`.
 
 References: Richard and Zhang (2007), J. Econometrics 141 (EIS); Liu and Nocedal (1989),
 Math. Programming 45 (L-BFGS); Durbin and Koopman (1997), Biometrika 84 (bias correction).
@@ -80,14 +81,21 @@ def compiled_value_and_grad(model: Model, settings: eis.EISSettings, control: Co
 
 @functools.lru_cache(maxsize=None)
 def compiled_closed_form_objective(restriction: Restriction):
-    """``(u, y) -> (value, gradient)`` and ``(u, y) -> Hessian`` of minus the closed-form
-    log-likelihood per observation in the free coordinates (exact derivatives by JAX)."""
+    """``(u, y) -> (value, gradient)`` of minus the closed-form log-likelihood per observation in
+    the free coordinates (the exact gradient, by JAX).
+
+    The Hessian for the standard errors is taken by central differences of this exact gradient
+    (2k more calls of the same program), not by ``jax.hessian``: compiling the second derivative
+    of the variance scan took 20 s for NIG innovations and 8 s for normal ones at T = 500
+    (against 8 s and 3.5 s for the gradient; cold cache, 2-core machine), and the differences
+    reproduce the published benchmark standard errors to the digits quoted.
+    """
     loglik = compiled_closed_form(restriction.model)
 
     def negative(u, y):
         return -loglik(restriction.natural(u), y) / y.shape[0]
 
-    return jax.jit(jax.value_and_grad(negative)), jax.jit(jax.hessian(negative))
+    return jax.jit(jax.value_and_grad(negative))
 
 
 @functools.lru_cache(maxsize=None)
@@ -214,6 +222,7 @@ def fit(
       n_score_draws: paths of the EIS scoring set, if not ``n_draws``.
       control_variates, cv_coefficient: maximise the control-variate corrected log-likelihood
         (see :func:`smle.loglik`); "independent" about doubles the cost of an evaluation.
+        Not used by a model without a latent state (nor are the other EIS settings).
       fixed: parameters held at given values, e.g. ``{"ar1": 0.0, "rho": 0.0}`` (each strictly
         inside its admissible region); the others are estimated, and standard errors, intervals
         and the number of parameters in AIC and BIC are those of the free ones.
@@ -224,7 +233,7 @@ def fit(
     model = get_model(model)
     y = check_fit_data(model, y)
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
-    control = check_control(model, control_variates, cv_coefficient)
+    control = check_control(model, control_variates, cv_coefficient) if model.state_dim else NO_CONTROL
     n_seeds = check_integer("n_seeds", n_seeds, 1)
     if not (isinstance(level, float) and 0.5 <= level < 1):
         raise SmleInputError(f"level = {level!r} is not accepted; accepted: a number in [0.5, 1)")
@@ -272,9 +281,9 @@ def _fit_one(restriction, settings, control, y, key, start_params, max_steps, gt
 
 def _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbose, started):
     """Exact maximum likelihood of a model without a latent state: L-BFGS on the closed form,
-    standard errors from its Hessian by automatic differentiation (``jax.hessian``)."""
+    standard errors from its Hessian (central differences of the exact gradient)."""
     model = restriction.model
-    value_and_grad, hessian_of = compiled_closed_form_objective(restriction)
+    value_and_grad = compiled_closed_form_objective(restriction)
     y_jax = jnp.asarray(y)
 
     def evaluate(u):
@@ -284,7 +293,7 @@ def _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbo
     if verbose:
         print(f"fitting '{model.name}' to {y.shape[0]} periods by its closed-form likelihood", file=sys.stderr)
     first = _lbfgs(evaluate, restriction.free_start(start_params), int(max_steps), float(gtol), verbose)
-    hessian = np.asarray(hessian_of(jnp.asarray(first["u"]), y_jax)) * y.shape[0]
+    hessian = _hessian(evaluate, first["u"], y.shape[0])
     params, covariance, std_errors, conf_int, converged, message = _estimates(restriction, first, hessian, level)
     loglik = -first["value"] * y.shape[0]
     path = np.asarray(model.factor_path({n: jnp.asarray(v) for n, v in params.items()}, y_jax))
@@ -293,7 +302,7 @@ def _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbo
         model=model.name, model_options=model_options(model), param_names=list(model.param_names), params=params,
         std_errors=std_errors, conf_int=conf_int, level=level, covariance=covariance, loglik=loglik, nse=0.0,
         n_obs=y.shape[0], aic=-2 * loglik + 2 * k, bic=-2 * loglik + k * math.log(y.shape[0]),
-        converged=bool(converged), message=message, iterations=first["steps"], n_evaluations=first["evaluations"],
+        converged=bool(converged), message=message, iterations=first["steps"], n_evaluations=first["evaluations"] + 2 * k,
         grad_norm=first["grad_norm"], elapsed_seconds=time.perf_counter() - started, start=dict(start_params),
         eis={"method": "closed form"}, factor_name=model.factor_name, smoothed_mean=path, smoothed_lower=path,
         smoothed_upper=path, log_weights=np.zeros(0), observations=np.array(y, dtype=float),
