@@ -26,7 +26,6 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 import optax
-from scipy.special import ndtri
 
 from smle.engine import eis
 from smle.engine.control import ControlSpec, control_facts, controlled_output
@@ -35,7 +34,7 @@ from smle.engine.posterior import path_quantiles
 from smle.errors import SmleInputError
 from smle.models import Model, get_model
 from smle.models.base import model_options
-from smle.restricted import Restriction, check_fixed
+from smle.restricted import Restriction, check_fixed, standard_errors
 from smle.results import FitResult
 from smle.validation import as_key, check_control, check_integer, check_observations, check_settings, checked_params
 
@@ -239,21 +238,15 @@ def fit(
         raise SmleInputError(f"level = {level!r} is not accepted; accepted: a number in [0.5, 1)")
     max_steps = check_integer("max_steps", max_steps, 1)
     restriction = Restriction.of(model, check_fixed(model, fixed))
-    if start is None:
-        start_params = model.start_params(y)
-    else:
-        try:
-            start_params = checked_params(model, start)
-        except SmleInputError as error:
-            raise SmleInputError(f"start values: {error}") from None
+    start_params = _start_values(model, start, y)
     key = as_key(seed)
     y_jax = jnp.asarray(y)
     started = time.perf_counter()
     if model.state_dim == 0:
         return _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbose, started)
     if verbose:
-        print(f"fitting '{model.name}' to {y.shape[0]} periods with {settings.n_draws} EIS draws "
-              "(the first call compiles; later calls of this shape reuse the program)", file=sys.stderr, flush=True)
+        print(f"fitting '{model.name}' to {y.shape[0]} periods with {settings.n_draws} EIS draws (the first call "
+              "compiles; later calls of this shape reuse the program)", file=sys.stderr, flush=True)
     first = _fit_one(restriction, settings, control, y_jax, key, start_params, max_steps, gtol, verbose)
     extra = []
     for offset in range(1, n_seeds):
@@ -262,6 +255,15 @@ def fit(
         extra.append(_fit_one(restriction, settings, control, y_jax, as_key(seed + offset), start_params, max_steps,
                               gtol, False))
     return _assemble(restriction, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started)
+
+
+def _start_values(model, start, y) -> dict:
+    if start is None:
+        return model.start_params(y)
+    try:
+        return checked_params(model, start)
+    except SmleInputError as error:
+        raise SmleInputError(f"start values: {error}") from None
 
 
 def _evaluator(restriction, settings, control, y, key):
@@ -315,7 +317,7 @@ def _estimates(restriction, first, hessian, level):
     u = first["u"]
     params = {n: float(v) for n, v in restriction.natural(jnp.asarray(u)).items()}
     converged, message = _convergence(first)
-    covariance, std_errors, conf_int, problem = _standard_errors(restriction, u, params, hessian, level)
+    covariance, std_errors, conf_int, problem = standard_errors(restriction, u, params, hessian, level)
     if problem:
         converged = False
         message += problem
@@ -400,48 +402,6 @@ def _convergence(first) -> tuple[bool, str]:
         return False, (f"not converged: the line search made no progress (max|grad| = {first['grad_norm']:.2e}, "
                        f"tolerance {first['gtol']:.0e}); try other start values or more draws")
     return False, f"not converged: reached max_steps = {first['max_steps']} (max|grad| = {first['grad_norm']:.2e})"
-
-
-def _standard_errors(restriction, u, params, hessian, level):
-    """``(covariance, std_errors, conf_int, problem)`` from the Hessian of minus the log-likelihood
-    on the unconstrained scale of the free parameters, mapped by the delta method; ``problem`` is ""
-    or why there are none. Fixed parameters get NaN standard errors and intervals and zero rows
-    and columns in the covariance (they do not vary)."""
-    names, free = restriction.model.param_names, restriction.free_names
-    index = [names.index(n) for n in free]
-    jacobian = np.asarray(jax.jacfwd(lambda v: jnp.stack([restriction.natural(v)[n] for n in free]))(jnp.asarray(u)))
-    finite = bool(np.all(np.isfinite(hessian)))
-    eigenvalues = np.linalg.eigvalsh(hessian) if finite else np.full(len(free), np.nan)
-    z = float(ndtri(0.5 + level / 2))
-    std_errors = {n: math.nan for n in names}
-    conf_int = {n: (math.nan, math.nan) for n in names}
-    if not (finite and np.all(eigenvalues > 0)):
-        covariance = np.full((len(names), len(names)), np.nan)
-        if finite:
-            return covariance, std_errors, conf_int, (
-                "; the Hessian is not positive definite (no standard errors): the optimum is not a strict maximum")
-        return covariance, std_errors, conf_int, (
-            "; the Hessian is not finite (no standard errors): the likelihood could not be evaluated "
-            "near the estimate, which often means a parameter is at the edge of its region")
-    cov_u = np.linalg.inv(hessian)
-    covariance = np.zeros((len(names), len(names)))
-    covariance[np.ix_(index, index)] = jacobian @ cov_u @ jacobian.T
-    se_u = np.sqrt(np.diag(cov_u))
-    std_errors.update({n: float(np.sqrt(covariance[i, i])) for n, i in zip(free, index)})
-    elementwise = np.allclose(jacobian, np.diag(np.diag(jacobian)), rtol=0, atol=1e-12 * np.abs(jacobian).max())
-    for i, n in enumerate(free):
-        if elementwise:
-            # built on the unconstrained scale and mapped back: stays inside the region
-            bounds = []
-            for sign in (-1.0, 1.0):
-                shifted = np.array(u, dtype=float)
-                shifted[i] += sign * z * se_u[i]
-                bounds.append(float(restriction.natural(jnp.asarray(shifted))[n]))
-        else:
-            # a joint bijection (GARCH stationarity): delta-method interval in the parameter
-            bounds = [params[n] - z * std_errors[n], params[n] + z * std_errors[n]]
-        conf_int[n] = (min(bounds), max(bounds))
-    return covariance, std_errors, conf_int, ""
 
 
 def _control_entries(facts) -> dict:

@@ -10,7 +10,9 @@ the free parameters range over what the fixed ones leave (beta in (0, 1 - alpha)
 is fixed), so every point of the free space is admissible.
 
 :func:`check_fixed` validates the fixed values (names, finite numbers, inside the open
-admissible region, joint constraints among the fixed values themselves).
+admissible region, joint constraints among the fixed values themselves);
+:func:`standard_errors` maps the inverse Hessian in the free coordinates to the natural
+parameters (delta method), the fixed ones without a standard error.
 """
 
 from __future__ import annotations
@@ -19,8 +21,10 @@ import dataclasses
 import math
 from typing import Mapping
 
+import jax
 import jax.numpy as jnp
 import numpy as np
+from scipy.special import ndtri
 
 from smle.errors import SmleInputError, describe
 from smle.models import Model
@@ -105,3 +109,45 @@ class Restriction:
     def free_start(self, start: Mapping[str, float]) -> jnp.ndarray:
         """Free coordinates of admissible start values (the fixed ones are replaced by pinning)."""
         return jnp.asarray(self.model.to_real(start))[self.free_index]
+
+
+def standard_errors(restriction, u, params, hessian, level):
+    """``(covariance, std_errors, conf_int, problem)`` from the Hessian of minus the log-likelihood
+    on the unconstrained scale of the free parameters, mapped by the delta method; ``problem`` is ""
+    or why there are none. Fixed parameters get NaN standard errors and intervals and zero rows
+    and columns in the covariance (they do not vary)."""
+    names, free = restriction.model.param_names, restriction.free_names
+    index = [names.index(n) for n in free]
+    jacobian = np.asarray(jax.jacfwd(lambda v: jnp.stack([restriction.natural(v)[n] for n in free]))(jnp.asarray(u)))
+    finite = bool(np.all(np.isfinite(hessian)))
+    eigenvalues = np.linalg.eigvalsh(hessian) if finite else np.full(len(free), np.nan)
+    z = float(ndtri(0.5 + level / 2))
+    std_errors = {n: math.nan for n in names}
+    conf_int = {n: (math.nan, math.nan) for n in names}
+    if not (finite and np.all(eigenvalues > 0)):
+        covariance = np.full((len(names), len(names)), np.nan)
+        if finite:
+            return covariance, std_errors, conf_int, (
+                "; the Hessian is not positive definite (no standard errors): the optimum is not a strict maximum")
+        return covariance, std_errors, conf_int, (
+            "; the Hessian is not finite (no standard errors): the likelihood could not be evaluated "
+            "near the estimate, which often means a parameter is at the edge of its region")
+    cov_u = np.linalg.inv(hessian)
+    covariance = np.zeros((len(names), len(names)))
+    covariance[np.ix_(index, index)] = jacobian @ cov_u @ jacobian.T
+    se_u = np.sqrt(np.diag(cov_u))
+    std_errors.update({n: float(np.sqrt(covariance[i, i])) for n, i in zip(free, index)})
+    off_diagonal = np.abs(jacobian - np.diag(np.diag(jacobian))) > 1e-12 * np.abs(jacobian).max()
+    for i, n in enumerate(free):
+        if not (off_diagonal[i].any() or off_diagonal[:, i].any()):  # the parameter has its own bijection
+            # built on the unconstrained scale and mapped back: stays inside the region
+            bounds = []
+            for sign in (-1.0, 1.0):
+                shifted = np.array(u, dtype=float)
+                shifted[i] += sign * z * se_u[i]
+                bounds.append(float(restriction.natural(jnp.asarray(shifted))[n]))
+        else:
+            # a joint bijection (GARCH stationarity): delta-method interval in the parameter
+            bounds = [params[n] - z * std_errors[n], params[n] + z * std_errors[n]]
+        conf_int[n] = (min(bounds), max(bounds))
+    return covariance, std_errors, conf_int, ""
