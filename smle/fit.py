@@ -34,7 +34,7 @@ from smle.engine.posterior import path_quantiles
 from smle.errors import SmleInputError
 from smle.models import Model, get_model
 from smle.models.base import model_options
-from smle.restricted import Restriction, check_fixed, standard_errors
+from smle.restricted import Restriction, check_fixed, compiled_natural, standard_errors
 from smle.results import FitResult
 from smle.validation import as_key, check_control, check_integer, check_observations, check_settings, checked_params
 
@@ -298,7 +298,7 @@ def _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbo
     hessian = _hessian(evaluate, first["u"], y.shape[0])
     params, covariance, std_errors, conf_int, converged, message = _estimates(restriction, first, hessian, level)
     loglik = -first["value"] * y.shape[0]
-    path = np.asarray(model.factor_path({n: jnp.asarray(v) for n, v in params.items()}, y_jax))
+    path = np.asarray(_compiled_factor_path(model)({n: jnp.asarray(v) for n, v in params.items()}, y_jax))
     k = len(restriction.free_names)
     return FitResult(
         model=model.name, model_options=model_options(model), param_names=list(model.param_names), params=params,
@@ -312,10 +312,15 @@ def _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbo
     )
 
 
+@functools.lru_cache(maxsize=None)
+def _compiled_factor_path(model):
+    return jax.jit(model.factor_path)
+
+
 def _estimates(restriction, first, hessian, level):
     """``(params, covariance, std_errors, conf_int, converged, message)`` at the optimiser's end."""
     u = first["u"]
-    params = {n: float(v) for n, v in restriction.natural(jnp.asarray(u)).items()}
+    params = {n: float(v) for n, v in compiled_natural(restriction)(jnp.asarray(u)).items()}
     converged, message = _convergence(first)
     covariance, std_errors, conf_int, problem = standard_errors(restriction, u, params, hessian, level)
     if problem:

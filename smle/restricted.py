@@ -18,6 +18,7 @@ parameters (delta method), the fixed ones without a standard error.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 from typing import Mapping
 
@@ -111,6 +112,24 @@ class Restriction:
         return jnp.asarray(self.model.to_real(start))[self.free_index]
 
 
+@functools.lru_cache(maxsize=None)
+def compiled_natural(restriction: Restriction):
+    """:meth:`Restriction.natural`, compiled once per restriction."""
+    return jax.jit(restriction.natural)
+
+
+@functools.lru_cache(maxsize=None)
+def _compiled_jacobian(restriction: Restriction):
+    """d(free natural parameters) / d(free coordinates), compiled once per restriction."""
+    free = restriction.free_names
+
+    def free_values(v):
+        params = restriction.natural(v)
+        return jnp.stack([params[n] for n in free])
+
+    return jax.jit(jax.jacfwd(free_values))
+
+
 def standard_errors(restriction, u, params, hessian, level):
     """``(covariance, std_errors, conf_int, problem)`` from the Hessian of minus the log-likelihood
     on the unconstrained scale of the free parameters, mapped by the delta method; ``problem`` is ""
@@ -118,7 +137,7 @@ def standard_errors(restriction, u, params, hessian, level):
     and columns in the covariance (they do not vary)."""
     names, free = restriction.model.param_names, restriction.free_names
     index = [names.index(n) for n in free]
-    jacobian = np.asarray(jax.jacfwd(lambda v: jnp.stack([restriction.natural(v)[n] for n in free]))(jnp.asarray(u)))
+    jacobian = np.asarray(_compiled_jacobian(restriction)(jnp.asarray(u)))
     finite = bool(np.all(np.isfinite(hessian)))
     eigenvalues = np.linalg.eigvalsh(hessian) if finite else np.full(len(free), np.nan)
     z = float(ndtri(0.5 + level / 2))
@@ -145,7 +164,7 @@ def standard_errors(restriction, u, params, hessian, level):
             for sign in (-1.0, 1.0):
                 shifted = np.array(u, dtype=float)
                 shifted[i] += sign * z * se_u[i]
-                bounds.append(float(restriction.natural(jnp.asarray(shifted))[n]))
+                bounds.append(float(compiled_natural(restriction)(jnp.asarray(shifted))[n]))
         else:
             # a joint bijection (GARCH stationarity): delta-method interval in the parameter
             bounds = [params[n] - z * std_errors[n], params[n] + z * std_errors[n]]
