@@ -17,15 +17,18 @@ from smle.diagnostics.filtering import FilterResult, filter_factor  # noqa: E402
 from smle.diagnostics.gof import Diagnostics, diagnose  # noqa: E402
 from smle import reference  # noqa: E402
 from smle.diagnostics.health import HealthReport, check  # noqa: E402
+from smle.decision.compare import Comparison, compare  # noqa: E402
 
 __version__ = "0.1.0"
 
 __all__ = [
+    "Comparison",
     "Diagnostics",
     "FilterResult",
     "FitResult",
     "HealthReport",
     "check",
+    "compare",
     "diagnose",
     "filter_factor",
     "fit",

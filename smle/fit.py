@@ -7,7 +7,8 @@ differentiated implicitly (see :mod:`smle.engine.eis`). The optimiser is L-BFGS 
 recursion) with a weak Wolfe line search; every evaluation of the objective and its gradient is
 one JIT-compiled program, compiled once per (model, settings, data shape). Standard errors come from the inverse
 Hessian of minus the log-likelihood (central differences of the exact gradient), mapped to the
-natural parameters by the delta method.
+natural parameters by the delta method. A model without a latent state is fitted the same way
+on its closed-form likelihood; ``fixed`` parameters are held through :mod:`smle.restricted`.
 
 References: Richard and Zhang (2007), J. Econometrics 141 (EIS); Liu and Nocedal (1989),
 Math. Programming 45 (L-BFGS); Durbin and Koopman (1997), Biometrika 84 (bias correction).
@@ -25,22 +26,25 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 import optax
-from scipy.special import ndtri
 
 from smle.engine import eis
 from smle.engine.control import ControlSpec, control_facts, controlled_output
+from smle.engine.methods import compiled_closed_form
 from smle.engine.posterior import path_quantiles
 from smle.errors import SmleInputError
 from smle.models import Model, get_model
 from smle.models.base import model_options
+from smle.restricted import Restriction, check_fixed, compiled_natural, standard_errors
 from smle.results import FitResult
 from smle.validation import as_key, check_control, check_integer, check_observations, check_settings, checked_params
 
 NO_CONTROL = ControlSpec()
 
 
-def objective(model: Model, settings: eis.EISSettings, y, key, control: ControlSpec = NO_CONTROL) -> Callable:
-    """Minus the EIS log-likelihood per observation as a function of the unconstrained vector.
+def objective(model: Model, settings: eis.EISSettings, y, key, control: ControlSpec = NO_CONTROL,
+              restriction: Restriction | None = None) -> Callable:
+    """Minus the EIS log-likelihood per observation as a function of the unconstrained vector
+    (of the free parameters' coordinates with a ``restriction``).
 
     With control variates it is the corrected log-likelihood. Returns ``(value, aux)`` where
     ``aux`` carries the EIS output, weight diagnostics and the control-variate facts at that
@@ -49,7 +53,7 @@ def objective(model: Model, settings: eis.EISSettings, y, key, control: ControlS
     n_periods = y.shape[0]
 
     def negative_loglik(unconstrained):
-        params = model.from_real(unconstrained)
+        params = model.from_real(unconstrained) if restriction is None else restriction.natural(unconstrained)
         out, extra = controlled_output(model, settings, control, params, y, key)
         diagnostics = eis.weight_diagnostics(jax.lax.stop_gradient(out.log_weights), settings.antithetic)
         return -extra["value"] / n_periods, (out, diagnostics, jax.lax.stop_gradient(extra))
@@ -58,7 +62,8 @@ def objective(model: Model, settings: eis.EISSettings, y, key, control: ControlS
 
 
 @functools.lru_cache(maxsize=None)
-def compiled_value_and_grad(model: Model, settings: eis.EISSettings, control: ControlSpec = NO_CONTROL):
+def compiled_value_and_grad(model: Model, settings: eis.EISSettings, control: ControlSpec = NO_CONTROL,
+                            restriction: Restriction | None = None):
     """``(u, y, key) -> ((value, aux), gradient)`` of :func:`objective`, compiled once per data shape.
 
     One compiled program serves the optimiser's every evaluation, its line search and the
@@ -68,9 +73,28 @@ def compiled_value_and_grad(model: Model, settings: eis.EISSettings, control: Co
     """
 
     def run(u, y, key):
-        return jax.value_and_grad(objective(model, settings, y, key, control), has_aux=True)(u)
+        return jax.value_and_grad(objective(model, settings, y, key, control, restriction), has_aux=True)(u)
 
     return jax.jit(run)
+
+
+@functools.lru_cache(maxsize=None)
+def compiled_closed_form_objective(restriction: Restriction):
+    """``(u, y) -> (value, gradient)`` of minus the closed-form log-likelihood per observation in
+    the free coordinates (the exact gradient, by JAX).
+
+    The Hessian for the standard errors is taken by central differences of this exact gradient
+    (2k more calls of the same program), not by ``jax.hessian``: compiling the second derivative
+    of the variance scan took 20 s for NIG innovations and 8 s for normal ones at T = 500
+    (against 8 s and 3.5 s for the gradient; cold cache, 2-core machine), and the differences
+    reproduce the published benchmark standard errors to the digits quoted.
+    """
+    loglik = compiled_closed_form(restriction.model)
+
+    def negative(u, y):
+        return -loglik(restriction.natural(u), y) / y.shape[0]
+
+    return jax.jit(jax.value_and_grad(negative))
 
 
 @functools.lru_cache(maxsize=None)
@@ -173,8 +197,11 @@ def fit(
     n_score_draws: int | None = None,
     control_variates: str | None = None,
     cv_coefficient="regression",
+    fixed: Mapping[str, float] | None = None,
 ) -> FitResult:
-    """Estimate a model by simulated maximum likelihood (EIS).
+    """Estimate a model by simulated maximum likelihood (EIS), or by exact maximum likelihood for a
+    model without a latent state (``state_dim == 0``: closed form, JAX gradients and Hessian; the
+    EIS settings are then not used).
 
     Args:
       model: registered model name or instance.
@@ -194,6 +221,10 @@ def fit(
       n_score_draws: paths of the EIS scoring set, if not ``n_draws``.
       control_variates, cv_coefficient: maximise the control-variate corrected log-likelihood
         (see :func:`smle.loglik`); "independent" about doubles the cost of an evaluation.
+        Not used by a model without a latent state (nor are the other EIS settings).
+      fixed: parameters held at given values, e.g. ``{"ar1": 0.0, "rho": 0.0}`` (each strictly
+        inside its admissible region); the others are estimated, and standard errors, intervals
+        and the number of parameters in AIC and BIC are those of the free ones.
 
     Returns:
       A :class:`~smle.results.FitResult`.
@@ -201,36 +232,42 @@ def fit(
     model = get_model(model)
     y = check_fit_data(model, y)
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
-    control = check_control(model, control_variates, cv_coefficient)
+    control = check_control(model, control_variates, cv_coefficient) if model.state_dim else NO_CONTROL
     n_seeds = check_integer("n_seeds", n_seeds, 1)
     if not (isinstance(level, float) and 0.5 <= level < 1):
         raise SmleInputError(f"level = {level!r} is not accepted; accepted: a number in [0.5, 1)")
     max_steps = check_integer("max_steps", max_steps, 1)
-    if start is None:
-        start_params = model.start_params(y)
-    else:
-        try:
-            start_params = checked_params(model, start)
-        except SmleInputError as error:
-            raise SmleInputError(f"start values: {error}") from None
+    restriction = Restriction.of(model, check_fixed(model, fixed))
+    start_params = _start_values(model, start, y)
     key = as_key(seed)
     y_jax = jnp.asarray(y)
     started = time.perf_counter()
+    if model.state_dim == 0:
+        return _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbose, started)
     if verbose:
-        print(f"fitting '{model.name}' to {y.shape[0]} periods with {settings.n_draws} EIS draws "
-              "(the first call compiles; later calls of this shape reuse the program)", file=sys.stderr, flush=True)
-    first = _fit_one(model, settings, control, y_jax, key, start_params, max_steps, gtol, verbose)
+        print(f"fitting '{model.name}' to {y.shape[0]} periods with {settings.n_draws} EIS draws (the first call "
+              "compiles; later calls of this shape reuse the program)", file=sys.stderr, flush=True)
+    first = _fit_one(restriction, settings, control, y_jax, key, start_params, max_steps, gtol, verbose)
     extra = []
     for offset in range(1, n_seeds):
         if verbose:
             print(f"refit with seed {seed + offset} ({offset + 1}/{n_seeds})", file=sys.stderr, flush=True)
-        extra.append(_fit_one(model, settings, control, y_jax, as_key(seed + offset), start_params, max_steps, gtol,
-                              False))
-    return _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started)
+        extra.append(_fit_one(restriction, settings, control, y_jax, as_key(seed + offset), start_params, max_steps,
+                              gtol, False))
+    return _assemble(restriction, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started)
 
 
-def _evaluator(model, settings, control, y, key):
-    compiled = compiled_value_and_grad(model, settings, control)
+def _start_values(model, start, y) -> dict:
+    if start is None:
+        return model.start_params(y)
+    try:
+        return checked_params(model, start)
+    except SmleInputError as error:
+        raise SmleInputError(f"start values: {error}") from None
+
+
+def _evaluator(restriction, settings, control, y, key):
+    compiled = compiled_value_and_grad(restriction.model, settings, control, restriction)
 
     def evaluate(u):
         (value, aux), grad = compiled(jnp.asarray(u), y, key)
@@ -239,22 +276,65 @@ def _evaluator(model, settings, control, y, key):
     return evaluate
 
 
-def _fit_one(model, settings, control, y, key, start_params, max_steps, gtol, verbose):
-    u0 = jnp.asarray(model.to_real(start_params))
-    return _lbfgs(_evaluator(model, settings, control, y, key), u0, int(max_steps), float(gtol), verbose)
+def _fit_one(restriction, settings, control, y, key, start_params, max_steps, gtol, verbose):
+    u0 = restriction.free_start(start_params)
+    return _lbfgs(_evaluator(restriction, settings, control, y, key), u0, int(max_steps), float(gtol), verbose)
 
 
-def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started):
-    names = model.param_names
-    n_periods = y.shape[0]
+def _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbose, started):
+    """Exact maximum likelihood of a model without a latent state: L-BFGS on the closed form,
+    standard errors from its Hessian (central differences of the exact gradient)."""
+    model = restriction.model
+    value_and_grad = compiled_closed_form_objective(restriction)
+    y_jax = jnp.asarray(y)
+
+    def evaluate(u):
+        value, grad = value_and_grad(jnp.asarray(u), y_jax)
+        return value, None, grad
+
+    if verbose:
+        print(f"fitting '{model.name}' to {y.shape[0]} periods by its closed-form likelihood", file=sys.stderr)
+    first = _lbfgs(evaluate, restriction.free_start(start_params), int(max_steps), float(gtol), verbose)
+    hessian = _hessian(evaluate, first["u"], y.shape[0])
+    params, covariance, std_errors, conf_int, converged, message = _estimates(restriction, first, hessian, level)
+    loglik = -first["value"] * y.shape[0]
+    path = np.asarray(_compiled_factor_path(model)({n: jnp.asarray(v) for n, v in params.items()}, y_jax))
+    k = len(restriction.free_names)
+    return FitResult(
+        model=model.name, model_options=model_options(model), param_names=list(model.param_names), params=params,
+        std_errors=std_errors, conf_int=conf_int, level=level, covariance=covariance, loglik=loglik, nse=0.0,
+        n_obs=y.shape[0], aic=-2 * loglik + 2 * k, bic=-2 * loglik + k * math.log(y.shape[0]),
+        converged=bool(converged), message=message, iterations=first["steps"], n_evaluations=first["evaluations"] + 2 * k,
+        grad_norm=first["grad_norm"], elapsed_seconds=time.perf_counter() - started, start=dict(start_params),
+        eis={"method": "closed form"}, factor_name=model.factor_name, smoothed_mean=path, smoothed_lower=path,
+        smoothed_upper=path, log_weights=np.zeros(0), observations=np.array(y, dtype=float),
+        fixed=restriction.fixed_values,
+    )
+
+
+@functools.lru_cache(maxsize=None)
+def _compiled_factor_path(model):
+    return jax.jit(model.factor_path)
+
+
+def _estimates(restriction, first, hessian, level):
+    """``(params, covariance, std_errors, conf_int, converged, message)`` at the optimiser's end."""
     u = first["u"]
-    params = {n: float(v) for n, v in model.from_real(jnp.asarray(u)).items()}
+    params = {n: float(v) for n, v in compiled_natural(restriction)(jnp.asarray(u)).items()}
     converged, message = _convergence(first)
-    hessian = _hessian(_evaluator(model, settings, control, y_jax, key), u, n_periods)
-    covariance, std_errors, conf_int, problem = _standard_errors(model, u, params, hessian, level)
+    covariance, std_errors, conf_int, problem = standard_errors(restriction, u, params, hessian, level)
     if problem:
         converged = False
         message += problem
+    return params, covariance, std_errors, conf_int, converged, message
+
+
+def _assemble(restriction, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started):
+    model = restriction.model
+    names = model.param_names
+    n_periods = y.shape[0]
+    hessian = _hessian(_evaluator(restriction, settings, control, y_jax, key), first["u"], n_periods)
+    params, covariance, std_errors, conf_int, converged, message = _estimates(restriction, first, hessian, level)
 
     out, diagnostics, cv_extra = first["aux"]
     log_weights = np.asarray(out.log_weights)
@@ -263,13 +343,13 @@ def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start
     lower, upper = np.asarray(path_quantiles(out.paths, weights, (0.05, 0.95)))
     loglik = float(cv_extra["value"])
     facts = control_facts(control, settings.antithetic, out, diagnostics["nse"], cv_extra)
-    k = len(names)
+    k = len(restriction.free_names)
 
     simulation_std_errors = None
     seed_estimates = None
     if extra:
         seed_estimates = [params] + [
-            {n: float(v) for n, v in model.from_real(jnp.asarray(e["u"])).items()} for e in extra
+            {n: float(v) for n, v in restriction.natural(jnp.asarray(e["u"])).items()} for e in extra
         ]
         simulation_std_errors = {n: float(np.std([s[n] for s in seed_estimates], ddof=1)) for n in names}
 
@@ -315,6 +395,7 @@ def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start
         simulation_std_errors=simulation_std_errors,
         seed_estimates=seed_estimates,
         observations=np.array(y, dtype=float),
+        fixed=restriction.fixed_values,
     )
 
 
@@ -326,46 +407,6 @@ def _convergence(first) -> tuple[bool, str]:
         return False, (f"not converged: the line search made no progress (max|grad| = {first['grad_norm']:.2e}, "
                        f"tolerance {first['gtol']:.0e}); try other start values or more draws")
     return False, f"not converged: reached max_steps = {first['max_steps']} (max|grad| = {first['grad_norm']:.2e})"
-
-
-def _standard_errors(model, u, params, hessian, level):
-    """``(covariance, std_errors, conf_int, problem)`` from the Hessian of minus the log-likelihood
-    on the unconstrained scale, mapped by the delta method; ``problem`` is "" or why there are none."""
-    names = model.param_names
-    jacobian = np.asarray(jax.jacfwd(lambda v: jnp.stack(list(model.from_real(v).values())))(jnp.asarray(u)))
-    finite = bool(np.all(np.isfinite(hessian)))
-    eigenvalues = np.linalg.eigvalsh(hessian) if finite else np.full(len(names), np.nan)
-    z = float(ndtri(0.5 + level / 2))
-    if finite and np.all(eigenvalues > 0):
-        cov_u = np.linalg.inv(hessian)
-        covariance = jacobian @ cov_u @ jacobian.T
-        se_u = np.sqrt(np.diag(cov_u))
-        std_errors = dict(zip(names, np.sqrt(np.diag(covariance)).tolist()))
-        conf_int = {}
-        elementwise = np.allclose(jacobian, np.diag(np.diag(jacobian)), rtol=0, atol=1e-12 * np.abs(jacobian).max())
-        for i, n in enumerate(names):
-            if elementwise:
-                # built on the unconstrained scale and mapped back: stays inside the region
-                bounds = []
-                for sign in (-1.0, 1.0):
-                    shifted = u.copy()
-                    shifted[i] += sign * z * se_u[i]
-                    bounds.append(float(model.from_real(jnp.asarray(shifted))[n]))
-            else:
-                # a joint bijection (GARCH stationarity): delta-method interval in the parameter
-                bounds = [params[n] - z * std_errors[n], params[n] + z * std_errors[n]]
-            conf_int[n] = (min(bounds), max(bounds))
-    else:
-        covariance = np.full((len(names), len(names)), np.nan)
-        std_errors = {n: math.nan for n in names}
-        conf_int = {n: (math.nan, math.nan) for n in names}
-        if finite:
-            return covariance, std_errors, conf_int, (
-                "; the Hessian is not positive definite (no standard errors): the optimum is not a strict maximum")
-        return covariance, std_errors, conf_int, (
-            "; the Hessian is not finite (no standard errors): the likelihood could not be evaluated "
-            "near the estimate, which often means a parameter is at the edge of its region")
-    return covariance, std_errors, conf_int, ""
 
 
 def _control_entries(facts) -> dict:

@@ -17,7 +17,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from smle.engine.control import control_facts
-from smle.engine.methods import compiled_eis
+from smle.engine.methods import compiled_closed_form, compiled_eis
 from smle.models import get_model
 from smle.validation import (
     as_key, check_control, check_integer, check_settings, checked_inputs, checked_params, jax_params,
@@ -48,6 +48,8 @@ class LoglikResult:
       cv_coefficients: the control-variate coefficients by name ("independent", "draws_he2", ...).
       independent_error: with the independent control, the EIS estimate at the independent
         parameters minus its exact value, with the same random numbers (the error corrected for).
+      method: how ``value`` was computed: "EIS", or "closed form" for a model without a latent
+        state (then ``nse`` is 0, no draws were made and the draw fields are empty).
     """
 
     value: float
@@ -70,6 +72,7 @@ class LoglikResult:
     nse_uncorrected: float | None = None
     cv_coefficients: dict | None = None
     independent_error: float | None = None
+    method: str = "EIS"
 
     @property
     def value_bias_corrected(self) -> float:
@@ -82,6 +85,8 @@ class LoglikResult:
         return self.paths @ (w / w.sum())
 
     def __repr__(self) -> str:
+        if self.method == "closed form":
+            return f"LoglikResult(value={self.value:.4f}, nse=0, method='closed form')"
         flag = "converged" if self.converged else "NOT converged"
         control = f", control_variates={self.control_variates!r}" if self.control_variates else ""
         return (
@@ -128,6 +133,10 @@ def loglik(
         independent case's error as it is, which at rho = 0.9 made the variance 7 times larger.
         (A regression of the weights themselves, not their logs, is thrown off by heavy tails.)
 
+    A model without a latent state (``state_dim == 0``, e.g. ``garch``) has its likelihood in
+    closed form: the result is exact (``method`` "closed form", ``nse`` 0) and the EIS settings
+    are not used.
+
     Returns:
       A :class:`LoglikResult`.
 
@@ -135,6 +144,8 @@ def loglik(
       Richard and Zhang (2007), J. Econometrics 141; Durbin and Koopman (1997), Biometrika 84.
     """
     model, checked, y = checked_inputs(model, params, y)
+    if model.state_dim == 0:
+        return _closed_form_loglik(model, checked, y)
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
     control = check_control(model, control_variates, cv_coefficient)
     key = as_key(seed)
@@ -164,6 +175,18 @@ def loglik(
         n_score_draws=settings.score_draws,
         **(facts._asdict() if facts is not None else {}),
     )
+
+
+def _closed_form_loglik(model, checked, y) -> LoglikResult:
+    """The exact log-likelihood of a model without a latent state, as a :class:`LoglikResult`."""
+    value = float(compiled_closed_form(model)(jax_params(checked), jnp.asarray(y)))
+    if not math.isfinite(value):
+        raise FloatingPointError(f"the closed-form log-likelihood of model '{model.name}' is not finite at "
+                                 f"params={checked} (check the data scale, e.g. returns in percent)")
+    empty = np.zeros(0)
+    return LoglikResult(value=value, nse=0.0, ess=math.nan, iterations=0, converged=True, last_change=0.0,
+                        n_draws=0, antithetic=False, seed=-1, log_weights=empty, paths=np.zeros((y.shape[0], 0)),
+                        b_obs=empty, c_obs=empty, r_squared=empty, method="closed form")
 
 
 def simulate(model, params: Mapping[str, float], n_periods: int, seed=0):

@@ -46,6 +46,12 @@ class FitResult:
         across independent random numbers and the estimates themselves.
       observations: the data the model was fitted to, shape (T,) or (T, n_series), or None
         (stored in the JSON so that a saved result can be diagnosed on its own).
+      fixed: parameters held at given values in a restricted fit, by name (empty or None: none);
+        their standard errors and intervals are NaN, their covariance rows zero.
+
+    A model without a latent state is fitted by its closed-form likelihood: ``eis`` is then
+    ``{"method": "closed form"}``, ``nse`` 0, the smoothed path is the model's
+    ``factor_path`` (e.g. sqrt(h_t)), its band collapsed onto it, and ``log_weights`` empty.
     """
 
     model: str
@@ -77,6 +83,7 @@ class FitResult:
     simulation_std_errors: dict | None = None
     seed_estimates: list | None = None
     observations: np.ndarray | None = None
+    fixed: dict | None = None
 
     @property
     def loglik_bias_corrected(self) -> float:
@@ -139,29 +146,38 @@ class FitResult:
             + (f"{'sim.err':>10}" if self.simulation_std_errors else "")
             + f"   {int(round(self.level * 100))}% interval",
         ]
+        fixed = self.fixed or {}
         for name in self.param_names:
             lo, hi = self.conf_int[name]
+            if name in fixed:
+                lines.append(f"{name:<12}{self.params[name]:>12.5f}{'fixed':>11}")
+                continue
             row = f"{name:<12}{self.params[name]:>12.5f}{self.std_errors[name]:>11.5f}"
             if self.simulation_std_errors:
                 row += f"{self.simulation_std_errors[name]:>10.5f}"
             row += f"   [{lo:.5f}, {hi:.5f}]"
             lines.append(row)
+        lines += [rule, *self._likelihood_lines(), rule, CAUTION]
+        return "\n".join(lines)
+
+    def _likelihood_lines(self) -> list[str]:
         eis = self.eis
-        lines += [
-            rule,
+        closed = eis.get("method") == "closed form"
+        free = len(self.param_names) - len(self.fixed or {})
+        lines = [
+            f"log-likelihood {self.loglik:.4f}   (closed form: exact, no simulation error)" if closed else
             f"log-likelihood {self.loglik:.4f}   NSE {self.nse:.4f}   bias-corrected {self.loglik_bias_corrected:.4f}",
-            f"AIC {self.aic:.3f}   BIC {self.bic:.3f}",
+            f"AIC {self.aic:.3f}   BIC {self.bic:.3f}   ({free} free parameters"
+            + (f", {len(self.fixed)} fixed)" if self.fixed else ")"),
             f"optimiser: {self.message}",
             f"  {self.iterations} L-BFGS steps, {self.n_evaluations} evaluations, max|grad| {self.grad_norm:.1e}, "
             f"{self.elapsed_seconds:.2f} s",
-            f"EIS at the estimate: {eis['n_draws']} draws{' (antithetic)' if eis['antithetic'] else ''}, "
-            f"seed {eis['seed']}, {eis['iterations']} iterations, ESS {eis['ess']:.1f}, "
-            f"min R^2 {eis['min_r_squared']:.3f}",
-            *_control_lines(eis),
-            rule,
-            CAUTION,
         ]
-        return "\n".join(lines)
+        if not closed:
+            lines.append(f"EIS at the estimate: {eis['n_draws']} draws{' (antithetic)' if eis['antithetic'] else ''}, "
+                         f"seed {eis['seed']}, {eis['iterations']} iterations, ESS {eis['ess']:.1f}, "
+                         f"min R^2 {eis['min_r_squared']:.3f}")
+        return lines + _control_lines(eis)
 
     def __str__(self) -> str:
         return self.summary()

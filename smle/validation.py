@@ -83,7 +83,15 @@ def check_settings(n_draws, antithetic, tol, max_iter, n_score_draws=None) -> ei
 
 
 def check_control(model: Model, control_variates, cv_coefficient="regression") -> ControlSpec:
-    """Validate the control-variate choice for ``model`` and return a :class:`ControlSpec`."""
+    """Validate the control-variate choice for ``model`` and return a :class:`ControlSpec`.
+
+    Every simulated-likelihood entry point calls this, so a model without a latent state (whose
+    likelihood is exact) is turned away here with the reason."""
+    if model.state_dim == 0:
+        raise SmleInputError(
+            f"model '{model.name}' has no latent state: its likelihood is exact (closed form), so there is no "
+            "simulation and no simulation error to measure, check or reduce; use smle.loglik or smle.fit"
+        )
     if control_variates not in CONTROL_VARIATES:
         raise SmleInputError(
             f"control_variates = {control_variates!r} is not accepted; accepted: "

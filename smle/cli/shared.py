@@ -76,3 +76,69 @@ def add_column_options(parser, which: str = "") -> None:
                         help=f"the column {which}holds prices: convert to percent log returns")
     parser.add_argument("--drop-missing", action="store_true",
                         help=f"drop rows {which}with a missing value instead of failing")
+
+
+def _scalar(text: str):
+    """A model option's value from text: true/false, an integer, a number, else the text."""
+    lowered = text.strip().lower()
+    if lowered in ("true", "false"):
+        return lowered == "true"
+    for kind in (int, float):
+        try:
+            return kind(text)
+        except ValueError:
+            pass
+    return text.strip()
+
+
+def _pairs(text: str, what: str, example: str) -> list[tuple[str, str]]:
+    pairs = []
+    for item in filter(None, (part.strip() for part in text.split(","))):
+        name, sep, value = item.partition("=")
+        if not sep or not name.strip() or not value.strip():
+            raise SmleInputError(f"{what} item {item!r} is not accepted; accepted: name=value, e.g. {example}")
+        pairs.append((name.strip(), value.strip()))
+    return pairs
+
+
+def parse_fixed(items) -> dict[str, float]:
+    """``--fix NAME=VALUE`` items (repeatable; each may hold several, comma-separated) as a mapping."""
+    fixed = {}
+    for text in items or []:
+        for name, value in _pairs(text, "--fix", "--fix ar1=0"):
+            try:
+                fixed[name] = float(value)
+            except ValueError:
+                raise SmleInputError(f"--fix {name}={value!r}: the value is not a number; accepted: e.g. "
+                                     "--fix ar1=0") from None
+    return fixed
+
+
+def parse_model_spec(text: str, fixed=None):
+    """``NAME[:key=value,...]`` as ``(model, fixed)``: keys naming a parameter of the model hold it
+    at the value (as ``--fix``), the other keys are model options (e.g. ``garch:innovations=t,ar1=0``).
+    ``fixed`` (from ``--fix``) adds the values of the model's parameters among its names."""
+    import smle
+
+    name, _, rest = text.partition(":")
+    pairs = _pairs(rest, f"--model {text!r}", "garch:innovations=t,ar1=0")
+    bare = smle.get_model(name.strip())
+    params = set(bare.param_names)
+    options = {k: _scalar(v) for k, v in pairs if k not in params}
+    model = smle.get_model(name.strip(), **options)
+    held = {k: v for k, v in (fixed or {}).items() if k in model.param_names}
+    for k, v in pairs:
+        if k in params:
+            try:
+                held[k] = float(v)
+            except ValueError:
+                raise SmleInputError(f"--model {text!r}: {k}={v!r} is not a number (a parameter is held at a "
+                                     "number)") from None
+    return model, held
+
+
+def add_fix_option(parser) -> None:
+    """``--fix NAME=VALUE`` (repeatable): parameters held at given values during the fit."""
+    parser.add_argument("--fix", action="append", default=[], metavar="NAME=VALUE",
+                        help="hold a parameter at a value while the others are estimated, e.g. --fix ar1=0 "
+                             "(repeatable; a name the model does not have is an error for fit, skipped by compare)")

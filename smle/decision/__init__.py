@@ -1,6 +1,9 @@
-"""From forecasts to decisions: tests of value-at-risk hit sequences and of forecast scores.
+"""From fits and forecasts to decisions: model comparison, tests of value-at-risk hit sequences
+and of forecast scores.
 
-This package depends on NumPy and SciPy only.
+* :mod:`smle.decision.compare`: several models fitted to the same data, one table with
+  log-likelihoods, AIC/BIC and likelihood-ratio tests of nested pairs (:func:`compare`;
+  its text and figure in :mod:`smle.decision.compare_report`).
 
 * :mod:`smle.decision.coverage`: Kupiec's (1995) unconditional coverage test, Christoffersen's
   (1998) independence and conditional coverage tests of a hit sequence.
@@ -20,8 +23,13 @@ from smle.decision.coverage import (
     kupiec_unconditional_coverage,
 )
 from smle.decision.scores import DieboldMarianoTest, diebold_mariano
+from smle.decision.compare import Comparison, ModelSpec, NestedTest, compare
 
 __all__ = [
+    "Comparison",
+    "ModelSpec",
+    "NestedTest",
+    "compare",
     "ConditionalCoverageTest",
     "CoverageTest",
     "DieboldMarianoTest",

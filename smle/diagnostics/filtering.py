@@ -82,6 +82,12 @@ class FilterOutput(NamedTuple):
     resampled: jax.Array
 
 
+def no_state_message(model: Model) -> str:
+    """Why a model without a latent state has nothing to filter, and where its PITs are."""
+    return (f"model '{model.name}' has no latent state to filter (state_dim = 0); its one-step predictive "
+            "densities and PITs are exact: model.log_predictive(params, y) and model.predictive_cdf(params, y)")
+
+
 def has_obs_cdf(model: Model) -> bool:
     """Whether the model supplies its conditional CDF (needed for PITs)."""
     return type(model).obs_cdf is not Model.obs_cdf
@@ -263,6 +269,8 @@ def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000
       International Economic Review 39 (PITs of one-step predictive densities).
     """
     model, checked, y = checked_inputs(model, params, y)
+    if model.state_dim == 0:
+        raise SmleInputError(no_state_message(model))
     n_particles, resample_threshold = check_filter_settings(n_particles, resample_threshold)
     key = as_key(seed)
     out = compiled_filter(model, n_particles)(jax_params(checked), jnp.asarray(y), key, resample_threshold)

@@ -48,7 +48,9 @@ from smle.errors import SmleInputError, describe
 from smle.diagnostics.residual_tests import (  # noqa: F401 (public names of gof)
     PIT_CLIP, arch_lm, autocorrelations, check_lags, berkowitz_test, durbin_watson, ljung_box, normal_scores, tail_test,
 )
-from smle.diagnostics.filtering import FilterResult, check_filter_settings, filter_factor, has_obs_cdf
+from smle.diagnostics.filtering import (
+    FilterResult, check_filter_settings, filter_factor, has_obs_cdf, no_state_message,
+)
 from smle.validation import check_observations
 from smle.models import get_model
 from smle.results import CAUTION, FitResult
@@ -235,6 +237,8 @@ def diagnose(
             f"y has {y.shape[0]} periods but the fit of model '{result.model}' used {result.n_obs}; "
             "accepted: the observations the model was fitted to"
         )
+    if model.state_dim == 0:
+        raise SmleInputError(no_state_message(model))
     if not has_obs_cdf(model):
         raise SmleInputError(f"model '{model.name}' has no conditional CDF (obs_cdf), so no PITs can be formed")
     check_filter_settings(n_particles, 0.5)

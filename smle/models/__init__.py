@@ -47,6 +47,6 @@ def get_model(name, **options) -> Model:
         raise SmleInputError(f"bad options for model '{name}': {error}") from None
 
 
-from smle.models import ar1_noise, garch_mix, realized_sv, sv, sv_t  # noqa: E402,F401  (registration)
+from smle.models import ar1_noise, garch, garch_mix, realized_sv, sv, sv_t  # noqa: E402,F401  (registration)
 
 __all__ = ["Model", "get_model", "model_names", "register"]

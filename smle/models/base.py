@@ -32,7 +32,14 @@ Optional hooks (each has a default here):
   enabling the independent control variate and :meth:`Model.independent_loglik` (adaptive
   Gauss-Hermite per period, or a model's own closed form);
 * ``obs_cdf(params, data, x)``: the conditional CDF, for PITs (:func:`smle.diagnose`);
-* ``period_data(data, t)``: one period of prepared data, for the particle filter.
+* ``period_data(data, t)``: one period of prepared data, for the particle filter;
+* ``pin(unconstrained, fixed)``: the unconstrained vector with fixed parameters held at their
+  values (restricted fits; a model with a joint bijection overrides it).
+
+A model without a latent state (``state_dim = 0``, e.g. ``garch``) implements instead of the
+state-space methods ``loglik_closed_form(params, y)`` (the exact log-likelihood, pure JAX),
+``log_predictive(params, y)`` and ``predictive_cdf(params, y)`` (per period, shape (T,)), and
+``factor_path(params, y)``: the path a fit reports in place of a smoothed factor.
 
 The engine knows nothing about any particular model.
 """
@@ -150,6 +157,21 @@ class Model:
     def from_real(self, unconstrained: jax.Array) -> dict:
         """Unconstrained vector -> natural parameters (inverse of :meth:`to_real`)."""
         return {n: c.from_real(unconstrained[i]) for i, (n, c) in enumerate(self.constraints().items())}
+
+    def pin(self, unconstrained: jax.Array, fixed: Mapping[str, float]) -> jax.Array:
+        """``unconstrained`` with the coordinates of the ``fixed`` parameters set so that
+        :meth:`from_real` returns their values, whatever the other coordinates are.
+
+        With per-parameter bijections each fixed parameter is its own coordinate. A model whose
+        bijection is joint overrides this (``garch-mix``: fixing alpha leaves beta the room
+        1 - alpha). The free coordinates then range over the whole real line and map onto the
+        admissible region of the free parameters given the fixed ones (a restricted fit).
+        """
+        names = list(self.constraints())
+        for n, value in fixed.items():
+            constraint = self.constraints()[n]
+            unconstrained = unconstrained.at[names.index(n)].set(constraint.to_real(jnp.asarray(value, float)))
+        return unconstrained
 
     # -- conveniences ------------------------------------------------------------------------
     @property

@@ -174,6 +174,7 @@ class Garch(Model):
     check_joint = GarchMix.check_joint
     to_real = GarchMix.to_real
     from_real = GarchMix.from_real
+    pin = GarchMix.pin
 
     # -- the state-space hooks do not apply --------------------------------------------------
     def latent(self, params):
@@ -233,6 +234,10 @@ class Garch(Model):
         scale = jnp.sqrt(variance) / self._nig_scale(params)  # e_t = scale * Y_t, Y_t NIG as in the docstring
         return nig_log_density(residual, jnp.sqrt(shape + gamma**2) / scale, gamma / scale, -gamma * scale,
                                jnp.sqrt(shape) * scale)
+
+    def factor_path(self, params, data) -> jax.Array:
+        """The conditional standard deviations sqrt(h_t), shape (T,): what a fit reports as its path."""
+        return jnp.sqrt(self.garch_path(params, data).variance)
 
     def loglik_closed_form(self, params, data) -> jax.Array:
         """The exact log-likelihood sum_t log p(r_t | past), a scalar (pure JAX, differentiable)."""

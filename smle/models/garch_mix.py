@@ -67,6 +67,10 @@ from smle.distributions import inverse_gaussian_log_density, nig_log_density, no
 from smle.errors import SmleInputError
 from smle.models import register
 from smle.models.base import Model
+from smle.models.measurements import (
+    MEASUREMENT_LABELS, check_measurement, measurement_cdf, measurement_constraints, measurement_log_density,
+    measurement_start, simulate_measurement,
+)
 from smle.models.realized_sv import check_realized_column
 
 LOG_2PI = float(np.log(2 * np.pi))
@@ -125,12 +129,20 @@ class GarchMix(Model):
       realized: add the log realized-measure equation (then y has shape (T, 2): return,
         realized measure in levels).
       n_nodes, x_max: the grid of the ig link's interpolant of log W (see the module docstring).
+      measurement: with ``realized``, the second series' equation given the day's variance
+        h_t W_t (:mod:`smle.models.measurements`): "lognormal" (the default, above), "gamma" (a
+        realized variance from ``n_intraday`` intraday returns) or "log-range" (the day's
+        high-low range of log prices in the unit of the returns; from ``smle prepare``,
+        sqrt(4 ln 2 parkinson_pct2)).
+      n_intraday: M, intraday returns per day in the realized variance (gamma only).
     """
 
     link: str = "ig"
     realized: bool = False
     n_nodes: int = 361
     x_max: float = 9.0
+    measurement: str = "lognormal"
+    n_intraday: int = 78
 
     name = "garch-mix"
     summary = "AR(1)-GARCH(1,1) scale times a persistent unit-mean latent mixing factor (skewed normal mixture)"
@@ -151,8 +163,10 @@ class GarchMix(Model):
             raise SmleInputError(f"n_nodes = {self.n_nodes!r} is not accepted; accepted: an integer >= 50")
         if not (isinstance(self.x_max, (int, float)) and 5.0 <= self.x_max <= 30.0):
             raise SmleInputError(f"x_max = {self.x_max!r} is not accepted; accepted: a number in [5, 30]")
+        check_measurement(self.name, self.measurement, self.n_intraday)
         # n_series is a class attribute elsewhere; here it follows the option
         object.__setattr__(self, "n_series", 2 if self.realized else 1)
+        object.__setattr__(self, "series_labels", ("return", MEASUREMENT_LABELS[self.measurement]))
 
     # -- parameters --------------------------------------------------------------------------
     def constraints(self):
@@ -170,8 +184,7 @@ class GarchMix(Model):
             out["s"] = P.interval(0.0, 3.0, "scale of log W (Var W = exp(s^2) - 1)")
         out["rho"] = P.interval(-1.0, 1.0, "autocorrelation of the mixing state")
         if self.realized:
-            out["xi"] = P.real("bias of the log realized measure")
-            out["sigma_u"] = P.positive("noise scale of the log realized measure")
+            out.update(measurement_constraints(self.measurement))
         return out
 
     def check_joint(self, params) -> None:
@@ -205,6 +218,28 @@ class GarchMix(Model):
         for i, (n, c) in enumerate(self.constraints().items()):
             out[n] = shares[0] if n == "alpha" else shares[1] if n == "beta" else c.from_real(unconstrained[i])
         return out
+
+    def pin(self, unconstrained, fixed):
+        """Fixed parameters held in the softmax bijection of (alpha, beta, 1 - alpha - beta).
+
+        With alpha = a fixed, u_alpha = log(a (1 + e^{u_beta}) / (1 - a)) gives alpha = a and
+        beta = (1 - a) e^{u_beta} / (1 + e^{u_beta}): beta ranges over (0, 1 - a) as u_beta ranges
+        over the real line; likewise with beta fixed. Both fixed: their own logits.
+        """
+        names = list(self.constraints())
+        others = {n: v for n, v in fixed.items() if n not in ("alpha", "beta")}
+        u = Model.pin(self, unconstrained, others)
+        pair = {n: jnp.asarray(fixed[n], float) for n in ("alpha", "beta") if n in fixed}
+        if len(pair) == 2:
+            rest = 1.0 - pair["alpha"] - pair["beta"]
+            for n in ("alpha", "beta"):
+                u = u.at[names.index(n)].set(jnp.log(pair[n]) - jnp.log(rest))
+        elif len(pair) == 1:
+            (held, value), = pair.items()
+            other = "beta" if held == "alpha" else "alpha"
+            u = u.at[names.index(held)].set(
+                jnp.log(value) - jnp.log1p(-value) + jnp.logaddexp(0.0, u[names.index(other)]))
+        return u
 
     def latent(self, params):
         return latent.standardised(jnp.asarray(params["rho"], float))
@@ -296,9 +331,8 @@ class GarchMix(Model):
         w = jnp.exp(log_w)
         out = -0.5 * (LOG_2PI + log_h + log_w) + log_c - 0.5 * (scaled - gamma * (w - 1.0)) ** 2 / w
         if self.realized:
-            sigma_u = params["sigma_u"]
-            z = (data.log_measure[:, None] - params["xi"] - log_h - log_w) / sigma_u
-            out = out - 0.5 * (LOG_2PI + z**2) - jnp.log(sigma_u) - data.log_measure[:, None]
+            out = out + measurement_log_density(self.measurement, data.log_measure[:, None], log_h + log_w, params,
+                                                self.n_intraday)
         return out
 
     # -- simulation ----------------------------------------------------------------------------
@@ -323,8 +357,8 @@ class GarchMix(Model):
         _, (r, h) = jax.lax.scan(step, (jnp.zeros_like(h1), h1, True), shocks)
         if not self.realized:
             return r, x
-        log_measure = params["xi"] + jnp.log(h * w) + params["sigma_u"] * jax.random.normal(measure_key, (n_periods,))
-        return jnp.column_stack([r, jnp.exp(log_measure)]), x
+        measure = simulate_measurement(self.measurement, jnp.log(h * w), params, self.n_intraday, measure_key)
+        return jnp.column_stack([r, measure]), x
 
     def start_params(self, y):
         y = np.asarray(y, float)
@@ -339,9 +373,7 @@ class GarchMix(Model):
             out["s"] = 0.5
         out["rho"] = 0.5
         if self.realized:
-            log_measure = np.log(y[:, 1])
-            out["xi"] = float(np.mean(log_measure) - np.log(var))
-            out["sigma_u"] = float(0.5 * np.std(log_measure))
+            out.update(measurement_start(self.measurement, np.log(y[:, 1]), float(np.log(var))))
         return out
 
     # -- the independent-factor case -------------------------------------------------------------
@@ -376,7 +408,8 @@ class GarchMix(Model):
         if not self.realized:
             return return_cdf
         log_h = jnp.log(data.variance)[:, None]
-        measure_cdf = normal_cdf((data.log_measure[:, None] - params["xi"] - log_h - log_w) / params["sigma_u"])
+        measure_cdf = measurement_cdf(self.measurement, data.log_measure[:, None], log_h + log_w, params,
+                                      self.n_intraday)
         return jnp.stack([return_cdf, measure_cdf], axis=-1)
 
     def period_data(self, data, t):

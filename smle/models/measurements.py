@@ -60,6 +60,15 @@ __all__ = [
     "log_normal_measure_log_density",
     "gamma_measure_log_density",
     "log_range_log_density",
+    "MEASUREMENTS",
+    "check_measurement",
+    "measurement_constraints",
+    "measurement_log_density",
+    "measurement_cdf",
+    "simulate_measurement",
+    "measurement_log_variance_guess",
+    "measurement_start",
+    "range_from_parkinson",
 ]
 
 _LOG_2PI = math.log(2.0 * math.pi)
@@ -158,3 +167,107 @@ def log_range_log_density(log_range, log_variance, bias=0.0, variance=LOG_RANGE_
     """
     residual = log_range - 0.5 * log_variance - LOG_RANGE_MEAN - bias
     return -0.5 * (_LOG_2PI + jnp.log(variance) + residual * residual / variance)
+
+
+# -- the measurement equation as a model option -------------------------------------------------
+# ``realized-sv`` and ``garch-mix`` take ``measurement`` = one of MEASUREMENTS for their second
+# observed series, always given in levels (positive): a realized measure, a realized variance
+# from M intraday returns, or the day's high-low range of log prices in the unit of the returns.
+# The likelihood is that of the series as given (levels): the log-normal and log-range
+# densities carry the Jacobian -log y of the log transform.
+
+MEASUREMENTS = ("lognormal", "gamma", "log-range")
+MEASUREMENT_LABELS = {"lognormal": "realized measure", "gamma": "realized variance", "log-range": "high-low range"}
+
+
+def check_measurement(model_name: str, measurement, n_intraday) -> None:
+    """Raise :class:`SmleInputError` for an unknown measurement or a bad number of intraday returns."""
+    from smle.errors import SmleInputError
+
+    if measurement not in MEASUREMENTS:
+        raise SmleInputError(f"measurement = {measurement!r} is not accepted by model '{model_name}'; accepted: "
+                             f"{', '.join(map(repr, MEASUREMENTS))}")
+    if isinstance(n_intraday, bool) or not isinstance(n_intraday, int) or n_intraday < 1:
+        raise SmleInputError(f"n_intraday = {n_intraday!r} is not accepted; accepted: an integer >= 1 (the number "
+                             "of intraday returns summed into the realized variance, e.g. 78 five-minute returns)")
+
+
+def measurement_constraints(measurement: str) -> dict:
+    """The parameters of the measurement equation: ``xi`` (bias) and, but for gamma, ``sigma_u``."""
+    from smle import params as P
+
+    if measurement == "gamma":
+        return {"xi": P.positive("multiplicative bias of the realized variance, E[RV | h] = xi exp(h)")}
+    if measurement == "log-range":
+        return {"xi": P.real("shift of the mean log range (0 for a continuously observed Brownian day)"),
+                "sigma_u": P.positive("standard deviation of the log range given the variance (Brownian: 0.287)")}
+    return {"xi": P.real("bias of the log realized measure"),
+            "sigma_u": P.positive("noise scale of the log realized measure")}
+
+
+def measurement_log_density(measurement: str, log_measure, log_variance, params, n_intraday: int):
+    """log p(y_t | h_t) of the second series in levels, from its log ``log_measure``; broadcast."""
+    xi = params["xi"]
+    if measurement == "gamma":
+        return gamma_measure_log_density(jnp.exp(log_measure), log_variance, xi, n_intraday)
+    if measurement == "log-range":
+        return log_range_log_density(log_measure, log_variance, xi, params["sigma_u"] ** 2) - log_measure
+    return log_normal_measure_log_density(jnp.exp(log_measure), log_variance, xi, params["sigma_u"])
+
+
+def measurement_cdf(measurement: str, log_measure, log_variance, params, n_intraday: int):
+    """F(y_t | h_t) of the second series (for PITs); broadcast."""
+    from jax.scipy.special import gammainc
+
+    from smle.distributions import normal_cdf
+
+    if measurement == "gamma":
+        shape = 0.5 * n_intraday
+        return gammainc(shape, jnp.exp(log_measure - jnp.log(params["xi"]) - log_variance) * shape)
+    if measurement == "log-range":
+        mean = 0.5 * log_variance + LOG_RANGE_MEAN + params["xi"]
+        return normal_cdf((log_measure - mean) / params["sigma_u"])
+    return normal_cdf((log_measure - params["xi"] - log_variance) / params["sigma_u"])
+
+
+def simulate_measurement(measurement: str, log_variance, params, n_intraday: int, key):
+    """The second series in levels given log variances (T,), drawn from its measurement law."""
+    import jax
+
+    xi = params["xi"]
+    if measurement == "gamma":
+        shape = 0.5 * n_intraday
+        return jax.random.gamma(key, shape, jnp.shape(log_variance)) * xi * jnp.exp(log_variance) / shape
+    noise = jax.random.normal(key, jnp.shape(log_variance))
+    if measurement == "log-range":
+        return jnp.exp(0.5 * log_variance + LOG_RANGE_MEAN + xi + params["sigma_u"] * noise)
+    return jnp.exp(xi + log_variance + params["sigma_u"] * noise)
+
+
+def measurement_log_variance_guess(measurement: str, log_measure, params):
+    """h_t suggested by the second series alone (a start for the posterior mode)."""
+    if measurement == "gamma":
+        return log_measure - jnp.log(params["xi"])
+    if measurement == "log-range":
+        return 2.0 * (log_measure - LOG_RANGE_MEAN - params["xi"])
+    return log_measure - params["xi"]
+
+
+def measurement_start(measurement: str, log_measure: np.ndarray, log_variance: float) -> dict:
+    """Start values of the measurement parameters, from the log series and a typical log variance."""
+    if measurement == "gamma":
+        return {"xi": float(np.exp(np.mean(log_measure) - log_variance))}
+    if measurement == "log-range":
+        return {"xi": float(np.mean(log_measure) - 0.5 * log_variance - LOG_RANGE_MEAN),
+                "sigma_u": float(np.sqrt(LOG_RANGE_VARIANCE))}
+    return {"xi": float(np.mean(log_measure) - log_variance), "sigma_u": float(0.5 * np.std(log_measure))}
+
+
+def range_from_parkinson(parkinson) -> np.ndarray:
+    """The high-low range of log prices from the Parkinson variance of ``smle prepare``.
+
+    ``smle prepare`` writes ``parkinson_pct2`` = (ln high - ln low)^2 / (4 ln 2) over the
+    session, in percent squared; the range in percent (the unit of ``return_pct``) is
+    sqrt(4 ln 2 parkinson_pct2). That is the series the "log-range" measurement takes.
+    """
+    return np.sqrt(4.0 * math.log(2.0) * np.asarray(parkinson, dtype=float))

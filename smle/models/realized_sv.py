@@ -15,6 +15,11 @@ estimate of the log variance (negative when the measure misses the overnight par
 log-likelihood is that of the data as given, ``(r_t, RM_t)``: it includes the Jacobian
 ``-log RM_t`` of the log transform (a constant in the parameters).
 
+The option ``measurement`` chooses the second series' equation: ``"lognormal"`` (above, the
+default), ``"gamma"`` (a realized variance from ``n_intraday`` intraday returns) or
+``"log-range"`` (the day's high-low range), from :mod:`smle.models.measurements`; the series is
+given in levels in every case.
+
 :func:`observations` stacks a return series and a realized-measure series with a check that
 their lengths agree.
 """
@@ -27,10 +32,13 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from smle import params as P
 from smle.engine import latent
 from smle.errors import SmleInputError
 from smle.models import register
+from smle.models.measurements import (
+    MEASUREMENT_LABELS, check_measurement, measurement_cdf, measurement_constraints, measurement_log_density,
+    measurement_log_variance_guess, measurement_start, simulate_measurement,
+)
 from smle.models.sv import LogVarianceState
 
 LOG_2PI = float(np.log(2 * np.pi))
@@ -79,6 +87,22 @@ def check_realized_column(model_name: str, column: np.ndarray, index: int = 1) -
 @register
 @dataclasses.dataclass(frozen=True)
 class RealizedStochasticVolatility(LogVarianceState):
+    """See the module docstring.
+
+    Attributes:
+      measurement: the second series' equation (:mod:`smle.models.measurements`): "lognormal"
+        (log RM_t = xi + x_t + u_t, the default), "gamma" (a realized variance from
+        ``n_intraday`` intraday returns, RV_t | x_t ~ Gamma(M/2, scale 2 xi exp(x_t) / M)) or
+        "log-range" (the day's high-low range of log prices in the unit of the returns,
+        log range_t ~ N(x_t / 2 + E[log R] + xi, sigma_u^2), Alizadeh, Brandt and Diebold 2002;
+        from ``smle prepare``: sqrt(4 ln 2 parkinson_pct2), see
+        :func:`smle.models.measurements.range_from_parkinson`).
+      n_intraday: M, intraday returns per day in the realized variance (gamma only).
+    """
+
+    measurement: str = "lognormal"
+    n_intraday: int = 78
+
     name = "realized-sv"
     summary = "stochastic volatility of returns and a log realized measure with a bias (realized SV)"
     equations = (
@@ -88,12 +112,12 @@ class RealizedStochasticVolatility(LogVarianceState):
     n_series = 2
     series_labels = ("return", "realized measure")
 
+    def __post_init__(self):
+        check_measurement(self.name, self.measurement, self.n_intraday)
+        object.__setattr__(self, "series_labels", ("return", MEASUREMENT_LABELS[self.measurement]))
+
     def constraints(self):
-        return {
-            **self.state_constraints(),
-            "xi": P.real("bias of the log realized measure"),
-            "sigma_u": P.positive("noise scale of the log realized measure"),
-        }
+        return {**self.state_constraints(), **measurement_constraints(self.measurement)}
 
     def check_data(self, y):
         check_realized_column(self.name, y[:, 1])
@@ -105,28 +129,25 @@ class RealizedStochasticVolatility(LogVarianceState):
     def log_obs_density(self, params, data, x):
         returns, log_measure = data
         return_part = -0.5 * (LOG_2PI + x + returns[:, None] ** 2 * jnp.exp(-x))
-        sigma_u = params["sigma_u"]
-        residual = (log_measure[:, None] - params["xi"] - x) / sigma_u
-        measure_part = -0.5 * (LOG_2PI + residual**2) - jnp.log(sigma_u) - log_measure[:, None]
-        return return_part + measure_part
+        return return_part + measurement_log_density(self.measurement, log_measure[:, None], x, params,
+                                                     self.n_intraday)
 
     def mode_guess(self, params, data):
         _, log_measure = data
-        return log_measure - params["xi"]
+        return measurement_log_variance_guess(self.measurement, log_measure, params)
 
     def simulate(self, params, n_periods, key):
         state_key, return_key, measure_key = jax.random.split(key, 3)
         x = latent.sample_path(self.latent(params), state_key, n_periods)
         r = jnp.exp(0.5 * x) * jax.random.normal(return_key, (n_periods,))
-        log_measure = params["xi"] + x + params["sigma_u"] * jax.random.normal(measure_key, (n_periods,))
-        return jnp.column_stack([r, jnp.exp(log_measure)]), x
+        measure = simulate_measurement(self.measurement, x, params, self.n_intraday, measure_key)
+        return jnp.column_stack([r, measure]), x
 
     def start_params(self, y):
         y = np.asarray(y, float)
         log_measure = np.log(y[:, 1])
         mu = float(np.log(np.var(y[:, 0])))
-        return {"mu": mu, "phi": 0.95, "sigma_eta": 0.2,
-                "xi": float(np.mean(log_measure) - mu), "sigma_u": float(0.5 * np.std(log_measure))}
+        return {"mu": mu, "phi": 0.95, "sigma_eta": 0.2, **measurement_start(self.measurement, log_measure, mu)}
 
     def obs_cdf(self, params, data, x):
         """CDFs of the return and of the realized measure given x_t, shape (T, S, 2)."""
@@ -134,5 +155,5 @@ class RealizedStochasticVolatility(LogVarianceState):
 
         returns, log_measure = data
         return_cdf = normal_cdf(returns[:, None] * jnp.exp(-0.5 * x))
-        measure_cdf = normal_cdf((log_measure[:, None] - params["xi"] - x) / params["sigma_u"])
+        measure_cdf = measurement_cdf(self.measurement, log_measure[:, None], x, params, self.n_intraday)
         return jnp.stack([return_cdf, measure_cdf], axis=-1)
