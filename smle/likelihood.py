@@ -146,6 +146,15 @@ def loglik(
     Returns:
       A :class:`LoglikResult`.
 
+    Raises:
+      EISBreakdownError: the run broke down (failed regressions, a non-finite value, collapsed
+        weights with an NSE above :data:`NSE_LIMIT`, or float64 rounding above
+        :data:`ROUNDING_LIMIT`) and a repair with 4 times the draws did not help. Hard regions
+        (measured in experiments/results/eis_robustness.md): sv and sv-t with sigma_eta above
+        about 1.3 and |phi| not near 1 (the state's innovation swamps what one observation says, and
+        the Gaussian kernels fit the skewed per-period posterior badly); data far from zero with
+        a tiny noise scale (price levels with sd 1e-4).
+
     References:
       Richard and Zhang (2007), J. Econometrics 141; Durbin and Koopman (1997), Biometrika 84.
     """
