@@ -18,7 +18,7 @@ import numpy as np
 
 from smle.engine.control import control_facts
 from smle.engine.methods import compiled_eis
-from smle.errors import EISBreakdownError
+from smle.errors import EISBreakdownError, SmleInputError
 from smle.models import get_model
 from smle.validation import (
     as_key, check_control, check_integer, check_settings, checked_inputs, checked_params, jax_params,
@@ -117,6 +117,7 @@ def loglik(
     n_score_draws: int | None = None,
     control_variates: str | None = None,
     cv_coefficient="regression",
+    on_breakdown: str = "raise",
 ) -> LoglikResult:
     """EIS estimate of the log-likelihood of ``model`` at ``params`` on observations ``y``.
 
@@ -142,6 +143,8 @@ def loglik(
         that minimises the variance across seeds (experiments/results/control_variates.md). A number fixes it: 1.0 subtracts the
         independent case's error as it is, which at rho = 0.9 made the variance 7 times larger.
         (A regression of the weights themselves, not their logs, is thrown off by heavy tails.)
+      on_breakdown: "raise" (default: see Raises) or "return": return the run as it is, with its
+        measured NSE, ESS and ``failed_regressions`` (for diagnostics that study broken samplers).
 
     Returns:
       A :class:`LoglikResult`.
@@ -162,7 +165,15 @@ def loglik(
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
     control = check_control(model, control_variates, cv_coefficient)
     key = as_key(seed)
-    out, diagnostics, extra, settings, repairs = _checked_run(model, settings, control, checked, y, key)
+    if on_breakdown not in ("raise", "return"):
+        raise SmleInputError(f"on_breakdown = {on_breakdown!r} is not accepted; accepted: 'raise' or 'return'")
+    if on_breakdown == "return":
+        out, diagnostics, extra = compiled_eis(model, settings, control)(jax_params(checked), jnp.asarray(y), key)
+        repairs = ()
+        if not math.isfinite(float(extra["value"])):
+            raise EISBreakdownError(f"the EIS log-likelihood of model '{model.name}' is not finite at params={checked}")
+    else:
+        out, diagnostics, extra, settings, repairs = _checked_run(model, settings, control, checked, y, key)
     value = float(extra["value"])
     facts = control_facts(control, settings.antithetic, out, honest_nse(diagnostics), extra)
     return LoglikResult(
