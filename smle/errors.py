@@ -11,3 +11,9 @@ def describe(value) -> str:
     """A short printable form of a bad value for error messages."""
     text = repr(value)
     return text if len(text) <= 80 else text[:77] + "..."
+
+
+class EISBreakdownError(FloatingPointError):
+    """The simulated likelihood cannot be trusted at these parameters (a collapsed or failed
+    importance sampler whose error is not measurable), and no repair helped; the message says
+    what was measured."""

@@ -18,6 +18,7 @@ import numpy as np
 
 from smle.engine.control import control_facts
 from smle.engine.methods import compiled_closed_form, compiled_eis
+from smle.errors import EISBreakdownError, SmleInputError
 from smle.models import get_model
 from smle.validation import (
     as_key, check_control, check_integer, check_settings, checked_inputs, checked_params, jax_params,
@@ -30,8 +31,9 @@ class LoglikResult:
 
     Attributes:
       value: EIS estimate of log L (natural log, summed over periods).
-      nse: numerical standard error of ``value`` from this run's weights (delta method; with
-        antithetic draws, over the independent pairs).
+      nse: numerical standard error of ``value`` (see ``nse_method``): the largest of the
+        delta-method, log-normal and between-batch estimates from this run's weights (with
+        antithetic draws, over the independent pairs); with control variates, the corrected NSE.
       ess: effective sample size of the scoring weights, (sum w)^2 / sum w^2.
       iterations: EIS iterations used after the Newton start.
       converged: whether the auxiliary parameters stopped moving within ``tol``.
@@ -50,6 +52,13 @@ class LoglikResult:
         parameters minus its exact value, with the same random numbers (the error corrected for).
       method: how ``value`` was computed: "EIS", or "closed form" for a model without a latent
         state (then ``nse`` is 0, no draws were made and the draw fields are empty).
+      nse_method: how ``nse`` was computed.
+      nse_estimates: the NSE estimates by name ("delta", "lognormal", "batches").
+      log_weight_sd: sd of the log importance weights (antithetic pair means).
+      repairs: what was done to a run that broke down (empty: nothing), e.g. more draws.
+      failed_regressions: periods whose last EIS regression was not finite (0 in a returned result).
+      damping_step: the step of the last EIS iteration (1: undamped; smaller: the iteration was
+        damped because it oscillated).
     """
 
     value: float
@@ -73,6 +82,12 @@ class LoglikResult:
     cv_coefficients: dict | None = None
     independent_error: float | None = None
     method: str = "EIS"
+    nse_method: str = "delta"
+    nse_estimates: dict | None = None
+    log_weight_sd: float | None = None
+    repairs: tuple = ()
+    failed_regressions: int = 0
+    damping_step: float = 1.0
 
     @property
     def value_bias_corrected(self) -> float:
@@ -107,6 +122,7 @@ def loglik(
     n_score_draws: int | None = None,
     control_variates: str | None = None,
     cv_coefficient="regression",
+    on_breakdown: str = "raise",
 ) -> LoglikResult:
     """EIS estimate of the log-likelihood of ``model`` at ``params`` on observations ``y``.
 
@@ -132,6 +148,8 @@ def loglik(
         that minimises the variance across seeds (experiments/results/control_variates.md). A number fixes it: 1.0 subtracts the
         independent case's error as it is, which at rho = 0.9 made the variance 7 times larger.
         (A regression of the weights themselves, not their logs, is thrown off by heavy tails.)
+      on_breakdown: "raise" (default: see Raises) or "return": return the run as it is, with its
+        measured NSE, ESS and ``failed_regressions`` (for diagnostics that study broken samplers).
 
     A model without a latent state (``state_dim == 0``, e.g. ``garch``) has its likelihood in
     closed form: the result is exact (``method`` "closed form", ``nse`` 0) and the EIS settings
@@ -139,6 +157,15 @@ def loglik(
 
     Returns:
       A :class:`LoglikResult`.
+
+    Raises:
+      EISBreakdownError: the run broke down (failed regressions, a non-finite value, collapsed
+        weights with an NSE above :data:`NSE_LIMIT`, or float64 rounding above
+        :data:`ROUNDING_LIMIT`) and a repair with 4 times the draws did not help. Hard regions
+        (measured in experiments/results/eis_robustness.md): sv and sv-t with sigma_eta above
+        about 1.3 and |phi| not near 1 (the state's innovation swamps what one observation says, and
+        the Gaussian kernels fit the skewed per-period posterior badly); data far from zero with
+        a tiny noise scale (price levels with sd 1e-4).
 
     References:
       Richard and Zhang (2007), J. Econometrics 141; Durbin and Koopman (1997), Biometrika 84.
@@ -149,17 +176,20 @@ def loglik(
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
     control = check_control(model, control_variates, cv_coefficient)
     key = as_key(seed)
-    out, diagnostics, extra = compiled_eis(model, settings, control)(jax_params(checked), jnp.asarray(y), key)
+    if on_breakdown not in ("raise", "return"):
+        raise SmleInputError(f"on_breakdown = {on_breakdown!r} is not accepted; accepted: 'raise' or 'return'")
+    if on_breakdown == "return":
+        out, diagnostics, extra = compiled_eis(model, settings, control)(jax_params(checked), jnp.asarray(y), key)
+        repairs = ()
+        if not math.isfinite(float(extra["value"])):
+            raise EISBreakdownError(f"the EIS log-likelihood of model '{model.name}' is not finite at params={checked}")
+    else:
+        out, diagnostics, extra, settings, repairs = _checked_run(model, settings, control, checked, y, key)
     value = float(extra["value"])
-    if not math.isfinite(value):
-        raise FloatingPointError(
-            f"the EIS log-likelihood of model '{model.name}' is not finite at params={checked}; "
-            "the sampler failed (check the data scale, e.g. returns in percent, and the parameters)"
-        )
-    facts = control_facts(control, settings.antithetic, out, diagnostics["nse"], extra)
+    facts = control_facts(control, settings.antithetic, out, honest_nse(diagnostics), extra)
     return LoglikResult(
         value=value,
-        nse=float(extra["nse"]) if facts is not None else float(diagnostics["nse"]),
+        nse=float(extra["nse"]) if facts is not None else honest_nse(diagnostics),
         ess=float(diagnostics["ess"]),
         iterations=int(out.info.iterations),
         converged=bool(out.info.converged),
@@ -174,6 +204,84 @@ def loglik(
         r_squared=np.asarray(out.info.r_squared),
         n_score_draws=settings.score_draws,
         **(facts._asdict() if facts is not None else {}),
+        nse_method="control variates (delta method)" if facts is not None else NSE_METHOD,
+        repairs=repairs,
+        nse_estimates={name: float(diagnostics[f"nse_{name}"]) for name in ("delta", "lognormal", "batches")},
+        log_weight_sd=float(diagnostics["log_weight_sd"]),
+        failed_regressions=int(out.info.failed_regressions),
+        damping_step=float(out.info.step),
+    )
+
+
+NSE_METHOD = "largest of delta, lognormal, batches"
+"""How :attr:`LoglikResult.nse` is computed without control variates (see :func:`honest_nse`)."""
+
+NSE_LIMIT = 2.0
+"""Above this NSE (log-likelihood units) after the repair, :func:`loglik` raises
+:class:`~smle.errors.EISBreakdownError` instead of returning a value that is noise."""
+
+ROUNDING_LIMIT = 0.05
+"""Largest float64 rounding scale of the log weights (:attr:`EISOutput.rounding`) accepted."""
+
+DRAW_REPAIR_FACTOR = 4
+"""The repair of a broken-down run: this many times the fitting and scoring draws."""
+
+
+def honest_nse(diagnostics) -> float:
+    """The NSE reported: the largest of the delta-method, log-normal and between-batch estimates
+    (:func:`smle.engine.eis.weight_diagnostics`). The delta method alone saturates at about 1
+    when one weight dominates and understates heavy tails; the log-normal estimate does not
+    saturate; the batch spread guards against log weights that are far from normal.
+    (Measured: experiments/results/eis_accuracy.md.)"""
+    return max(float(diagnostics[f"nse_{name}"]) for name in ("delta", "lognormal", "batches"))
+
+
+def breakdown(out, diagnostics, extra) -> str | None:
+    """Why a run cannot be returned (None if it can): a non-finite value, failed regressions in
+    the last EIS iteration, or an NSE above :data:`NSE_LIMIT`."""
+    if not math.isfinite(float(extra["value"])):
+        return "the estimate is not finite"
+    rounding = float(out.rounding)
+    if not rounding <= ROUNDING_LIMIT:
+        return (f"float64 rounding alone can move it by {rounding:.3g} (the terms of the log weights are huge: data far "
+                "from zero against a tiny noise scale; rescale the data)")
+    failed = int(out.info.failed_regressions)
+    if failed:
+        return f"the last EIS regressions failed in {failed} periods (a collapsed or overflowing draw set)"
+    nse = honest_nse(diagnostics)
+    if not nse <= NSE_LIMIT:
+        return (f"the weights have collapsed: NSE {nse:.3g} (log-weight sd {float(diagnostics['log_weight_sd']):.3g}, "
+                f"ESS {float(diagnostics['ess']):.3g} of {out.log_weights.shape[0]}), so its error cannot be measured")
+    return None
+
+
+def _checked_run(model, settings, control, params, y, key):
+    """Run the compiled EIS kernel; on a breakdown (:func:`breakdown`) repair once with
+    :data:`DRAW_REPAIR_FACTOR` times the draws, then raise :class:`EISBreakdownError`.
+
+    Returns ``(out, diagnostics, extra, settings_used, repairs)``."""
+    inputs = (jax_params(params), jnp.asarray(y), key)
+    out, diagnostics, extra = compiled_eis(model, settings, control)(*inputs)
+    reason = breakdown(out, diagnostics, extra)
+    if reason is None:
+        return out, diagnostics, extra, settings, ()
+    if reason.startswith("float64 rounding"):  # more draws cannot help: the terms themselves are too large
+        raise EISBreakdownError(f"the EIS log-likelihood of model '{model.name}' cannot be trusted at params={params}: "
+                                f"{reason}")
+    wider = settings._replace(
+        n_draws=DRAW_REPAIR_FACTOR * settings.n_draws,
+        n_score_draws=None if settings.n_score_draws is None else DRAW_REPAIR_FACTOR * settings.n_score_draws,
+    )
+    out, diagnostics, extra = compiled_eis(model, wider, control)(*inputs)
+    second = breakdown(out, diagnostics, extra)
+    if second is None:
+        return out, diagnostics, extra, wider, (f"{reason}; repaired with {wider.n_draws} draws",)
+    raise EISBreakdownError(
+        f"the EIS log-likelihood of model '{model.name}' cannot be trusted at params={params}: {reason}, and with "
+        f"{wider.n_draws} draws {second}. EIS breaks down like this where the state's innovation is large against "
+        "what one observation says about it (e.g. sv with sigma_eta above about 1.5) or the data scale is far from "
+        "the parameters' (returns in percent?); for a one-dimensional state the grid filter "
+        "(smle.reference.grid_loglik) gives the exact value"
     )
 
 

@@ -183,5 +183,7 @@ def test_a_breakdown_near_the_optimum_is_reported_not_raised():
     # "not converged" result rather than raise
     y, _ = smle.simulate("sv", dict(mu=-8.21, phi=0.98, sigma_eta=0.3082), 500, seed=2317081096)
     result = smle.fit("sv", y, n_draws=32, seed=3336677159)
-    assert not result.converged
-    assert result.message.startswith("not converged")
+    # since the line-searched Newton start and the damped EIS iteration (issue 15) the regressions
+    # no longer diverge here and the fit may converge; either way it returns, honestly labelled
+    assert result.converged or result.message.startswith("not converged")
+    assert all(np.isfinite(v) for v in result.params.values())

@@ -96,13 +96,16 @@ def test_infinite_variance_sampler_is_not_healthy():
     """
     params = dict(mu=0.0, phi=0.0, sigma_eta=2.0)
     y, _ = smle.simulate("sv", params, 500, seed=3)
-    tail_run = smle.loglik("sv", params, y, n_draws=64, n_score_draws=2000, seed=0)  # the check's tail run
+    tail_run = smle.loglik("sv", params, y, n_draws=64, n_score_draws=2000, seed=0,  # the check's tail run
+                           on_breakdown="return")  # loglik itself refuses this run (EISBreakdownError)
     assert tail_run.c_obs.max() * params["sigma_eta"] ** 2 >= 1.0  # infinite variance by the derivation above
     report = smle.check("sv", params, y, n_draws=64, n_seeds=N_SEEDS, seed=0, tail_draws=2000, draws_grid=None)
     # measured: k-hat 2.95, spread 2.9 against single-run NSE 0.8
     assert report.verdict == "unreliable", report.reason
     assert report.tail.verdict != "healthy" and report.k_hat > 0.7
-    assert report.nse_ratio < report.nse_ratio_range[0]  # the single-run NSE understates the error
+    # the single-run NSE is now the honest one (issue 15: log-normal estimate, huge here), so it no longer
+    # understates the error; it is still far outside the healthy range
+    assert not report.nse_ratio_range[0] <= report.nse_ratio <= report.nse_ratio_range[1]
     assert "variance" in report.reason
 
 

@@ -51,6 +51,9 @@ class EISOutput(NamedTuple):
       auxiliary: fitted auxiliary parameters.
       sampler: the assembled sampler.
       info: convergence diagnostics.
+      rounding: float64 rounding scale of the log weights, ``eps * sum_t max_s`` of the magnitudes of
+        the terms that cancel in them: large when the data are far from zero against a tiny noise
+        scale (price levels with a noise sd of 1e-4), where the cancellation alone moves log L.
     """
 
     value: jax.Array
@@ -59,6 +62,7 @@ class EISOutput(NamedTuple):
     auxiliary: Auxiliary
     sampler: Sampler
     info: EISInfo
+    rounding: jax.Array
 
 
 def eis_loglik(
@@ -91,24 +95,59 @@ def eis_loglik(
     auxiliary, info = fit_auxiliary(state, log_obs_fn, obs_args, fit_normals, guess, settings)
     sampler = assemble(state, auxiliary)
     paths = draw_paths(sampler, score_normals)
-    weights = log_weights(sampler, log_obs_fn(obs_args, paths), paths)
+    log_obs = log_obs_fn(obs_args, paths)
+    weights = log_weights(sampler, log_obs, paths)
     value = logsumexp(weights) - jnp.log(weights.shape[0])
-    return EISOutput(value, weights, paths, auxiliary, sampler, info)
+    return EISOutput(value, weights, paths, auxiliary, sampler, info, rounding_scale(sampler, log_obs, paths))
+
+
+def rounding_scale(sampler: Sampler, log_obs: jax.Array, paths: jax.Array) -> jax.Array:
+    """``eps * (|log chi_1| + sum_t max_s |terms of period t|)``: how far float64 rounding alone can
+    move a log weight (see :class:`EISOutput`); stop-gradient, a diagnostic."""
+    magnitude = (
+        jnp.abs(log_obs)
+        + jnp.abs(sampler.weight_const)[:, None]
+        + jnp.abs(sampler.weight_linear[:, None] * paths)
+        + jnp.abs(0.5 * sampler.weight_quadratic[:, None] * paths**2)
+    )
+    total = jnp.abs(sampler.log_chi_first) + jnp.sum(jnp.max(magnitude, axis=1))
+    return jax.lax.stop_gradient(jnp.finfo(paths.dtype).eps * total)
+
+
+N_BATCHES = 8
+"""Batches of the scoring set for the between-batch NSE (antithetic pairs kept together)."""
 
 
 def weight_diagnostics(log_weights: jax.Array, antithetic: bool) -> dict[str, Any]:
-    """NSE of log L_hat (delta method) and effective sample size from one run's log weights.
+    """NSEs of log L_hat and the effective sample size from one run's log weights.
 
-    With antithetic pairs the pair means are the independent units. The delta method gives
-    ``Var(log mean w) ~ Var(mean w) / mean(w)^2``.
+    With antithetic pairs the pair means are the independent units u_i (n of them).
+
+    * ``nse_delta``: the delta method, ``sd(u) / (sqrt(n) mean(u))``. It is at most about 1 by
+      construction (one dominant unit gives exactly 1), and with heavy-tailed weights the sample
+      variance misses the tail, so it understates the error exactly when the error is large.
+    * ``nse_lognormal``: the same with the weights' variance taken from the spread of the log
+      units, ``sqrt(expm1(var(log u)) / n)``, the delta method for log-normal weights. The log
+      weights' spread is well estimated from a sample that misses the weights' tail, so this
+      does not saturate: a log-weight sd of 5 says that no S of practical size is enough.
+    * ``nse_batches``: the spread of log mean w over :data:`N_BATCHES` batches of the units,
+      ``sd(log m_r) / sqrt(R)``.
+    * ``log_weight_sd``: ``sd(log u)``.
     """
     normalised = jnp.exp(log_weights - jnp.max(log_weights))
-    if antithetic:
-        half = normalised.shape[0] // 2
-        units = 0.5 * (normalised[:half] + normalised[half:])
-    else:
-        units = normalised
+    units = pair_units(normalised, antithetic)
+    n_units = units.shape[0]
     mean = jnp.mean(units)
-    nse = jnp.std(units, ddof=1) / jnp.sqrt(units.shape[0]) / mean
+    nse_delta = jnp.std(units, ddof=1) / jnp.sqrt(n_units) / mean
+    log_units = jnp.log(jnp.maximum(units, jnp.finfo(units.dtype).tiny))
+    log_sd = jnp.std(log_units, ddof=1)
+    nse_lognormal = jnp.sqrt(jnp.expm1(jnp.minimum(log_sd**2, 700.0)) / n_units)
+    n_batches = max(min(N_BATCHES, n_units // 2), 2)
+    per_batch = max(n_units // n_batches, 1)
+    batch_means = jnp.log(jnp.maximum(
+        jnp.mean(units[: n_batches * per_batch].reshape(n_batches, per_batch), axis=1), jnp.finfo(units.dtype).tiny
+    ))
+    nse_batches = jnp.std(batch_means, ddof=1) / jnp.sqrt(n_batches)
     ess = jnp.sum(normalised) ** 2 / jnp.sum(normalised**2)
-    return {"nse": nse, "ess": ess}
+    return {"nse": nse_delta, "nse_delta": nse_delta, "nse_lognormal": nse_lognormal, "nse_batches": nse_batches,
+            "log_weight_sd": log_sd, "ess": ess}

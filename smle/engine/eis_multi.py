@@ -175,8 +175,10 @@ def fit_auxiliary(
 ) -> tuple[AuxiliaryMulti, EISMultiInfo]:
     """The auxiliary parameters (differentiable by implicit differentiation) and diagnostics."""
     bound = functools.partial(log_obs_fn, obs_args)
-    start = jax.lax.stop_gradient(newton_start(state, bound, guess, settings.n_newton, pairs))
-    auxiliary, (r_squared, iterations, change) = implicit_fixed_point(
+    # a fixed number of undamped steps here (settings.n_newton is the scalar engine's cap on its
+    # line-searched iteration, 200 by default): five, as measured for the k-dimensional start
+    start = jax.lax.stop_gradient(newton_start(state, bound, guess, min(settings.n_newton, 5), pairs))
+    auxiliary, (r_squared, iterations, change, _) = implicit_fixed_point(
         functools.partial(_eis_map_of_inputs, log_obs_fn, pairs, settings.antithetic), settings, (state, obs_args), normals, start
     )
     info = EISMultiInfo(

@@ -31,12 +31,17 @@ class EISInfo(NamedTuple):
       converged: whether the last change fell below the tolerance.
       last_change: largest relative change of the auxiliary parameters at the last iteration.
       r_squared: per-period R^2 of the final regressions, shape (T,).
+      failed_regressions: periods whose last regression was not finite (a collapsed or
+        overflowing draw set); they kept their previous parameters.
+      step: the damping step of the last iteration (1: undamped EIS).
     """
 
     iterations: jax.Array
     converged: jax.Array
     last_change: jax.Array
     r_squared: jax.Array
+    failed_regressions: jax.Array
+    step: jax.Array
 
 
 # ---------------------------------------------------------------------------------------------
@@ -50,24 +55,61 @@ def _elementwise_derivatives(log_obs_fn, x):
     return first, second
 
 
+STEP_FRACTIONS = (1.0, 0.5, 0.25, 0.125, 1.0 / 16, 1.0 / 64, 1.0 / 256, 1.0 / 1024, 0.0)
+"""Fractions of the Newton step tried by the line search of :func:`newton_start` (0 keeps the point)."""
+
+
+NEWTON_TOL = 1e-3
+"""The Newton start stops when no period's mode moves by more than this (in units of the state)."""
+
+
+def log_prior(state: LatentAR1, paths: jax.Array) -> jax.Array:
+    """Log density of the latent AR(1) law at paths of shape (T, K), up to a constant; shape (K,)."""
+    first = (paths[0] - state.init_mean) ** 2 / state.init_var
+    innovations = paths[1:] - state.intercept - state.phi * paths[:-1]
+    return -0.5 * (first + jnp.sum(innovations**2, axis=0) / state.sigma_eta**2)
+
+
 def newton_start(state: LatentAR1, log_obs_fn, guess: jax.Array, n_newton: int) -> Auxiliary:
     """Auxiliary parameters from a second-order expansion of log g_t about the posterior mode.
 
     Each step expands log g_t about the current path (curvature clipped at zero so that the
-    kernel stays integrable), assembles the Gaussian approximation and moves to its mean path;
-    for log-concave g_t this is Newton's method for the joint mode.
+    kernel stays integrable), assembles the Gaussian approximation and moves towards its mean
+    path. The move is the best of the fractions :data:`STEP_FRACTIONS` of the full step by the
+    log posterior ``log p(x) + sum_t log g_t(x_t)`` (0 included, so it never decreases): a full
+    Newton step from a point where log g_t is nearly flat (a log variance far above the data's,
+    with a persistent or wide state) overshoots by hundreds of units into a region where log g_t
+    and its curvature overflow (measured: curvatures of 1e64, a collapsed sampler and a log
+    likelihood of -1e64 reported with NSE 0 at sv, phi -0.999, sigma_eta 2.6).
     """
+    fractions = jnp.asarray(STEP_FRACTIONS)
+    # n_newton caps the steps: near the mode Newton converges in a few; from far away where
+    # log g_t is exponential in x (a log variance tens of units from the data's) each step moves
+    # about one unit, so a fixed small number of steps would leave the start far from the mode
 
     def expand(point):
         first, second = _elementwise_derivatives(log_obs_fn, point[:, None])
         c_obs = jnp.maximum(-second[:, 0], 0.0)
         b_obs = first[:, 0] + c_obs * point
-        return Auxiliary(b_obs, c_obs)
+        usable = jnp.isfinite(b_obs) & jnp.isfinite(c_obs)
+        return Auxiliary(jnp.where(usable, b_obs, 0.0), jnp.where(usable, c_obs, 0.0))
 
-    def step(point, _):
-        return mean_path(assemble(state, expand(point))), None
+    def step(carry):
+        point, iteration, _ = carry
+        target = mean_path(assemble(state, expand(point)))
+        target = jnp.where(jnp.isfinite(target), target, point)
+        trials = point[:, None] + fractions[None, :] * (target - point)[:, None]
+        score = log_prior(state, trials) + jnp.sum(log_obs_fn(trials), axis=0)
+        score = jnp.where(jnp.isfinite(score), score, -jnp.inf)
+        new = trials[:, jnp.argmax(score)]
+        return new, iteration + 1, jnp.max(jnp.abs(new - point))
 
-    point, _ = jax.lax.scan(step, guess, None, length=n_newton)
+    def keep_going(carry):
+        _, iteration, move = carry
+        return (iteration < n_newton) & (move > NEWTON_TOL)
+
+    inf = jnp.asarray(jnp.inf, guess.dtype)
+    point, _, _ = jax.lax.while_loop(keep_going, step, (guess, jnp.asarray(0), inf))
     return expand(point)
 
 
@@ -90,7 +132,7 @@ def eis_map(state: LatentAR1, log_obs_fn, normals: jax.Array, auxiliary: Auxilia
         jnp.where(usable, auxiliary.b_obs + db, auxiliary.b_obs),
         jnp.where(usable, auxiliary.c_obs + dc, auxiliary.c_obs),
     )
-    return new, jnp.where(usable, r_squared, 0.0)
+    return new, (jnp.where(usable, r_squared, 0.0), jnp.sum(~usable).astype(jnp.int32))
 
 
 def _eis_map_of_inputs(log_obs_fn, inputs, normals, auxiliary: Auxiliary):
@@ -108,7 +150,7 @@ def fit_auxiliary(
     """
     bound = functools.partial(log_obs_fn, obs_args)
     start = jax.lax.stop_gradient(newton_start(state, bound, guess, settings.n_newton))
-    auxiliary, (r_squared, iterations, change) = implicit_fixed_point(
+    auxiliary, ((r_squared, failed), iterations, change, step) = implicit_fixed_point(
         functools.partial(_eis_map_of_inputs, log_obs_fn), settings, (state, obs_args), normals, start
     )
     info = EISInfo(
@@ -116,5 +158,7 @@ def fit_auxiliary(
         converged=jax.lax.stop_gradient(change) <= settings.tol,
         last_change=jax.lax.stop_gradient(change),
         r_squared=jax.lax.stop_gradient(r_squared),
+        failed_regressions=jax.lax.stop_gradient(failed).astype(jnp.int32),
+        step=jax.lax.stop_gradient(step),
     )
     return auxiliary, info

@@ -25,24 +25,38 @@ def relative_change(new, old):
     return jnp.max(jnp.stack(jax.tree.leaves(changes)))
 
 
-def iterate_to_fixed_point(update, start, extra_template, tol, max_iter: int):
-    """Iterate ``a <- update(a)`` until the relative change is at most tol or max_iter is reached.
+MIN_STEP = 1.0 / 16
+"""Smallest fraction of the EIS update taken by the damped iteration."""
 
-    ``update`` returns ``(new, extra)``; the last ``extra`` (the regressions' R^2, shaped like
-    ``extra_template``) is carried out. Returns ``(a, extra, iterations, last change)``.
+
+def iterate_to_fixed_point(update, start, extra_template, tol, max_iter: int):
+    """Iterate ``a <- a + step (update(a) - a)`` until the relative change of the full update is
+    at most tol or max_iter is reached.
+
+    The step starts at 1 (plain EIS) and is halved, down to :data:`MIN_STEP`, whenever the full
+    update's change grows: at a fixed point it is the same fixed point, and damping turns the
+    two-cycles that undamped EIS falls into at wide, nearly independent states (sigma_eta of 2
+    and more) into convergence. ``update`` returns ``(new, extra)``; the last ``extra`` (a pytree
+    shaped like ``extra_template``: the regressions' R^2, failed regressions) is carried out.
+    Returns ``(a, extra, iterations, last change, last step)``.
     """
 
     def cond(carry):
-        _, _, iteration, change = carry
+        _, _, iteration, change, _ = carry
         return (iteration < max_iter) & (change > tol)
 
     def body(carry):
-        current, _, iteration, _ = carry
-        new, extra = update(current)
-        return new, extra, iteration + 1, relative_change(new, current)
+        current, _, iteration, previous_change, step = carry
+        full, extra = update(current)
+        change = relative_change(full, current)
+        step = jnp.where(change > previous_change, jnp.maximum(0.5 * step, MIN_STEP), step)
+        taken = jnp.where(change <= tol, 1.0, step)
+        new = jax.tree.map(lambda a, b: a + taken * (b - a), current, full)
+        return new, extra, iteration + 1, change, step
 
-    inf = jnp.asarray(jnp.inf, extra_template.dtype)
-    return jax.lax.while_loop(cond, body, (start, extra_template, jnp.asarray(0), inf))
+    dtype = jax.tree.leaves(start)[0].dtype
+    inf = jnp.asarray(jnp.inf, dtype)
+    return jax.lax.while_loop(cond, body, (start, extra_template, jnp.asarray(0), inf, jnp.asarray(1.0, dtype)))
 
 
 def solve_adjoint(transposed_map, cotangent, tol, max_iter: int):
@@ -87,10 +101,11 @@ def solve_adjoint(transposed_map, cotangent, tol, max_iter: int):
 
 @functools.partial(jax.custom_vjp, nondiff_argnums=(0, 1))
 def implicit_fixed_point(eis_map_fn, settings, inputs, normals, start):
-    """The fixed point ``a* = Phi(a*; inputs)`` with diagnostics ``(R^2, iterations, change)``.
+    """The fixed point ``a* = Phi(a*; inputs)`` with diagnostics ``(extra, iterations, change, step)``.
 
     Args:
-      eis_map_fn: ``eis_map_fn(inputs, normals, a) -> (new a, R^2 (T,))``, one EIS iteration
+      eis_map_fn: ``eis_map_fn(inputs, normals, a) -> (new a, extra)``, one EIS iteration (extra: any
+        pytree of diagnostics, e.g. the regressions' R^2)
         (static: a pure function).
       settings: static; its ``tol``, ``max_iter``, ``tangent_tol`` and ``max_tangent_iter`` are used.
       inputs: the differentiable quantities (for EIS: the state and the observation arguments).
@@ -99,11 +114,13 @@ def implicit_fixed_point(eis_map_fn, settings, inputs, normals, start):
 
     The custom VJP applies the implicit function theorem: d a*/d inputs = (I - A)^{-1} dPhi/d inputs.
     """
-    template = jnp.zeros(jax.tree.leaves(start)[0].shape[:1], jax.tree.leaves(start)[0].dtype)
-    fixed, r_squared, iterations, change = iterate_to_fixed_point(
+    shapes = jax.eval_shape(lambda a: eis_map_fn(inputs, normals, a)[1], start)
+    template = jax.tree.map(lambda leaf: jnp.zeros(leaf.shape, leaf.dtype), shapes)
+    fixed, extra, iterations, change, step = iterate_to_fixed_point(
         lambda a: eis_map_fn(inputs, normals, a), start, template, settings.tol, settings.max_iter
     )
-    return fixed, (r_squared, iterations.astype(r_squared.dtype), change)
+    dtype = jax.tree.leaves(start)[0].dtype
+    return fixed, (extra, iterations.astype(dtype), change, step)
 
 
 def _forward(eis_map_fn, settings, inputs, normals, start):

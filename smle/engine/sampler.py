@@ -24,7 +24,8 @@ class EISSettings(NamedTuple):
       antithetic: pair every draw with its negation.
       tol: convergence tolerance on the largest relative change of the auxiliary parameters.
       max_iter: cap on EIS iterations.
-      n_newton: Newton steps towards the posterior mode for the starting sampler.
+      n_newton: cap on the Newton steps towards the posterior mode for the starting sampler
+        (they stop earlier once the mode moves by less than 1e-3).
       max_tangent_iter: cap on the fixed-point iterations of the implicit-gradient solve.
       tangent_tol: relative tolerance of the implicit-gradient solve.
       n_score_draws: paths in the scoring set (None: ``n_draws``). Scoring is one pass against
@@ -36,7 +37,7 @@ class EISSettings(NamedTuple):
     antithetic: bool = True
     tol: float = 1e-6
     max_iter: int = 50
-    n_newton: int = 5
+    n_newton: int = 200
     max_tangent_iter: int = 200
     tangent_tol: float = 1e-5
     n_score_draws: int | None = None
