@@ -252,9 +252,7 @@ def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start
     converged, message = _convergence(first)
     hessian = _hessian(_evaluator(model, settings, control, y_jax, key), u, n_periods)
     covariance, std_errors, conf_int, problem = _standard_errors(model, u, params, hessian, level)
-    if problem:
-        converged = False
-        message += problem
+    converged, message = _with_hessian(converged, message, problem)
 
     out, diagnostics, cv_extra = first["aux"]
     log_weights = np.asarray(out.log_weights)
@@ -328,6 +326,16 @@ def _convergence(first) -> tuple[bool, str]:
     return False, f"not converged: reached max_steps = {first['max_steps']} (max|grad| = {first['grad_norm']:.2e})"
 
 
+def _with_hessian(converged: bool, message: str, problem: str) -> tuple[bool, str]:
+    """The optimiser's verdict after the Hessian: a gradient below tolerance is no maximum when the
+    Hessian is not positive definite, so flag and message then both say 'not converged'."""
+    if not problem:
+        return converged, message
+    if converged:
+        return False, f"not converged: gradient below tolerance, but {problem}"
+    return False, f"{message}; also {problem}"
+
+
 def _standard_errors(model, u, params, hessian, level):
     """``(covariance, std_errors, conf_int, problem)`` from the Hessian of minus the log-likelihood
     on the unconstrained scale, mapped by the delta method; ``problem`` is "" or why there are none."""
@@ -361,9 +369,9 @@ def _standard_errors(model, u, params, hessian, level):
         conf_int = {n: (math.nan, math.nan) for n in names}
         if finite:
             return covariance, std_errors, conf_int, (
-                "; the Hessian is not positive definite (no standard errors): the optimum is not a strict maximum")
+                "the Hessian is not positive definite: not a strict maximum; no standard errors")
         return covariance, std_errors, conf_int, (
-            "; the Hessian is not finite (no standard errors): the likelihood could not be evaluated "
+            "the Hessian is not finite: no standard errors; the likelihood could not be evaluated "
             "near the estimate, which often means a parameter is at the edge of its region")
     return covariance, std_errors, conf_int, ""
 
