@@ -14,12 +14,12 @@ rejection rate on samples simulated from the model, with
           pass), a uniform jitter inside the grid cell.
 
 Both at the true parameters (the path-drawing question only), or with ``--fitted`` at the
-estimates of ``smle.fit`` (as diagnose does). Model `sv` at the README design, T = 2000, samples
-simulated with seeds 100, 101, ...
+estimates of ``smle.fit`` (as diagnose does). Models `sv` and `garch-mix` at the README designs,
+T = 2000, samples simulated with seeds 100, 101, ...
 
-    python experiments/factor_path_size.py [--samples 30] [--n-grid 800] [--fitted]
+    python experiments/factor_path_size.py [--model sv] [--samples 30] [--n-grid 800] [--fitted]
 
-Writes experiments/results/factor_path_size.json (factor_path_size_fitted.json with --fitted).
+Writes experiments/results/factor_path_size[_garch_mix][_fitted].json.
 """
 
 from __future__ import annotations
@@ -39,7 +39,10 @@ from smle.diagnostics.residual_tests import ljung_box
 from smle.engine.gaussian import log_normal_density
 from smle.models import get_model
 
-PARAMS = dict(mu=-7.36, phi=0.95, sigma_eta=0.26)
+DESIGNS = {
+    "sv": dict(mu=-7.36, phi=0.95, sigma_eta=0.26),
+    "garch-mix": dict(mu=0.03, ar1=0.05, omega=0.05, alpha=0.06, beta=0.90, gamma=-0.4, rho=0.1, **{"lambda": 1.5}),
+}
 LAGS = (5, 10, 20)
 
 
@@ -92,15 +95,17 @@ def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--samples", type=int, default=30)
     parser.add_argument("--n-grid", type=int, default=800)
+    parser.add_argument("--model", default="sv", choices=sorted(DESIGNS))
     parser.add_argument("--fitted", action="store_true",
                         help="draw the paths at the estimates of smle.fit (n_draws 64, seed 0), as diagnose does")
     args = parser.parse_args()
-    model = get_model("sv")
+    model = get_model(args.model)
+    design = DESIGNS[args.model]
     p_values = {"sir": [], "ffbs": []}
     for k in range(args.samples):
-        y, _ = smle.simulate("sv", PARAMS, 2000, seed=100 + k)
+        y, _ = smle.simulate(model, design, 2000, seed=100 + k)
         y = np.asarray(y)
-        params = smle.fit(model, y, n_draws=64, seed=0).params if args.fitted else PARAMS
+        params = smle.fit(model, y, n_draws=64, seed=0).params if args.fitted else design
         for name, path in (("sir", sir_path(model, params, y, seed=k)),
                            ("ffbs", ffbs_path(model, params, y, k, args.n_grid))):
             innovations = factor_innovations(model, params, path)
@@ -119,9 +124,10 @@ def main() -> None:
             mean_lag1_autocorrelation=float(np.mean([r["lag1"] for r in rows])),
             sd_lag1_autocorrelation=float(np.std([r["lag1"] for r in rows], ddof=1)),
         )
-    out = dict(model="sv", params=PARAMS, at="estimates" if args.fitted else "true parameters", n_periods=2000, samples=args.samples, n_draws_sir=64,
+    out = dict(model=args.model, params=design, at="estimates" if args.fitted else "true parameters", n_periods=2000, samples=args.samples, n_draws_sir=64,
                n_grid=args.n_grid, lags=LAGS, machine=platform.node(), summary=summary, p_values=p_values)
-    path = Path(__file__).parent / "results" / f"factor_path_size{'_fitted' if args.fitted else ''}.json"
+    suffix = ("" if args.model == "sv" else "_" + args.model.replace("-", "_")) + ("_fitted" if args.fitted else "")
+    path = Path(__file__).parent / "results" / f"factor_path_size{suffix}.json"
     path.write_text(json.dumps(out, indent=1))
     print(json.dumps(summary, indent=1))
 

@@ -180,17 +180,17 @@ class FitResult:
         return self.summary()
 
 
-LOW_ESS_FRACTION = 0.10
-"""An effective sample size below this fraction of the draws (or particles) is flagged in reports
-(common practice, a rule of thumb: the estimate then rests on a handful of draws)."""
+LOW_ESS_FRACTION = 0.20
+"""An EIS effective sample size below this fraction of the draws is flagged in reports (common
+practice, a rule of thumb: fewer than one draw in five then carries the estimate, as in 8 of 64)."""
 
 
-def low_ess_warning(ess: float, n: int, unit: str, where: str = "") -> list[str]:
-    """A warning line when ``ess`` is below ``LOW_ESS_FRACTION`` of ``n`` (none otherwise)."""
-    if not ess < LOW_ESS_FRACTION * n:
+def low_ess_warning(ess: float, n: int, unit: str, where: str = "", fraction: float = LOW_ESS_FRACTION) -> list[str]:
+    """A warning line when ``ess`` is below ``fraction`` of ``n`` (none otherwise)."""
+    if not ess < fraction * n:
         return []
-    return [layout.warning(f"effective sample size {ess:.1f}{where} is below {LOW_ESS_FRACTION:.0%} of the {n} "
-                         f"{unit} (common practice): the estimate rests on a few {unit}; use more {unit}")]
+    return [layout.warning(f"effective sample size {ess:.1f}{where} is below {fraction:.0%} of the {n} {unit} "
+                           f"(common practice): the estimate rests on a few {unit}; use more {unit}")]
 
 
 def _control_lines(eis: dict) -> list[str]:

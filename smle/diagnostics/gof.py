@@ -50,11 +50,16 @@ from smle.diagnostics.residual_tests import (  # noqa: F401 (public names of gof
 )
 from smle.diagnostics.filtering import FilterResult, check_filter_settings, filter_factor, has_obs_cdf
 from smle.validation import check_observations
-from smle.models import get_model
+from smle.models import saved_model
 from smle import report_text as layout
-from smle.results import CAUTION, LOW_ESS_FRACTION, FitResult, low_ess_warning
+from smle.results import CAUTION, FitResult, low_ess_warning
 
 SIGNIFICANCE = 0.05  # common practice
+
+FILTER_LOW_ESS_FRACTION = 0.01
+"""A period whose particle-filter ESS is below this fraction of the particles is flagged (common
+practice, a rule of thumb: fewer than 20 of 2000 particles then carry that period's PIT; dips to
+a few per cent after an outlier are ordinary for a filter that resamples at one half)."""
 
 FACTOR_PATH_LEVEL = 0.001
 """Flagging level of the tests on the drawn factor path. The path is one of the EIS scoring paths
@@ -106,6 +111,8 @@ class Diagnostics:
       factor_innovations: its standardised AR(1) innovations, shape (T - 1,).
       smoothed_mean, smoothed_lower, smoothed_upper: the fit's smoothed factor (for figures).
       tests: the :class:`TestResult` list; fit_loglik, fit_nse: the EIS log-likelihood and NSE.
+      params, model_options: the fit's estimates and model options (the figures show the factor as
+        the model displays it, ``Model.factor_display``).
     """
 
     model: str
@@ -121,6 +128,8 @@ class Diagnostics:
     tests: list
     fit_loglik: float
     fit_nse: float
+    params: dict | None = None
+    model_options: dict | None = None
 
     @property
     def flagged(self) -> list:
@@ -131,12 +140,13 @@ class Diagnostics:
         """Plain text in smle's report layout (:mod:`smle.report_text`); flagged tests end in ``<- flagged``."""
         f = self.filter
         lowest = int(np.argmin(f.ess))
-        low_periods = int(np.sum(f.ess < LOW_ESS_FRACTION * f.n_particles))
+        low_periods = int(np.sum(f.ess < FILTER_LOW_ESS_FRACTION * f.n_particles))
         filter_lines = [
             layout.field("particles", f"{f.n_particles}, seed {f.seed}, resampled after {f.resample_count} periods"),
             layout.field("lowest ESS", f"{f.ess[lowest]:.0f} of {f.n_particles} particles (period {lowest}); "
-                                       f"{low_periods} periods below {LOW_ESS_FRACTION:.0%}"),
-            *low_ess_warning(float(f.ess[lowest]), f.n_particles, "particles", f" in period {lowest}"),
+                                       f"{low_periods} periods below {FILTER_LOW_ESS_FRACTION:.0%}"),
+            *low_ess_warning(float(f.ess[lowest]), f.n_particles, "particles", f" in period {lowest}",
+                             FILTER_LOW_ESS_FRACTION),
             layout.field("log-likelihood", f"filter {f.loglik:.3f}, EIS {self.fit_loglik:.3f} "
                                            f"(NSE {self.fit_nse:.3f})"),
         ]
@@ -207,14 +217,6 @@ class Diagnostics:
         return written
 
 
-def _fitted_model(result: FitResult):
-    """The model instance of a fit (results written before options were filtered carry the
-    model's class attributes among ``model_options``; only constructor fields are passed)."""
-    model_class = type(get_model(result.model))
-    fields = {f.name for f in dataclasses.fields(model_class)}
-    return get_model(result.model, **{k: v for k, v in (result.model_options or {}).items() if k in fields})
-
-
 def _check_fit_result(result) -> FitResult:
     if not isinstance(result, FitResult):
         raise SmleInputError(
@@ -250,7 +252,7 @@ def diagnose(
     (2001), J. Business & Economic Statistics 19; Ljung and Box (1978); Engle (1982).
     """
     result = _check_fit_result(fit_result)
-    model = _fitted_model(result)
+    model = saved_model(result.model, result.model_options)
     if y is None:
         y = result.observations
         if y is None:
@@ -289,7 +291,7 @@ def diagnose(
         factor_innovations=innovations, factor_path=path,
         smoothed_mean=np.asarray(result.smoothed_mean), smoothed_lower=np.asarray(result.smoothed_lower),
         smoothed_upper=np.asarray(result.smoothed_upper), tests=tests, fit_loglik=result.loglik,
-        fit_nse=result.nse,
+        fit_nse=result.nse, params=dict(result.params), model_options=dict(result.model_options or {}),
     )
 
 

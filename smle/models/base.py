@@ -32,7 +32,8 @@ Optional hooks (each has a default here):
   enabling the independent control variate and :meth:`Model.independent_loglik` (adaptive
   Gauss-Hermite per period, or a model's own closed form);
 * ``obs_cdf(params, data, x)``: the conditional CDF, for PITs (:func:`smle.diagnose`);
-* ``period_data(data, t)``: one period of prepared data, for the particle filter.
+* ``period_data(data, t)``: one period of prepared data, for the particle filter;
+* ``factor_display(params, x)``: the quantity figures show for the factor (default: x itself).
 
 The engine knows nothing about any particular model.
 """
@@ -184,6 +185,16 @@ class Model:
         data hold leaves that are not indexed by time override this.
         """
         return jax.tree.map(lambda leaf: jax.lax.dynamic_slice_in_dim(leaf, t, 1, axis=0), data)
+
+
+    # -- figures -------------------------------------------------------------------------------
+    def factor_display(self, params: Mapping, x) -> tuple[np.ndarray, str]:
+        """``(values, label)``: what a figure of the factor shows at states ``x`` (any shape).
+
+        Must be increasing in x, so that quantiles of x map to quantiles of the shown quantity
+        (the posterior band stays a band). Default: the state itself, labelled ``factor_name``.
+        """
+        return np.asarray(x, float), self.factor_name
 
 
 def model_options(model: Model) -> dict:
