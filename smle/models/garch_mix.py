@@ -258,7 +258,7 @@ class GarchMix(Model):
         """The mixing factor W_t (mean 1) by the exact link: the standardised state looks like noise
         in a figure, while W_t reads directly as the period's variance multiplier."""
         w = self.mixing_exact({k: jnp.asarray(v, float) for k, v in params.items()}, jnp.asarray(x, float))
-        return np.asarray(w), "mixing factor W_t (variance multiplier, mean 1)"
+        return np.asarray(w), "mixing factor W_t (mean 1)"
 
     # -- data --------------------------------------------------------------------------------
     def check_data(self, y):

@@ -41,7 +41,7 @@ class LogVarianceState(Model):
         """The volatility scale exp(x_t / 2), in the units of the observations: a log variance such
         as -7.4 says little at a glance, its volatility 0.025 does (no percent: smle does not know
         whether the returns are in percent)."""
-        return np.exp(0.5 * np.asarray(x, float)), "volatility scale exp(x_t / 2) (units of the returns)"
+        return np.exp(0.5 * np.asarray(x, float)), "volatility exp(x_t / 2)"
 
     def state_constraints(self):
         return {
