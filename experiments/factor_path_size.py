@@ -46,8 +46,9 @@ DESIGNS = {
 LAGS = (5, 10, 20)
 
 
-def sir_path(model, params, y, seed: int) -> np.ndarray:
-    lik = smle.loglik(model, params, y, n_draws=64, seed=0, antithetic=True, tol=1e-8, max_iter=100)
+def sir_path(model, params, y, seed: int, score_draws: int | None = None) -> np.ndarray:
+    lik = smle.loglik(model, params, y, n_draws=64, seed=0, antithetic=True, tol=1e-8, max_iter=100,
+                      n_score_draws=score_draws)
     weights = np.exp(lik.log_weights - lik.log_weights.max())
     index = np.random.default_rng(seed).choice(weights.shape[0], p=weights / weights.sum())
     return np.asarray(lik.paths[:, index], float)
@@ -96,6 +97,8 @@ def main() -> None:
     parser.add_argument("--samples", type=int, default=30)
     parser.add_argument("--n-grid", type=int, default=800)
     parser.add_argument("--model", default="sv", choices=sorted(DESIGNS))
+    parser.add_argument("--score-draws", type=int, default=None,
+                        help="pick the EIS path among this many scoring draws (default: the 64 fitting draws)")
     parser.add_argument("--fitted", action="store_true",
                         help="draw the paths at the estimates of smle.fit (n_draws 64, seed 0), as diagnose does")
     args = parser.parse_args()
@@ -106,7 +109,7 @@ def main() -> None:
         y, _ = smle.simulate(model, design, 2000, seed=100 + k)
         y = np.asarray(y)
         params = smle.fit(model, y, n_draws=64, seed=0).params if args.fitted else design
-        for name, path in (("sir", sir_path(model, params, y, seed=k)),
+        for name, path in (("sir", sir_path(model, params, y, k, args.score_draws)),
                            ("ffbs", ffbs_path(model, params, y, k, args.n_grid))):
             innovations = factor_innovations(model, params, path)
             _, p = ljung_box(innovations, LAGS)
@@ -124,9 +127,10 @@ def main() -> None:
             mean_lag1_autocorrelation=float(np.mean([r["lag1"] for r in rows])),
             sd_lag1_autocorrelation=float(np.std([r["lag1"] for r in rows], ddof=1)),
         )
-    out = dict(model=args.model, params=design, at="estimates" if args.fitted else "true parameters", n_periods=2000, samples=args.samples, n_draws_sir=64,
+    out = dict(model=args.model, params=design, at="estimates" if args.fitted else "true parameters", n_periods=2000, samples=args.samples, n_draws_sir=64, score_draws=args.score_draws,
                n_grid=args.n_grid, lags=LAGS, machine=platform.node(), summary=summary, p_values=p_values)
-    suffix = ("" if args.model == "sv" else "_" + args.model.replace("-", "_")) + ("_fitted" if args.fitted else "")
+    suffix = ("" if args.model == "sv" else "_" + args.model.replace("-", "_")) + ("_fitted" if args.fitted else "") \
+        + (f"_score{args.score_draws}" if args.score_draws else "")
     path = Path(__file__).parent / "results" / f"factor_path_size{suffix}.json"
     path.write_text(json.dumps(out, indent=1))
     print(json.dumps(summary, indent=1))

@@ -166,7 +166,7 @@ def test_diagnose_report_flags_a_collapsed_filter_and_keeps_path_tests_apart():
     flagged = [(t.subject, t.p_value) for t in _diagnostics(3.0).flagged]
     assert flagged == [("return scores", 0.01), ("squared factor innovations", 1e-5)]
     assert text.count("<- flagged") == 2 and "1 of 1 tests of the observations" in text
-    assert "factor path: 2 of 2 tests below 0.05" in text and "1 below 0.001" in text
+    assert "factor path: 2 of 2 tests below 0.05" in text and "1 below 0.01" in text
 
 
 def test_garch_mix_shows_its_mixing_factor():
