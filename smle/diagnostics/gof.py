@@ -154,7 +154,7 @@ class Diagnostics:
         filter_lines = [
             layout.field("particles", f"{f.n_particles}, seed {f.seed}, resampled after {f.resample_count} periods"),
             layout.field("lowest ESS", f"{f.ess[lowest]:.0f} of {f.n_particles} particles (period {lowest}); "
-                                       f"{low_periods} periods below {FILTER_LOW_ESS_FRACTION:.0%}"),
+                                       f"{low_periods} period{'' if low_periods == 1 else 's'} below {FILTER_LOW_ESS_FRACTION:.0%}"),
             *low_ess_warning(float(f.ess[lowest]), f.n_particles, "particles", f" in period {lowest}",
                              FILTER_LOW_ESS_FRACTION),
             layout.field("log-likelihood", f"filter {f.loglik:.3f}, EIS {self.fit_loglik:.3f} "
@@ -167,8 +167,8 @@ class Diagnostics:
             [layout.block("Guided particle filter", filter_lines),
              layout.block(f"Tests of the observations (flagged below p = {SIGNIFICANCE:g})",
                           [_test_line(t) for t in observed]),
-             layout.block(f"Tests of a drawn factor path (flagged below p = {FACTOR_PATH_LEVEL:g}; approximate "
-                          "posterior path, size at 5% distorted)", [_test_line(t) for t in path]),
+             layout.block(f"Tests of a drawn factor path (flagged below p = {FACTOR_PATH_LEVEL:g}: the path is "
+                          "an approximate posterior draw)", [_test_line(t) for t in path]),
              layout.block("Reading", self._reading(observed, path))],
             CAUTION)
 
@@ -181,8 +181,9 @@ class Diagnostics:
             below_5 = sum(t.p_value is not None and t.p_value < SIGNIFICANCE for t in path)
             strong = [t for t in path if t.flagged]
             lines.append(f"factor path: {below_5} of {sum(t.p_value is not None for t in path)} tests below "
-                         f"{SIGNIFICANCE:g} (not counted: the path is an approximate posterior draw, so these "
-                         f"reject more often than {SIGNIFICANCE:.0%} under a correct model); {len(strong)} below "
+                         f"{SIGNIFICANCE:g} (counted apart: the path is an approximate posterior draw, which can "
+                         f"make these reject more often than {SIGNIFICANCE:.0%} under a correct model); "
+                         f"{len(strong)} below "
                          f"{FACTOR_PATH_LEVEL:g}" + (": " + "; ".join(f"{t.test} of {t.subject}" for t in strong)
                                                       if strong else ""))
         lines += [
