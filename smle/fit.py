@@ -323,9 +323,7 @@ def _estimates(restriction, first, hessian, level):
     params = {n: float(v) for n, v in compiled_natural(restriction)(jnp.asarray(u)).items()}
     converged, message = _convergence(first)
     covariance, std_errors, conf_int, problem = standard_errors(restriction, u, params, hessian, level)
-    if problem:
-        converged = False
-        message += problem
+    converged, message = _with_hessian(converged, message, problem)
     return params, covariance, std_errors, conf_int, converged, message
 
 
@@ -407,6 +405,16 @@ def _convergence(first) -> tuple[bool, str]:
         return False, (f"not converged: the line search made no progress (max|grad| = {first['grad_norm']:.2e}, "
                        f"tolerance {first['gtol']:.0e}); try other start values or more draws")
     return False, f"not converged: reached max_steps = {first['max_steps']} (max|grad| = {first['grad_norm']:.2e})"
+
+
+def _with_hessian(converged: bool, message: str, problem: str) -> tuple[bool, str]:
+    """The optimiser's verdict after the Hessian: a gradient below tolerance is no maximum when the
+    Hessian is not positive definite, so flag and message then both say 'not converged'."""
+    if not problem:
+        return converged, message
+    if converged:
+        return False, f"not converged: gradient below tolerance, but {problem}"
+    return False, f"{message}; also {problem}"
 
 
 def _control_entries(facts) -> dict:

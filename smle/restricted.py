@@ -147,9 +147,9 @@ def standard_errors(restriction, u, params, hessian, level):
         covariance = np.full((len(names), len(names)), np.nan)
         if finite:
             return covariance, std_errors, conf_int, (
-                "; the Hessian is not positive definite (no standard errors): the optimum is not a strict maximum")
+                "the Hessian is not positive definite: not a strict maximum; no standard errors")
         return covariance, std_errors, conf_int, (
-            "; the Hessian is not finite (no standard errors): the likelihood could not be evaluated "
+            "the Hessian is not finite: no standard errors; the likelihood could not be evaluated "
             "near the estimate, which often means a parameter is at the edge of its region")
     cov_u = np.linalg.inv(hessian)
     covariance = np.zeros((len(names), len(names)))

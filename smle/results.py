@@ -9,6 +9,8 @@ from pathlib import Path
 
 import numpy as np
 
+from smle import report_text as layout
+
 CAUTION = (
     "Model estimates are statistical output, not investment advice; users remain responsible "
     "for decisions taken under their own rules."
@@ -135,52 +137,81 @@ class FitResult:
 
     # -- text ------------------------------------------------------------------------------------
     def summary(self) -> str:
-        """A plain-text summary in smle's own layout."""
-        width = 74
-        rule = "-" * width
-        verdict = "yes" if self.converged else "NO"
-        lines = [
-            f"smle fit  |  model {self.model}  |  {self.n_obs} periods  |  converged: {verdict}",
-            rule,
-            f"{'parameter':<12}{'estimate':>12}{'std.err':>11}"
-            + (f"{'sim.err':>10}" if self.simulation_std_errors else "")
-            + f"   {int(round(self.level * 100))}% interval",
-        ]
+        """A plain-text summary in smle's report layout (:mod:`smle.report_text`)."""
+        return layout.render(
+            layout.title("fit", f"model {self.model}", f"{self.n_obs} periods",
+                       f"converged: {'yes' if self.converged else 'no'}"),
+            [self._estimate_block(), self._likelihood_block(), self._optimiser_block(), self._simulation_block()],
+            CAUTION)
+
+    def _estimate_block(self) -> list[str]:
+        level = f"{int(round(self.level * 100))}% interval"
+        extra = "; spread over seeds" if self.simulation_std_errors else ""
+        rows = []
         fixed = self.fixed or {}
         for name in self.param_names:
-            lo, hi = self.conf_int[name]
             if name in fixed:
-                lines.append(f"{name:<12}{self.params[name]:>12.5f}{'fixed':>11}")
+                rows.append(f"{name:<12}{self.params[name]:>12.5f}   (fixed)")
                 continue
-            row = f"{name:<12}{self.params[name]:>12.5f}{self.std_errors[name]:>11.5f}"
+            lo, hi = self.conf_int[name]
+            inside = f"{self.std_errors[name]:.5f}; {lo:.5f} to {hi:.5f}"
             if self.simulation_std_errors:
-                row += f"{self.simulation_std_errors[name]:>10.5f}"
-            row += f"   [{lo:.5f}, {hi:.5f}]"
-            lines.append(row)
-        lines += [rule, *self._likelihood_lines(), rule, CAUTION]
-        return "\n".join(lines)
+                inside += f"; {self.simulation_std_errors[name]:.5f}"
+            rows.append(f"{name:<12}{self.params[name]:>12.5f}   ({inside})")
+        return layout.block(f"Estimates (standard error; {level}{extra})", rows)
 
-    def _likelihood_lines(self) -> list[str]:
-        eis = self.eis
-        closed = eis.get("method") == "closed form"
+    @property
+    def closed_form(self) -> bool:
+        """Whether the likelihood was exact in closed form (a model without a latent state)."""
+        return self.eis.get("method") == "closed form"
+
+    def _likelihood_block(self) -> list[str]:
+        value = (f"{self.loglik:.4f} (closed form: exact, no simulation error)" if self.closed_form else
+                 f"{self.loglik:.4f} (NSE {self.nse:.4f}; bias-corrected {self.loglik_bias_corrected:.4f})")
         free = len(self.param_names) - len(self.fixed or {})
-        lines = [
-            f"log-likelihood {self.loglik:.4f}   (closed form: exact, no simulation error)" if closed else
-            f"log-likelihood {self.loglik:.4f}   NSE {self.nse:.4f}   bias-corrected {self.loglik_bias_corrected:.4f}",
-            f"AIC {self.aic:.3f}   BIC {self.bic:.3f}   ({free} free parameters"
-            + (f", {len(self.fixed)} fixed)" if self.fixed else ")"),
-            f"optimiser: {self.message}",
-            f"  {self.iterations} L-BFGS steps, {self.n_evaluations} evaluations, max|grad| {self.grad_norm:.1e}, "
+        counted = f"{free} free parameters" + (f", {len(self.fixed)} fixed" if self.fixed else "")
+        return layout.block("Likelihood", [
+            layout.field("log-likelihood", value),
+            layout.field("information criteria", f"AIC {self.aic:.3f}, BIC {self.bic:.3f} ({counted})"),
+        ])
+
+    def _optimiser_block(self) -> list[str]:
+        return layout.block("Optimiser", [
+            self.message,
+            f"{self.iterations} L-BFGS steps, {self.n_evaluations} evaluations, max|grad| {self.grad_norm:.1e}, "
             f"{self.elapsed_seconds:.2f} s",
+        ])
+
+    def _simulation_block(self) -> list[str]:
+        eis = self.eis
+        if self.closed_form:
+            return []
+        lines = [
+            layout.field("draws", f"{eis['n_draws']}{' antithetic' if eis['antithetic'] else ''}, seed {eis['seed']}, "
+                                f"{eis['iterations']} EIS iterations, smallest regression R^2 "
+                                f"{eis['min_r_squared']:.3f}"),
+            layout.field("effective sample size", f"{eis['ess']:.1f} of {eis['n_draws']} draws "
+                                                f"({eis['ess'] / eis['n_draws']:.0%})"),
+            *low_ess_warning(eis["ess"], eis["n_draws"], "draws"),
+            *_control_lines(eis),
         ]
-        if not closed:
-            lines.append(f"EIS at the estimate: {eis['n_draws']} draws{' (antithetic)' if eis['antithetic'] else ''}, "
-                         f"seed {eis['seed']}, {eis['iterations']} iterations, ESS {eis['ess']:.1f}, "
-                         f"min R^2 {eis['min_r_squared']:.3f}")
-        return lines + _control_lines(eis)
+        return layout.block("Simulation (EIS at the estimates)", lines)
 
     def __str__(self) -> str:
         return self.summary()
+
+
+LOW_ESS_FRACTION = 0.20
+"""An EIS effective sample size below this fraction of the draws is flagged in reports (common
+practice, a rule of thumb: fewer than one draw in five then carries the estimate, as in 8 of 64)."""
+
+
+def low_ess_warning(ess: float, n: int, unit: str, where: str = "", fraction: float = LOW_ESS_FRACTION) -> list[str]:
+    """A warning line when ``ess`` is below ``fraction`` of ``n`` (none otherwise)."""
+    if not ess < fraction * n:
+        return []
+    return [layout.warning(f"effective sample size {ess:.1f}{where} is below {fraction:.0%} of the {n} {unit} "
+                           f"(common practice): the estimate rests on a few {unit}; use more {unit}")]
 
 
 def _control_lines(eis: dict) -> list[str]:
@@ -188,8 +219,9 @@ def _control_lines(eis: dict) -> list[str]:
     if not eis.get("control_variates"):
         return []
     coefficients = ", ".join(f"{k} {v:.3f}" for k, v in eis.get("cv_coefficients", {}).items())
-    return [f"control variates {eis['control_variates']!r} ({coefficients}): uncorrected log-likelihood "
-            f"{eis['value_uncorrected']:.4f}, NSE {eis['nse_uncorrected']:.4f}"]
+    return [layout.field(f"control variates {eis['control_variates']!r}",
+                       f"coefficients {coefficients}; uncorrected log-likelihood {eis['value_uncorrected']:.4f}, "
+                       f"NSE {eis['nse_uncorrected']:.4f}")]
 
 
 def _equal(a, b) -> bool:

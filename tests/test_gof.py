@@ -132,8 +132,18 @@ def test_diagnose_report_and_its_json(sv_fit, tmp_path):
     np.testing.assert_allclose(report.scores[:, 0], stats.norm.ppf(np.clip(report.pit[:, 0], 1e-15, 1 - 1e-15)))
     text = report.summary()
     assert "not investment advice" in text and "Berkowitz" in text
-    flagged = [t for t in report.tests if t.p_value is not None and t.p_value < 0.05]
-    assert text.count("<< p < 0.05") == len(flagged)
+    flagged = [t for t in report.tests if t.p_value is not None and t.p_value < t.level]
+    assert text.count("<- flagged") == len(flagged) == len(report.flagged)
+    from smle.diagnostics import plots
+
+    from _figure_checks import assert_readable
+
+    for name, figure in plots.draw_diagnostics(report).items():
+        assert_readable(figure, name)
+    shown = plots.data_and_factor(result, y, "return", None)
+    assert_readable(shown, "factor")
+    # the sv family shows its volatility scale exp(x_t / 2), not the log variance
+    np.testing.assert_allclose(shown.axes[1].lines[0].get_ydata(), np.exp(result.smoothed_mean / 2))
     written = report.write(tmp_path)
     stored = json.loads((tmp_path / "diagnostics.json").read_text())
     assert len(stored["tests"]) == len(report.tests) and len(stored["pit"]) == len(y)

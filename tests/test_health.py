@@ -144,6 +144,7 @@ def test_report_text_json_and_figures(healthy_report, tmp_path):
     report = healthy_report
     text = report.summary()
     assert text.endswith(CAUTION) and "verdict: healthy" in text and "2031-" in text
+    assert "Weight tail" in text and "limits: finite variance up to 0.5" in text
     written = report.write(tmp_path / "check")
     stored = json.loads((tmp_path / "check" / "check.json").read_text())
     assert stored["verdict"] == "healthy" and stored["values"] == report.values.tolist()
@@ -152,6 +153,23 @@ def test_report_text_json_and_figures(healthy_report, tmp_path):
     for name in ("loglik_seeds.png", "weight_tail.png", "nse_scaling.png", "period_contributions.png"):
         assert (tmp_path / "check" / name) in written
         assert (tmp_path / "check" / name).stat().st_size > 10_000
+
+
+def test_figures_are_readable(healthy_report):
+    """No clipped or overlapping text, legends off the data, integer seeds, dates shown whole."""
+    from smle.diagnostics import health_plots
+
+    from _figure_checks import assert_readable
+
+    figures = health_plots.draw_all(healthy_report)
+    for name, figure in figures.items():
+        assert_readable(figure, name)
+    seed_ticks = figures["loglik_seeds.png"].axes[0].get_xticks()
+    assert np.all(seed_ticks == np.round(seed_ticks))
+    dates = [t.get_text() for t in figures["period_contributions.png"].axes[1].get_xticklabels()]
+    assert len(dates) == 6 and all(d.startswith("2031-") or d.startswith("2032-") for d in dates)
+    right = figures["nse_scaling.png"].axes[1]
+    assert right.get_ylabel() and right.get_xlabel() and ("flat" in right.get_title() or "overlap" in right.get_title())
 
 
 

@@ -355,6 +355,24 @@ def _report(model, checked, y, settings, seeds, main, r_squared, tail_result, ta
     )
 
 
+def _flat_from(draws: list, intervals: dict) -> int:
+    """Smallest S of the grid from which the printed 95% intervals of NSE sqrt(S) all share a value.
+
+    Walking down from the largest S, the common part of the intervals shrinks; the first S whose
+    interval misses it ends the flat stretch. So "flat from S" holds exactly when the intervals the
+    report prints from that S on overlap one another.
+    """
+    common_low, common_high = intervals[draws[-1]]
+    holds_from = draws[-1]
+    for s in reversed(draws[:-1]):
+        low, high = intervals[s]
+        common_low, common_high = max(common_low, low), min(common_high, high)
+        if common_low > common_high:
+            break
+        holds_from = s
+    return holds_from
+
+
 def _scaling(scaling_runs: dict, n_seeds: int):
     """Rows of the NSE-against-S table, the log-log slope with its se, and where the scaling holds."""
     if not scaling_runs:
@@ -362,21 +380,13 @@ def _scaling(scaling_runs: dict, n_seeds: int):
     draws = sorted(scaling_runs)
     sds = {s: float(np.std([r.value for r in scaling_runs[s]], ddof=1)) for s in draws}
     dof = n_seeds - 1
-    f_low, f_high = stats.f.ppf([AGREEMENT_LEVEL / 2, 1 - AGREEMENT_LEVEL / 2], dof, dof)
-    reference = sds[draws[-1]] * math.sqrt(draws[-1])
+    intervals = {s: _chi2_sd_interval(sds[s] * math.sqrt(s), n_seeds, 0.05) for s in draws}
+    holds_from = _flat_from(draws, intervals)
     rows = []
     for s in draws:
-        scaled = sds[s] * math.sqrt(s)
-        low, high = _chi2_sd_interval(scaled, n_seeds, 0.05)
-        consistent = reference == 0.0 and scaled == 0.0 or (
-            reference > 0 and f_low <= (scaled / reference) ** 2 <= f_high)
+        low, high = intervals[s]
         single = float(np.sqrt(np.mean([r.nse**2 for r in scaling_runs[s]])))
-        rows.append(ScalingRow(s, sds[s], scaled, low, high, single, bool(consistent)))
-    holds_from = draws[-1]
-    for row in reversed(rows):
-        if not row.consistent:
-            break
-        holds_from = row.n_draws
+        rows.append(ScalingRow(s, sds[s], sds[s] * math.sqrt(s), low, high, single, s >= holds_from))
     positive = [s for s in draws if sds[s] > 0]
     if len(positive) >= 2:
         log_s = np.log(positive)

@@ -14,7 +14,7 @@ from typing import NamedTuple
 from scipy import stats
 
 from smle.diagnostics.health_report import (
-    AGREEMENT_LEVEL, FULL_TAIL_DRAWS, NSE_LIMIT, SCALING_MIN_SEEDS,
+    AGREEMENT_LEVEL, FULL_TAIL_DRAWS, NSE_LIMIT, SCALING_MIN_SEEDS, scaling_statement,
 )
 from smle.diagnostics.weight_tail import TailVerdict
 
@@ -116,8 +116,7 @@ def scaling_finding(e: Evidence) -> list[Finding]:
         return []
     if e.degenerate:
         return [Finding("NSE against draws: rounding error only at every S (exact sampler)")]
-    text = (f"NSE falls with the draws with log-log slope {e.slope:.2f} (se {e.slope_se:.2f}; 1/sqrt(S) gives "
-            f"-0.5); NSE sqrt(S) is flat from S = {e.holds_from}")
+    text = scaling_statement(e.scaling, e.slope, e.slope_se, e.holds_from)
     if not e.scaling_judged:
         text += f" (reported, not judged: that needs at least {SCALING_MIN_SEEDS} seeds and 3 grid points)"
         return [Finding(text)]
@@ -150,5 +149,5 @@ def judge(e: Evidence) -> tuple[list[str], str, str]:
                   f"no sign of an infinite weight variance, NSE {e.sd:.3f} from {e.n_seeds} seeds agrees with the "
                   "single-run NSE, EIS converged")
         if e.scaling_judged:
-            reason += ", and the NSE falls as 1/sqrt(S)"
+            reason += f", and NSE sqrt(S) is flat from S = {e.holds_from}, which includes the {e.n_draws} draws checked"
     return [f.text for f in findings], verdict, reason

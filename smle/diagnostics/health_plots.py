@@ -10,20 +10,34 @@ from pathlib import Path
 
 import numpy as np
 from matplotlib.figure import Figure
+from matplotlib.ticker import MaxNLocator
 
 _INK, _ACCENT, _BAND = "#33506e", "#8c3b1e", "#e3a857"
 FILES = ("loglik_seeds.png", "weight_tail.png", "nse_scaling.png", "period_contributions.png")
 
 
-def _save(figure, path) -> Path:
-    figure.tight_layout()
+def _figure(figsize) -> Figure:
+    """A figure whose layout engine keeps labels, titles and outside legends from overlapping or
+    being clipped (constrained layout, which also makes room for rotated date labels)."""
+    return Figure(figsize=figsize, layout="constrained")
+
+
+def _legend_below(axis, columns: int = 2) -> None:
+    """The legend under the axes, outside them, so that it covers no point, bar or band."""
+    axis.legend(fontsize=8, loc="upper center", bbox_to_anchor=(0.5, -0.2), ncols=columns, frameon=False)
+
+
+def _save(figure, path) -> Path | Figure:
+    """Write the figure to ``path``; with ``path=None``, hand the figure back (for inspection)."""
+    if path is None:
+        return figure
     figure.savefig(path, dpi=110)
     return Path(path)
 
 
 def loglik_across_seeds(report, path) -> Path:
     """log L_hat per seed with its single-run NSE, the mean and the band mean +- one spread sd."""
-    figure = Figure(figsize=(8, 4))
+    figure = _figure((8, 4.6))
     axis = figure.subplots()
     seeds = np.asarray(report.seeds)
     axis.axhspan(report.loglik_mean - report.loglik_sd, report.loglik_mean + report.loglik_sd, color=_BAND,
@@ -31,10 +45,11 @@ def loglik_across_seeds(report, path) -> Path:
     axis.axhline(report.loglik_mean, color=_ACCENT, lw=1.0, label=f"mean {report.loglik_mean:.3f}")
     axis.errorbar(seeds, report.values, yerr=report.single_nse, fmt="o", ms=4, color=_INK, capsize=2,
                   label="one run +- its own NSE")
+    axis.xaxis.set_major_locator(MaxNLocator(integer=True))  # seeds are integers
     axis.set_xlabel("seed")
     axis.set_ylabel("log-likelihood estimate (natural log)")
     axis.set_title(f"EIS log-likelihood across {report.n_seeds} seeds ({report.model}, {report.n_draws} draws)")
-    axis.legend(fontsize=8, loc="best")
+    _legend_below(axis, 3)
     axis.grid(alpha=0.3)
     return _save(figure, path)
 
@@ -45,7 +60,7 @@ def weight_tail(report, path) -> Path:
     A generalised Pareto tail with shape xi > 0 falls with slope -1/xi far out; the line of
     xi = 1/2 (slope -2), the edge of a finite variance, is drawn for comparison.
     """
-    figure = Figure(figsize=(7, 5))
+    figure = _figure((7, 5))
     axis = figure.subplots()
     if report.degenerate:
         axis.text(0.5, 0.5, "all weights equal (exact sampler):\nno tail to show", ha="center", va="center",
@@ -74,16 +89,16 @@ def weight_tail(report, path) -> Path:
     edge = fraction * (grid / threshold) ** -2.0
     axis.loglog(grid, edge, color="grey", ls="--", lw=1.0, label="xi = 1/2 (edge of finite variance)")
     axis.set_xlabel("weight relative to the largest weight (log scale)")
-    axis.set_ylabel("fraction of draws with a weight at least this large (log scale)")
+    axis.set_ylabel("fraction of draws at least this large (log scale)")
     axis.set_title(f"Tail of the importance weights ({report.tail.verdict}; {n} draws)")
-    axis.legend(fontsize=8, loc="lower left")
+    _legend_below(axis, 2)
     axis.grid(alpha=0.3, which="both")
     return _save(figure, path)
 
 
 def nse_against_draws(report, path) -> Path:
     """NSE from the spread over seeds against S, and NSE sqrt(S), which is flat under 1/sqrt(S)."""
-    figure = Figure(figsize=(11, 4))
+    figure = _figure((12, 5))
     left, right = figure.subplots(1, 2)
     if not report.scaling:
         for axis in (left, right):
@@ -100,28 +115,30 @@ def nse_against_draws(report, path) -> Path:
     left.loglog(draws, np.maximum(single, 1e-300), "s:", color=_ACCENT, ms=4, label="single-run NSE (rms)")
     left.loglog(draws, sd[-1] * np.sqrt(draws[-1] / draws), "--", color="grey", label="1/sqrt(S) through largest S")
     left.set_xlabel("draws S (log scale)")
-    left.set_ylabel("NSE of log-likelihood (log units, log scale)")
+    left.set_ylabel("NSE (log-likelihood units)")
     left.set_title(f"NSE against draws (slope {report.scaling_slope:.2f}; -0.5 expected)")
-    left.legend(fontsize=8)
+    _legend_below(left, 2)
     left.grid(alpha=0.3, which="both")
     right.errorbar(draws, scaled, yerr=[scaled - low, high - scaled], fmt="o-", color=_INK, capsize=3,
                    label="NSE sqrt(S) with 95% interval")
     right.axhline(scaled[-1], color="grey", ls="--", lw=1.0, label="value at the largest S")
     off = [not r.consistent for r in report.scaling]
     if any(off):
-        right.plot(draws[off], scaled[off], "x", color=_ACCENT, ms=10, mew=2, label="off the 1/sqrt(S) law")
+        right.plot(draws[off], scaled[off], "x", color=_ACCENT, ms=10, mew=2, label="before the flat stretch")
     right.set_xscale("log")
     right.set_xlabel("draws S (log scale)")
-    right.set_ylabel("NSE x sqrt(S) (log units)")
-    right.set_title(f"Scaled NSE: flat from S = {report.scaling_holds_from}")
-    right.legend(fontsize=8)
+    right.set_ylabel("NSE x sqrt(S)")
+    flat = report.scaling_holds_from
+    right.set_title("Scaled NSE: " + ("flat over the grid" if flat == report.scaling[0].n_draws
+                                      else f"intervals overlap from S = {flat}"))
+    _legend_below(right, 2)
     right.grid(alpha=0.3)
     return _save(figure, path)
 
 
 def period_contributions(report, path) -> Path:
     """Each period's share of the variance of the log weight, and the EIS regression R^2 per period."""
-    figure = Figure(figsize=(10, 6))
+    figure = _figure((10, 6))
     top, bottom = figure.subplots(2, 1, sharex=True)
     t = np.arange(report.n_periods)
     top.vlines(t, 0, report.period_shares, color=_INK, lw=0.8)
@@ -137,7 +154,7 @@ def period_contributions(report, path) -> Path:
     bottom.set_ylim(min(0.0, float(np.min(report.r_squared))), 1.02)
     if report.dates:
         ticks = np.linspace(0, report.n_periods - 1, 6).astype(int)
-        bottom.set_xticks(ticks, [report.dates[i] for i in ticks], fontsize=8)
+        bottom.set_xticks(ticks, [report.dates[i] for i in ticks], fontsize=8, rotation=30, ha="right")
         bottom.set_xlabel("date")
     else:
         bottom.set_xlabel("period")
@@ -146,9 +163,16 @@ def period_contributions(report, path) -> Path:
     return _save(figure, path)
 
 
+_MAKERS = (loglik_across_seeds, weight_tail, nse_against_draws, period_contributions)
+
+
+def draw_all(report) -> dict[str, Figure]:
+    """The four figures of a health report as Figure objects, by file name, without writing them."""
+    return {name: make(report, None) for make, name in zip(_MAKERS, FILES)}
+
+
 def all_figures(report, folder) -> list[Path]:
     """The four figures of a health report, written into ``folder``."""
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    makers = (loglik_across_seeds, weight_tail, nse_against_draws, period_contributions)
-    return [make(report, folder / name) for make, name in zip(makers, FILES)]
+    return [make(report, folder / name) for make, name in zip(_MAKERS, FILES)]

@@ -13,9 +13,11 @@ from pathlib import Path
 from typing import NamedTuple
 
 import numpy as np
+from scipy import stats
 
 from smle.diagnostics import weight_tail
-from smle.results import CAUTION
+from smle import report_text as layout
+from smle.results import CAUTION, low_ess_warning
 
 MIN_SEEDS = 3
 """Fewest seeds :func:`check` accepts: a spread needs at least 2, and 3 gives a first idea."""
@@ -36,7 +38,7 @@ DEGENERATE_SPREAD = 1e-8
 
 AGREEMENT_LEVEL = 0.01
 """Two-sided level of the chi-square check of single-run NSE against the spread over seeds, and
-of the F comparisons of NSE sqrt(S) across S."""
+of the test of the log-log slope of the NSE against S for -1/2."""
 
 SCALING_MIN_SEEDS = 10
 """Fewest seeds (with at least 3 grid points) at which the NSE scaling enters the verdict; below,
@@ -55,8 +57,8 @@ class ScalingRow(NamedTuple):
       scaled_low, scaled_high: 95% interval of ``scaled`` from the chi-square law of the
         sample variance of R normal values.
       single_nse: root mean square of the runs' own delta-method NSEs.
-      consistent: whether ``scaled`` agrees with the value at the largest S (two-sided F test at
-        ``AGREEMENT_LEVEL``).
+      consistent: whether S is in the flat stretch: its 95% interval and those of every larger S
+        share a value (see ``scaling_holds_from``).
     """
 
     n_draws: int
@@ -66,6 +68,30 @@ class ScalingRow(NamedTuple):
     scaled_high: float
     single_nse: float
     consistent: bool
+
+
+def scaling_statement(rows: list, slope: float, slope_se: float, holds_from: int) -> str:
+    """What the NSE-against-S table shows, derived from its printed numbers (one sentence).
+
+    Flat means both: the 95% intervals of NSE sqrt(S) over the whole grid share a value, and the
+    log-log slope is within the two-sided ``AGREEMENT_LEVEL`` critical value of -1/2 in its se.
+    """
+    scaled = [r.scaled for r in rows]
+    crit = float(stats.norm.ppf(1 - AGREEMENT_LEVEL / 2))
+    z = (slope + 0.5) / slope_se if slope_se > 0 else 0.0
+    slope_ok = math.isfinite(z) and abs(z) <= crit
+    slope_text = (f"log-log slope {slope:.3f} (se {slope_se:.3f}) "
+                  + (f"within {crit:.2f} se of -0.5" if slope_ok else f"{abs(z):.1f} se from -0.5"))
+    span = f"NSE sqrt(S) runs from {min(scaled):.3f} to {max(scaled):.3f}"
+    if holds_from == rows[0].n_draws:
+        if slope_ok:
+            return f"NSE sqrt(S) is flat over the grid: its 95% intervals share a value and the {slope_text}"
+        return f"{span}; its 95% intervals share a value but the {slope_text}, so it is not flat"
+    if holds_from == rows[-1].n_draws:
+        return (f"{span} and is not flat: the 95% interval at S = {rows[-2].n_draws} misses the one at S = "
+                f"{rows[-1].n_draws}; {slope_text}")
+    return (f"{span}; its 95% intervals share a value only from S = {holds_from} on (flat from there); "
+            f"{slope_text}")
 
 
 class Period(NamedTuple):
@@ -114,8 +140,8 @@ class HealthReport:
       scaling: one :class:`ScalingRow` per S of the draws grid (empty when not measured).
       scaling_slope, scaling_slope_se: least-squares slope of log sd on log S (-1/2 under the
         1/sqrt(S) law) and its standard error (Var log sd ~ 1 / (2 (R - 1))).
-      scaling_holds_from: smallest S of the grid from which every larger S is consistent
-        with the largest (None when not measured).
+      scaling_holds_from: smallest S of the grid from which the 95% intervals of NSE sqrt(S) all
+        share a value (None when not measured); :func:`scaling_statement` says it in words.
       findings: one sentence per check.
       verdict: 'healthy', 'doubtful' or 'unreliable'; reason: the decisive findings in words.
       control_variates: the control variates of the seed and grid runs (None: none); with them,
@@ -220,71 +246,83 @@ class HealthReport:
 
     # -- text ------------------------------------------------------------------------------------
     def summary(self) -> str:
-        """The report as plain text, in smle's own layout."""
-        width = 78
-        rule = "-" * width
+        """The report as plain text, in smle's report layout (:mod:`smle.report_text`)."""
         params = ", ".join(f"{k}={v:.6g}" for k, v in self.params.items())
-        lines = [
-            f"smle check  |  model {self.model}  |  {self.n_periods} periods  |  verdict: {self.verdict.upper()}",
-            f"at {params}",
-            rule,
-            f"log-likelihood over {self.n_seeds} seeds ({self.n_draws} draws{', antithetic' if self.antithetic else ''})",
-            f"  mean {self.loglik_mean:.4f}   spread (sd) {self.loglik_sd:.4f}   "
-            f"range [{self.values.min():.4f}, {self.values.max():.4f}]",
-            f"  NSE of one run: {self.loglik_sd:.4f} from the spread, {self.nse_single:.4f} from single-run "
-            f"weights (ratio {self.nse_ratio:.2f}; agreement range {self.nse_ratio_range[0]:.2f}-"
-            f"{self.nse_ratio_range[1]:.2f})",
-            f"  NSE of the mean of the seeds {self.nse_of_mean:.4f}   bias-corrected mean "
-            f"{self.loglik_bias_corrected:.4f}",
-            f"  ESS per run: mean {self.ess.mean():.1f} of {self.n_draws} (min {self.ess.min():.1f})",
+        return layout.render(
+            layout.title("check", f"model {self.model}", f"{self.n_periods} periods", f"verdict: {self.verdict}"),
+            [layout.block("Parameters checked", [params]), self._spread_block(), self._tail_block(),
+             self._convergence_block(), self._scaling_block(),
+             layout.block("Findings", [f"- {f}" for f in self.findings]),
+             layout.block("Verdict", [f"verdict: {self.verdict} -- {self.reason}"])],
+            CAUTION)
+
+    def _spread_block(self) -> list[str]:
+        heading = (f"Log-likelihood over {self.n_seeds} seeds "
+                   f"({self.n_draws} draws{', antithetic' if self.antithetic else ''})")
+        low, high = self.nse_ratio_range
+        return layout.block(heading, [
+            layout.field("mean", f"{self.loglik_mean:.4f} (bias-corrected {self.loglik_bias_corrected:.4f}; "
+                                 f"NSE of the mean {self.nse_of_mean:.4f})"),
+            layout.field("spread (sd)", f"{self.loglik_sd:.4f}, range {self.values.min():.4f} to "
+                                        f"{self.values.max():.4f}"),
+            layout.field("NSE of one run", f"{self.loglik_sd:.4f} from the spread, {self.nse_single:.4f} from "
+                                           f"single-run weights (ratio {self.nse_ratio:.2f}; agreement range "
+                                           f"{low:.2f} to {high:.2f})"),
+            layout.field("effective sample size", f"mean {self.ess.mean():.1f} of {self.n_draws} draws, "
+                                                  f"lowest {self.ess.min():.1f}"),
+            *low_ess_warning(float(self.ess.min()), self.n_draws, "draws", " (lowest run)"),
             *self._control_variate_lines(),
-            rule,
-            f"weight tail ({self.tail_draws} scoring draws, {self.tail_scoring}; ESS {self.tail_ess:.1f})",
-        ]
+        ])
+
+    def _tail_block(self) -> list[str]:
+        heading = f"Weight tail ({self.tail_draws} scoring draws, {self.tail_scoring}; ESS {self.tail_ess:.1f})"
         if self.degenerate:
-            lines.append("  all weights are equal (to rounding): the sampler is exact, as for a linear Gaussian model;")
-            lines.append("  there is no tail and the simulation error is zero")
+            return layout.block(heading, [
+                "all weights are equal (to rounding): the sampler is exact, as for a linear Gaussian model;",
+                "there is no tail and the simulation error is zero"])
+        k = self.tail.k_hat
+        severity, reading = weight_tail.k_hat_reading(k)
+        lines = [layout.field("Pareto k-hat", f"{k.k_hat:.3f} from the largest {k.n_tail} weights"),
+                 layout.field("limits", weight_tail.k_hat_limits(k)),
+                 layout.field("reading", reading + (f" ({severity})" if severity else ""))]
+        if self.tail.tests:
+            lines.append("tests of H0: xi <= 1/2 (finite variance), one-sided (Koopman, Shephard and Creal 2009):")
+            for t in self.tail.tests:
+                lines.append(f"  largest {t.fraction:.0%} ({t.fit.n_exceedances} weights): xi {t.fit.xi:.3f} "
+                             f"(se {t.fit.se_xi:.3f}); Wald {t.wald:.2f}, p {t.wald_p_value:.3f}; "
+                             f"LR {t.lr:.2f}, p {t.lr_p_value:.3f}")
         else:
-            k = self.tail.k_hat
-            lines.append(f"  Pareto k-hat {k.k_hat:.3f} from the largest {k.n_tail} weights   "
-                         f"good below {k.good_below:.3f}; above 0.7 unreliable")
-            if self.tail.tests:
-                lines.append(f"  {'largest':>9}{'exceed.':>9}{'xi':>8}{'se':>7}{'Wald':>8}{'p':>8}{'LR':>8}{'p':>8}")
-                for t in self.tail.tests:
-                    lines.append(f"  {t.fraction:>8.0%} {t.fit.n_exceedances:>8d}{t.fit.xi:>8.3f}{t.fit.se_xi:>7.3f}"
-                                 f"{t.wald:>8.2f}{t.wald_p_value:>8.3f}{t.lr:>8.2f}{t.lr_p_value:>8.3f}")
-                lines.append("  H0: xi <= 1/2 (finite variance); one-sided p-values (Koopman, Shephard and Creal 2009)")
-            else:
-                lines.append(f"  no threshold leaves {weight_tail.MIN_EXCEEDANCES} exceedances: "
-                             f"use at least {FULL_TAIL_DRAWS} tail draws for the tests")
-            lines.append(f"  tail: {self.tail.verdict}")
-        lines += [
-            rule,
-            f"EIS convergence: {int(self.converged.sum())} of {self.n_seeds} runs converged, iterations "
-            f"{int(self.iterations.min())}-{int(self.iterations.max())}, largest last change "
+            lines.append(f"no threshold leaves {weight_tail.MIN_EXCEEDANCES} exceedances: "
+                         f"use at least {FULL_TAIL_DRAWS} tail draws for the tests")
+        lines.append(layout.field("tail", self.tail.verdict))
+        return layout.block(heading, lines)
+
+    def _convergence_block(self) -> list[str]:
+        lines = [
+            f"{int(self.converged.sum())} of {self.n_seeds} runs converged, iterations "
+            f"{int(self.iterations.min())} to {int(self.iterations.max())}, largest last change "
             f"{self.last_change.max():.1e} (tolerance {self.tol:g})",
-            f"  regression R^2 per period: min {self.r_squared.min():.3f} (period "
-            f"{self._label(int(np.argmin(self.r_squared)))}), median {np.median(self.r_squared):.3f}",
+            layout.field("regression R^2 per period", f"lowest {self.r_squared.min():.3f} (period "
+                         f"{self._label(int(np.argmin(self.r_squared)))}), median {np.median(self.r_squared):.3f}"),
         ]
         if not self.degenerate:
             lines.append("periods driving the variance of the log weight (share of var log w; R^2):")
-            for p in self.top_periods:
-                lines.append(f"  {self._label(p.index):>14}  {p.share:>7.1%}   R^2 {p.r_squared:.3f}")
-        lines.append(rule)
-        if self.scaling:
-            lines.append(f"NSE against draws ({self.n_seeds} seeds each): NSE sqrt(S) is flat under 1/sqrt(S)")
-            lines.append(f"  {'S':>6}{'NSE':>10}{'NSE sqrt(S)':>14}{'95% interval':>20}{'single-run':>12}")
-            for row in self.scaling:
-                mark = "" if row.consistent else "  <- off"
-                lines.append(f"  {row.n_draws:>6d}{row.sd:>10.4f}{row.scaled:>14.3f}"
-                             f"{f'[{row.scaled_low:.3f}, {row.scaled_high:.3f}]':>20}{row.single_nse:>12.4f}{mark}")
-            lines.append(f"  log-log slope {self.scaling_slope:.3f} (se {self.scaling_slope_se:.3f}; 1/sqrt(S) "
-                         f"gives -0.5); the scaling holds from S = {self.scaling_holds_from}")
-            lines.append(rule)
-        lines.append("findings:")
-        lines += [f"  * {f}" for f in self.findings]
-        lines += [rule, f"verdict: {self.verdict} -- {self.reason}", rule, CAUTION]
-        return "\n".join(lines)
+            lines += [f"  {self._label(p.index)}: {p.share:.1%}, R^2 {p.r_squared:.3f}" for p in self.top_periods]
+        return layout.block("EIS convergence", lines)
+
+    def _scaling_block(self) -> list[str]:
+        if not self.scaling:
+            return []
+        lines = []
+        for row in self.scaling:
+            mark = "" if row.consistent else "; before the flat stretch"
+            lines.append(f"S = {row.n_draws}: NSE {row.sd:.4f}, NSE sqrt(S) {row.scaled:.3f} "
+                         f"(95% interval {row.scaled_low:.3f} to {row.scaled_high:.3f}), single-run "
+                         f"{row.single_nse:.4f}{mark}")
+        lines.append(scaling_statement(self.scaling, self.scaling_slope, self.scaling_slope_se,
+                                       self.scaling_holds_from))
+        return layout.block(f"NSE against draws ({self.n_seeds} seeds each; 1/sqrt(S) makes NSE sqrt(S) flat)",
+                            lines)
 
     def __str__(self) -> str:
         return self.summary()
@@ -293,11 +331,11 @@ class HealthReport:
         if not self.control_variates:
             return []
         low, high = self.variance_reduction_range
-        lines = [f"  control variates {self.control_variates!r}: spread {self.loglik_sd:.4f} with, "
+        lines = [f"control variates {self.control_variates!r}: spread {self.loglik_sd:.4f} with, "
                  f"{self.loglik_sd_uncorrected:.4f} without; variance reduction x{self.variance_reduction:.2f} "
                  f"(rough 95% interval {low:.2f}-{high:.2f})"]
         if math.isfinite(self.cv_coefficient_across_seeds):
-            lines.append(f"  independent control: best coefficient across seeds {self.cv_coefficient_across_seeds:.3f}"
+            lines.append(f"independent control: best coefficient across seeds {self.cv_coefficient_across_seeds:.3f}"
                          f" (reduction x{self.variance_reduction_at_best:.2f} on these seeds, optimistic; "
                          "loglik regresses it per run by default)")
         return lines

@@ -6,31 +6,54 @@ from pathlib import Path
 
 import numpy as np
 from matplotlib.figure import Figure
+from matplotlib.ticker import MaxNLocator
 
 from smle.diagnostics.residual_tests import autocorrelations
 
 
 def _subplots(*args, figsize, **kwargs):
-    """A figure and its axes without pyplot, so that drawing here leaves a notebook's backend alone."""
-    figure = Figure(figsize=figsize)
+    """A figure and its axes without pyplot, so that drawing here leaves a notebook's backend alone;
+    constrained layout keeps labels, titles and the legends under the axes from overlapping."""
+    figure = Figure(figsize=figsize, layout="constrained")
     return figure, figure.subplots(*args, **kwargs)
 
 
-def data_and_factor(result, y, label: str, path) -> Path:
-    """Two panels: the data, and the smoothed latent factor with its 90% band."""
+def _legend_below(axis, columns: int = 3) -> None:
+    """The legend under the axes, outside them, so that it covers no point, bar or band."""
+    axis.legend(fontsize=8, loc="upper center", bbox_to_anchor=(0.5, -0.18), ncols=columns, frameon=False)
+
+
+def factor_shown(model_name: str, options: dict | None, params: dict | None, *states):
+    """The states as the model shows its factor (``Model.factor_display``) and the label:
+    ``(label, shown_1, shown_2, ...)``. Without parameters, the states themselves."""
+    from smle.models import saved_model
+
+    model = saved_model(model_name, options)
+    if params is None:
+        return (model.factor_name, *(np.asarray(x, float) for x in states))
+    shown = [model.factor_display(params, x) for x in states]
+    return (shown[0][1], *(values for values, _ in shown))
+
+
+def data_and_factor(result, y, label: str, path) -> Path | Figure:
+    """Two panels: the data, and the smoothed factor with its 90% band, as the model shows it
+    (``Model.factor_display``: the mixing factor of garch-mix, the volatility of the sv family).
+    With ``path=None`` the figure is returned instead of written."""
     y = np.asarray(y)
     t = np.arange(len(result.smoothed_mean))
-    figure, (top, bottom) = _subplots(2, 1, figsize=(10, 6), sharex=True)
+    name, mean, lower, upper = factor_shown(result.model, result.model_options, result.params,
+                                            result.smoothed_mean, result.smoothed_lower, result.smoothed_upper)
+    figure, (top, bottom) = _subplots(2, 1, figsize=(10, 6.5), sharex=True)
     top.plot(t, y if y.ndim == 1 else y[:, 0], lw=0.6, color="#33506e")
     top.set_ylabel(label)
-    top.set_title(f"Data and smoothed {result.factor_name} ({result.model}, {result.n_obs} periods)")
-    bottom.fill_between(t, result.smoothed_lower, result.smoothed_upper, color="#e3a857", alpha=0.45,
-                        label="5%-95% posterior band")
-    bottom.plot(t, result.smoothed_mean, color="#8c3b1e", lw=0.9, label="posterior mean")
-    bottom.set_ylabel(result.factor_name)
+    top.set_title(f"Data and smoothed factor ({result.model}, {result.n_obs} periods)")
+    bottom.fill_between(t, lower, upper, color="#e3a857", alpha=0.45, label="5%-95% posterior band")
+    bottom.plot(t, mean, color="#8c3b1e", lw=0.9, label="at the posterior mean of the state")
+    bottom.set_ylabel(name)
     bottom.set_xlabel("period")
-    bottom.legend(loc="upper right", fontsize=8)
-    figure.tight_layout()
+    _legend_below(bottom, 2)
+    if path is None:
+        return figure
     figure.savefig(path, dpi=110)
     return Path(path)
 
@@ -39,12 +62,12 @@ def log_weights(result, path) -> Path:
     """Sorted log importance weights at the estimate, relative to their maximum."""
     w = np.sort(np.asarray(result.log_weights) - np.max(result.log_weights))[::-1]
     figure, axis = _subplots(figsize=(7, 4))
+    axis.xaxis.set_major_locator(MaxNLocator(integer=True))  # ranks are integers
     axis.plot(np.arange(1, len(w) + 1), w, marker="o", ms=3, lw=0.8, color="#33506e")
     axis.set_xlabel("rank of draw (largest weight first)")
     axis.set_ylabel("log weight minus largest log weight")
     axis.set_title(f"EIS log-weights at the estimate (ESS {result.eis['ess']:.1f} of {len(w)})")
     axis.grid(alpha=0.3)
-    figure.tight_layout()
     figure.savefig(path, dpi=110)
     return Path(path)
 
@@ -67,16 +90,19 @@ def diagnostics_figures(diagnostics, folder) -> list[Path]:
     Q-Q plot of the normal scores, PIT histogram with a 95% band, autocorrelation of the scores
     and squared scores with 95% bands, and the filtered and smoothed factor paths."""
     folder = Path(folder)
-    figures = ((_qq_scores, "qq_scores.png"), (_pit_histogram, "pit_histogram.png"),
-               (_autocorrelation_scores, "autocorrelation_scores.png"),
-               (_factor_filtered_smoothed, "factor_filtered_smoothed.png"))
     paths = []
-    for draw, name in figures:
-        figure = draw(diagnostics)
-        figure.tight_layout()
+    for name, figure in draw_diagnostics(diagnostics).items():
         paths.append(folder / name)
         figure.savefig(paths[-1], dpi=110)
     return paths
+
+
+def draw_diagnostics(diagnostics) -> dict[str, Figure]:
+    """The four goodness-of-fit figures as Figure objects, by file name, without writing them."""
+    figures = ((_qq_scores, "qq_scores.png"), (_pit_histogram, "pit_histogram.png"),
+               (_autocorrelation_scores, "autocorrelation_scores.png"),
+               (_factor_filtered_smoothed, "factor_filtered_smoothed.png"))
+    return {name: draw(diagnostics) for draw, name in figures}
 
 
 def _qq_scores(d) -> Figure:
@@ -97,7 +123,7 @@ def _qq_scores(d) -> Figure:
         axis.set_xlabel("standard normal quantile (no unit)")
         axis.set_ylabel("ordered normal score (no unit)")
         axis.set_title(f"Q-Q plot of {d.series[k]} normal scores ({d.model})")
-        axis.legend(loc="upper left", fontsize=8)
+        _legend_below(axis)
         axis.grid(alpha=0.3)
     return figure
 
@@ -118,7 +144,7 @@ def _pit_histogram(d) -> Figure:
         axis.set_xlabel("probability integral transform (no unit)")
         axis.set_ylabel("density (no unit)")
         axis.set_title(f"Histogram of {d.series[k]} PITs ({n} periods)")
-        axis.legend(loc="lower center", fontsize=8)
+        _legend_below(axis, 2)
     return figure
 
 
@@ -138,21 +164,23 @@ def _autocorrelation_scores(d) -> Figure:
             axis.set_xlabel("lag (periods)")
             axis.set_ylabel("autocorrelation (no unit)")
             axis.set_title(f"Autocorrelation of {d.series[k]} {what}")
-            axis.legend(loc="upper right", fontsize=8)
+            _legend_below(axis, 1)
     return figure
 
 
 def _factor_filtered_smoothed(d) -> Figure:
-    """Factor paths: filtered (data up to t) and smoothed (all data)."""
+    """Factor paths: filtered (data up to t) and smoothed (all data), as the model shows its factor."""
     f = d.filter
     t = np.arange(1, d.scores.shape[0] + 1)
-    figure, axis = _subplots(figsize=(10, 4.2))
-    axis.fill_between(t, f.filtered_lower, f.filtered_upper, color="#9fb8d0", alpha=0.5, label="filtered 5%-95%")
-    axis.plot(t, f.filtered_mean, color="#33506e", lw=0.8, label="filtered mean (data up to t)")
-    axis.plot(t, d.smoothed_mean, color="#8c3b1e", lw=0.8, label="smoothed mean (all data)")
+    name, low, high, filtered, smoothed = factor_shown(d.model, d.model_options, d.params, f.filtered_lower,
+                                                       f.filtered_upper, f.filtered_mean, d.smoothed_mean)
+    figure, axis = _subplots(figsize=(10, 4.8))
+    axis.fill_between(t, low, high, color="#9fb8d0", alpha=0.5, label="filtered 5%-95%")
+    axis.plot(t, filtered, color="#33506e", lw=0.8, label="at the filtered mean (data up to t)")
+    axis.plot(t, smoothed, color="#8c3b1e", lw=0.8, label="at the smoothed mean (all data)")
     axis.set_xlabel("period")
-    axis.set_ylabel(f"{f.factor_name} (model units)")
-    axis.set_title(f"Filtered and smoothed {f.factor_name} ({d.model}, {f.n_particles} particles)")
-    axis.legend(loc="upper right", fontsize=8)
+    axis.set_ylabel(name)
+    axis.set_title(f"Filtered and smoothed factor ({d.model}, {f.n_particles} particles)")
+    _legend_below(axis)
     axis.grid(alpha=0.3)
     return figure

@@ -42,6 +42,10 @@ DEFAULT_THRESHOLDS = (0.01, 0.05, 0.10, 0.20)
 """Fractions of the largest weights used as exceedances by :func:`tail_test`."""
 
 FINITE_VARIANCE_XI = 0.5
+"""GPD shape at the edge of a finite variance of the weights."""
+
+K_HAT_LIMIT = 0.7
+"""k-hat at and above which an importance-sampling estimate is unusable (Vehtari et al. 2024)."""
 
 
 class ThresholdTest(NamedTuple):
@@ -228,14 +232,48 @@ def pareto_k_hat(log_weights) -> ParetoKHat:
     return ParetoKHat(fit.xi, good_below, n_tail, n_weights, fit)
 
 
+def k_hat_limits(k: ParetoKHat) -> str:
+    """The k-hat limits the reading uses, in words (printed beside k-hat in reports)."""
+    return (f"finite variance up to {FINITE_VARIANCE_XI:g}; sample-size limit {k.good_below:.3f} for "
+            f"{k.n_weights} weights (Vehtari et al. 2024); {K_HAT_LIMIT:g} and above unusable")
+
+
+def k_hat_reading(k: ParetoKHat) -> tuple[str | None, str]:
+    """What k-hat says: ``(severity, sentence)``, severity None, 'doubtful' or 'unreliable'.
+
+    One rule for the verdict and the text (so the two cannot disagree):
+      * k-hat <= 1/2 (and within the sample-size limit): the weights' variance is finite, the
+        NSE is valid -- no severity;
+      * 1/2 < k-hat < the sample-size limit min(1 - 1 / log10 S, 0.7): the variance is probably
+        infinite, so the NSE is not to be trusted, although the estimate itself still converges
+        (Vehtari et al. 2024, for Pareto-smoothed estimates) -- 'doubtful';
+      * the limit <= k-hat < 0.7: too few draws for a tail this heavy -- 'doubtful';
+      * k-hat >= 0.7: 'unreliable' whatever S.
+    (Since S >= 100, the sample-size limit is at least 1/2.)
+    """
+    where = f"k-hat {k.k_hat:.3f} (largest {k.n_tail} of {k.n_weights} weights)"
+    if k.k_hat >= K_HAT_LIMIT:
+        return "unreliable", (f"{where} is at least {K_HAT_LIMIT:g}: the weights' variance is infinite and even "
+                              "the mean converges too slowly for the estimate to be trusted")
+    if k.k_hat >= k.good_below:
+        return "doubtful", (f"{where} is at or above {k.good_below:.3f}, the sample-size limit for "
+                            f"{k.n_weights} weights: use more draws")
+    if k.k_hat > FINITE_VARIANCE_XI:
+        return "doubtful", (f"{where} is above {FINITE_VARIANCE_XI:g}: the weights' variance is probably "
+                            f"infinite, so the NSE is not to be trusted (it is below the sample-size limit "
+                            f"{k.good_below:.3f}, so the estimate itself still converges)")
+    return None, f"{where} is at most {FINITE_VARIANCE_XI:g}: the weights' variance looks finite"
+
+
 def tail_verdict(log_weights, level: float = 0.05) -> TailVerdict:
     """Judge the weights' tail: 'healthy', 'doubtful' or 'unreliable', with the reason.
 
     Rules, first match wins:
       * 'unreliable' if k-hat >= 0.7, or the Wald test rejects a finite variance at
         ``level`` at every threshold tried;
-      * 'doubtful' if k-hat > 0.5 (infinite variance likely), k-hat is above the
-        sample-size threshold min(1 - 1 / log10(S), 0.7), or some test rejects;
+      * 'doubtful' if k-hat > 0.5 (infinite variance likely) or k-hat is at or above the
+        sample-size limit min(1 - 1 / log10(S), 0.7) (see :func:`k_hat_reading`, which gives
+        the verdict and the words), or some test rejects;
       * 'healthy' otherwise.
     The tests use those of ``DEFAULT_THRESHOLDS`` that leave enough exceedances.
 
@@ -256,31 +294,20 @@ def tail_verdict(log_weights, level: float = 0.05) -> TailVerdict:
     rejected = [t for t in tests if math.isfinite(t.wald_p_value) and t.wald_p_value < level]
     reject_text = ", ".join(f"{t.fraction:g} (xi = {t.fit.xi:.2f}, p = {t.wald_p_value:.3g})"
                             for t in rejected)
-    k_text = f"k-hat = {k.k_hat:.2f} from the largest {k.n_tail} of {k.n_weights} weights"
-
-    if k.k_hat >= 0.7:
-        verdict = "unreliable"
-        reason = (f"{k_text} is at least 0.7: the weights' variance is infinite and even "
-                  "the mean converges too slowly for the estimate to be trusted")
+    k_verdict, k_text = k_hat_reading(k)
+    if k_verdict == "unreliable":
+        verdict, reason = k_verdict, k_text
     elif tests and len(rejected) == len(tests):
         verdict = "unreliable"
         reason = (f"a finite variance is rejected at level {level:g} at every threshold "
                   f"(fractions {reject_text}); {k_text}")
-    elif k.k_hat > 0.5:
-        verdict = "doubtful"
-        reason = (f"{k_text} is above 0.5: the weights' variance is probably infinite, so "
-                  "the numerical standard error is not to be trusted")
-    elif k.k_hat > k.good_below:
-        verdict = "doubtful"
-        reason = (f"{k_text} is above {k.good_below:.2f}, the threshold for this number of "
-                  "weights: use more draws")
+    elif k_verdict == "doubtful":
+        verdict, reason = k_verdict, k_text
     elif rejected:
         verdict = "doubtful"
-        reason = (f"{k_text} is fine, but a finite variance is rejected at level {level:g} "
-                  f"at fractions {reject_text}")
+        reason = (f"{k_text}; but a finite variance is rejected at level {level:g} at fractions {reject_text}")
     else:
         tried = ", ".join(f"{t.fraction:g}" for t in tests) or "none (too few weights)"
         verdict = "healthy"
-        reason = (f"{k_text} is below {min(0.5, k.good_below):.2f} and no test rejects a "
-                  f"finite variance at level {level:g} (fractions tried: {tried})")
+        reason = f"{k_text}; no test rejects a finite variance at level {level:g} (fractions tried: {tried})"
     return TailVerdict(verdict, reason, k, tests, level)

@@ -47,6 +47,15 @@ def get_model(name, **options) -> Model:
         raise SmleInputError(f"bad options for model '{name}': {error}") from None
 
 
+def saved_model(name: str, options: dict | None) -> Model:
+    """The model a saved result names, built from its saved options (results written before options
+    were filtered carry the model's class attributes among them; only constructor fields are passed)."""
+    import dataclasses
+
+    fields = {f.name for f in dataclasses.fields(type(get_model(name)))}
+    return get_model(name, **{k: v for k, v in (options or {}).items() if k in fields})
+
+
 from smle.models import ar1_noise, garch, garch_mix, realized_sv, sv, sv_t  # noqa: E402,F401  (registration)
 
 __all__ = ["Model", "get_model", "model_names", "register"]

@@ -40,6 +40,7 @@ A model without a latent state (``state_dim = 0``, e.g. ``garch``) implements in
 state-space methods ``loglik_closed_form(params, y)`` (the exact log-likelihood, pure JAX),
 ``log_predictive(params, y)`` and ``predictive_cdf(params, y)`` (per period, shape (T,)), and
 ``factor_path(params, y)``: the path a fit reports in place of a smoothed factor.
+* ``factor_display(params, x)``: the quantity figures show for the factor (default: x itself).
 
 The engine knows nothing about any particular model.
 """
@@ -206,6 +207,16 @@ class Model:
         data hold leaves that are not indexed by time override this.
         """
         return jax.tree.map(lambda leaf: jax.lax.dynamic_slice_in_dim(leaf, t, 1, axis=0), data)
+
+
+    # -- figures -------------------------------------------------------------------------------
+    def factor_display(self, params: Mapping, x) -> tuple[np.ndarray, str]:
+        """``(values, label)``: what a figure of the factor shows at states ``x`` (any shape).
+
+        Must be increasing in x, so that quantiles of x map to quantiles of the shown quantity
+        (the posterior band stays a band). Default: the state itself, labelled ``factor_name``.
+        """
+        return np.asarray(x, float), self.factor_name
 
 
 def model_options(model: Model) -> dict:

@@ -289,6 +289,12 @@ class GarchMix(Model):
             return jnp.exp(s * x - 0.5 * s**2)
         return normal_to_inverse_gaussian(x, 1.0, params["lambda"])
 
+    def factor_display(self, params, x):
+        """The mixing factor W_t (mean 1) by the exact link: the standardised state looks like noise
+        in a figure, while W_t reads directly as the period's variance multiplier."""
+        w = self.mixing_exact({k: jnp.asarray(v, float) for k, v in params.items()}, jnp.asarray(x, float))
+        return np.asarray(w), "mixing factor W_t (mean 1)"
+
     # -- data --------------------------------------------------------------------------------
     def check_data(self, y):
         if self.realized:

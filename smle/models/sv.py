@@ -37,6 +37,12 @@ class LogVarianceState(Model):
 
     factor_name = "log variance x_t"
 
+    def factor_display(self, params, x):
+        """The volatility scale exp(x_t / 2), in the units of the observations: a log variance such
+        as -7.4 says little at a glance, its volatility 0.025 does (no percent: smle does not know
+        whether the returns are in percent)."""
+        return np.exp(0.5 * np.asarray(x, float)), "volatility exp(x_t / 2)"
+
     def state_constraints(self):
         return {
             "mu": P.real("mean log variance"),
