@@ -17,6 +17,7 @@ already imported, it updates ``jax.config`` directly.
 
 from __future__ import annotations
 
+import json
 import os
 import sys
 from pathlib import Path
@@ -58,3 +59,26 @@ def configure() -> None:
     for name, value in values.items():
         # JAX reads its settings from these variables when it is imported (jax 0.4 and later).
         os.environ[name.upper()] = "1" if value is True else str(value)
+
+
+def _timings_path() -> Path:
+    return cache_dir() / "compile_seconds.json"
+
+
+def compile_seconds(what: str) -> float | None:
+    """Seconds the last first evaluation of ``what`` took (compilation included), if recorded."""
+    try:
+        return float(json.loads(_timings_path().read_text())[what])
+    except (OSError, ValueError, KeyError, TypeError):
+        return None
+
+
+def remember_compile_seconds(what: str, seconds: float) -> None:
+    """Record how long a first evaluation of ``what`` took, for the next announcement."""
+    try:
+        path = _timings_path()
+        known = json.loads(path.read_text()) if path.exists() else {}
+        known[what] = round(float(seconds), 1)
+        path.write_text(json.dumps(known, indent=1))
+    except (OSError, ValueError, TypeError):
+        pass  # a read-only or damaged cache folder: the next announcement says 10-20 s

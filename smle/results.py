@@ -9,6 +9,8 @@ from pathlib import Path
 
 import numpy as np
 
+from smle.errors import SmleInputError
+
 CAUTION = (
     "Model estimates are statistical output, not investment advice; users remain responsible "
     "for decisions taken under their own rules."
@@ -46,6 +48,11 @@ class FitResult:
         across independent random numbers and the estimates themselves.
       observations: the data the model was fitted to, shape (T,) or (T, n_series), or None
         (stored in the JSON so that a saved result can be diagnosed on its own).
+      data_source: what was fitted, or None: ``file``, ``columns``, ``units`` (one per column,
+        None when not stated), ``first`` and ``last`` date (None without dates), ``n_obs``.
+      dates: the date of each period (ISO text), or None.
+      zero_returns: how many returns are exactly zero (kept as observations), or None for a
+        model whose first series is not a return.
     """
 
     model: str
@@ -77,6 +84,9 @@ class FitResult:
     simulation_std_errors: dict | None = None
     seed_estimates: list | None = None
     observations: np.ndarray | None = None
+    data_source: dict | None = None
+    dates: list | None = None
+    zero_returns: int | None = None
 
     @property
     def loglik_bias_corrected(self) -> float:
@@ -134,6 +144,7 @@ class FitResult:
         verdict = "yes" if self.converged else "NO"
         lines = [
             f"smle fit  |  model {self.model}  |  {self.n_obs} periods  |  converged: {verdict}",
+            *_data_lines(self),
             rule,
             f"{'parameter':<12}{'estimate':>12}{'std.err':>11}"
             + (f"{'sim.err':>10}" if self.simulation_std_errors else "")
@@ -165,6 +176,58 @@ class FitResult:
 
     def __str__(self) -> str:
         return self.summary()
+
+
+def _data_lines(result: FitResult) -> list[str]:
+    """The summary's lines on what was fitted (file, columns, units, dates) and its zero returns."""
+    lines = []
+    source = result.data_source
+    if source:
+        columns = source.get("columns") or []
+        units = source.get("units") or [None] * len(columns)
+        parts = [f"{c} ({u})" if u else str(c) for c, u in zip(columns, units)]
+        where = f"{source['file']}, " if source.get("file") else ""
+        what = f"column{'s' if len(parts) > 1 else ''} {', '.join(parts)}" if parts else "unnamed series"
+        span = f", {source['first']} to {source['last']}" if source.get("first") else ""
+        lines.append(f"data: {where}{what}{span}, T = {result.n_obs}")
+    if result.zero_returns:
+        lines.append(f"{result.zero_returns} zero returns (market holidays?) kept as observations")
+    return lines
+
+
+def describe_data(y, source=None, dates=None):
+    """``(values, data_source, dates)`` for :func:`smle.fit`: a pandas Series or DataFrame gives
+    its name(s) and, with a DatetimeIndex, its dates; ``source`` (a file name, or a mapping with
+    the keys of ``FitResult.data_source``) and ``dates`` override them."""
+    info = {}
+    index = getattr(y, "index", None)
+    if index is not None and hasattr(y, "to_numpy"):
+        names = list(y.columns) if hasattr(y, "columns") else ([y.name] if y.name is not None else [])
+        if names:
+            info["columns"] = [str(n) for n in names]
+        if dates is None and hasattr(index, "strftime"):
+            daily = bool((index == index.normalize()).all())
+            dates = list(index.strftime("%Y-%m-%d" if daily else "%Y-%m-%d %H:%M:%S"))
+        y = y.to_numpy(dtype=float)
+    if isinstance(source, (str, Path)):
+        info["file"] = str(source)
+    elif source is not None:
+        info.update(dict(source))
+    if dates is not None:
+        dates = [str(d) for d in dates]
+        if len(dates) != np.shape(y)[0]:
+            raise SmleInputError(f"dates has {len(dates)} entries for {np.shape(y)[0]} observations; "
+                                 "accepted: one date per period")
+        info.update(first=dates[0], last=dates[-1])
+    return y, (info or None), dates
+
+
+def count_zero_returns(model, y: np.ndarray) -> int | None:
+    """Exactly-zero values of the first series when it is a return (None otherwise)."""
+    if model.series_labels[0] != "return":
+        return None
+    first = y if y.ndim == 1 else y[:, 0]
+    return int(np.count_nonzero(first == 0.0))
 
 
 def _control_lines(eis: dict) -> list[str]:
