@@ -156,7 +156,9 @@ def _dated_columns(path, key, chosen, prices: bool, drop_missing: bool):
         notes = part.attrs.get("notes", []) if notes is None else notes
         for repair_made in part.attrs.get("repairs", []):
             say(f"{repair_made.action} {repair_made.label}: {repair_made.rule} ({repair_made.detail})")
-        parts.append(part.rename(column))
+        part = part.rename(column)
+        part.attrs = {}  # the readers' attrs hold arrays, which pandas cannot compare when joining
+        parts.append(part)
     for note in notes:
         say(f"note: {note}")
     table = pd.concat(parts, axis=1, join="inner")

@@ -11,6 +11,7 @@ field's type in words.
 from __future__ import annotations
 
 import dataclasses
+import re
 
 from smle.errors import SmleInputError
 
@@ -51,13 +52,48 @@ def accepted_text(model_class, field: dataclasses.Field) -> str:
     return _TYPE_WORDS.get(_type_name(field), "a value")
 
 
+def _shown(value) -> str:
+    return str(value).lower() if isinstance(value, bool) else repr(value)
+
+
+def _alternatives(model_class, field: dataclasses.Field) -> list:
+    """The other values of an option with a short list of values (a flag, named choices)."""
+    if _type_name(field) == "bool":
+        return [not field.default]
+    if _type_name(field) == "str":
+        return [v for v in re.findall(r"'([^']*)'", accepted_text(model_class, field)) if v != field.default]
+    return []
+
+
+def _difference(base, other) -> str:
+    """What changes between two instances of a model: parameters and observed series."""
+    before, after = base.param_names, other.param_names
+    parts = []
+    added = [f"{constraint.region(n)}" for n, constraint in other.constraints().items() if n not in before]
+    if added:
+        parts.append("adds " + ", ".join(added))
+    dropped = [n for n in before if n not in after]
+    if dropped:
+        parts.append("drops " + ", ".join(dropped))
+    if other.n_series != base.n_series:
+        parts.append("observed series: " + ", ".join(other.series_labels[:other.n_series]))
+    return "; ".join(parts)
+
+
 def describe_options(model_class) -> list[str]:
-    """One line per option: name, default and accepted values (for ``smle models``)."""
-    lines = []
-    for field in option_fields(model_class):
-        default = field.default
-        shown = str(default).lower() if isinstance(default, bool) else repr(default)
-        lines.append(f"--option {field.name}=...   default {shown}; accepted: {accepted_text(model_class, field)}")
+    """Lines on the options of a model (for ``smle models``): each one's default and accepted
+    values, and what a different value of a flag or a named choice changes."""
+    fields = option_fields(model_class)
+    if not fields:
+        return []
+    lines = ["options (--option NAME=VALUE):"]
+    base = model_class()
+    for field in fields:
+        lines.append(f"  {field.name}: default {_shown(field.default)}; accepted: {accepted_text(model_class, field)}")
+        for value in _alternatives(model_class, field):
+            change = _difference(base, model_class(**{field.name: value}))
+            if change:
+                lines.append(f"    with {field.name}={_shown(value).strip(chr(39))}: {change}")
     return lines
 
 

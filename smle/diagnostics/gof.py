@@ -90,6 +90,7 @@ class Diagnostics:
       factor_innovations: its standardised AR(1) innovations, shape (T - 1,).
       smoothed_mean, smoothed_lower, smoothed_upper: the fit's smoothed factor (for figures).
       tests: the :class:`TestResult` list; fit_loglik, fit_nse: the EIS log-likelihood and NSE.
+      dates: the date of each period (from the fit), or None; the figures' time axis.
     """
 
     model: str
@@ -105,6 +106,7 @@ class Diagnostics:
     tests: list
     fit_loglik: float
     fit_nse: float
+    dates: list | None = None
 
     @property
     def flagged(self) -> list:
@@ -261,7 +263,7 @@ def diagnose(
         factor_innovations=innovations, factor_path=path,
         smoothed_mean=np.asarray(result.smoothed_mean), smoothed_lower=np.asarray(result.smoothed_lower),
         smoothed_upper=np.asarray(result.smoothed_upper), tests=tests, fit_loglik=result.loglik,
-        fit_nse=result.nse,
+        fit_nse=result.nse, dates=getattr(result, "dates", None),
     )
 
 

@@ -16,8 +16,19 @@ def _subplots(*args, figsize, **kwargs):
     return figure, figure.subplots(*args, **kwargs)
 
 
+def time_axis(axis, n_periods: int, dates=None) -> None:
+    """Label the time axis of ``axis`` (positions 0 .. n_periods - 1) with dates when there are."""
+    if dates is not None and len(dates) == n_periods:
+        ticks = np.unique(np.linspace(0, n_periods - 1, 6).astype(int))
+        axis.set_xticks(ticks, [str(dates[i]) for i in ticks], fontsize=8)
+        axis.set_xlabel("date")
+    else:
+        axis.set_xlabel("period")
+
+
 def data_and_factor(result, y, label: str, path) -> Path:
-    """Two panels: the data, and the smoothed latent factor with its 90% band."""
+    """Two panels: the data, and the smoothed latent factor with its 90% band (dates on the time
+    axis when the result has them)."""
     y = np.asarray(y)
     t = np.arange(len(result.smoothed_mean))
     figure, (top, bottom) = _subplots(2, 1, figsize=(10, 6), sharex=True)
@@ -28,7 +39,7 @@ def data_and_factor(result, y, label: str, path) -> Path:
                         label="5%-95% posterior band")
     bottom.plot(t, result.smoothed_mean, color="#8c3b1e", lw=0.9, label="posterior mean")
     bottom.set_ylabel(result.factor_name)
-    bottom.set_xlabel("period")
+    time_axis(bottom, len(t), getattr(result, "dates", None))
     bottom.legend(loc="upper right", fontsize=8)
     figure.tight_layout()
     figure.savefig(path, dpi=110)
@@ -145,12 +156,12 @@ def _autocorrelation_scores(d) -> Figure:
 def _factor_filtered_smoothed(d) -> Figure:
     """Factor paths: filtered (data up to t) and smoothed (all data)."""
     f = d.filter
-    t = np.arange(1, d.scores.shape[0] + 1)
+    t = np.arange(d.scores.shape[0])
     figure, axis = _subplots(figsize=(10, 4.2))
     axis.fill_between(t, f.filtered_lower, f.filtered_upper, color="#9fb8d0", alpha=0.5, label="filtered 5%-95%")
     axis.plot(t, f.filtered_mean, color="#33506e", lw=0.8, label="filtered mean (data up to t)")
     axis.plot(t, d.smoothed_mean, color="#8c3b1e", lw=0.8, label="smoothed mean (all data)")
-    axis.set_xlabel("period")
+    time_axis(axis, len(t), d.dates)
     axis.set_ylabel(f"{f.factor_name} (model units)")
     axis.set_title(f"Filtered and smoothed {f.factor_name} ({d.model}, {f.n_particles} particles)")
     axis.legend(loc="upper right", fontsize=8)
