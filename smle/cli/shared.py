@@ -35,5 +35,5 @@ def add_column_options(parser, which: str = "") -> None:
                              "measure) of a table written by 'smle prepare', else the only numeric column")
     parser.add_argument("--prices", action="store_true",
                         help=f"the (first) column {which}holds prices: convert to percent log returns")
-    parser.add_argument("--drop-missing", action="store_true",
-                        help=f"drop rows {which}with a missing or bad value instead of failing")
+    parser.add_argument("--drop-bad-rows", "--drop-missing", dest="drop_missing", action="store_true",
+                        help=f"drop rows {which}with a missing or bad value (each one reported) instead of failing")
