@@ -235,6 +235,11 @@ def fit(
         extra.append(_fit_one(model, settings, control, y_jax, as_key(seed + offset), start_params, max_steps, gtol,
                               False))
     result = _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started)
+    return _with_data_facts(result, model, y, data_source, dates)
+
+
+def _with_data_facts(result: FitResult, model, y, data_source, dates) -> FitResult:
+    """The result with what was fitted (``data_source``), its dates and its zero returns."""
     if data_source is not None:
         data_source["n_obs"] = result.n_obs
     result.data_source, result.dates, result.zero_returns = data_source, dates, count_zero_returns(model, y)

@@ -198,3 +198,17 @@ def test_import_and_help_do_not_load_jax_and_computation_stays_float64():
                  "print(jnp.ones(1).dtype, jax.config.jax_compilation_cache_dir == str(_config.cache_dir()))")
     assert out.split() == ["float64", "True"]
     assert _fresh("import jax, smle, jax.numpy as jnp; print(jnp.ones(1).dtype)").strip() == "float64"
+
+
+def test_the_flags_the_data_layer_cites_exist(capsys):
+    from smle.data.checks import COMMAND_LINE_FLAGS
+
+    with pytest.raises(SystemExit):
+        cli.main(["prepare", "--help"])
+    prepare_help = " ".join(capsys.readouterr().out.split())  # argparse wraps lines
+    for argument, flag in COMMAND_LINE_FLAGS.items():
+        assert flag in prepare_help, (argument, flag)
+    assert "default 09:30" not in prepare_help and "inferred from the data" in prepare_help
+    with pytest.raises(SystemExit):
+        cli.main(["fit", "--help"])
+    assert COMMAND_LINE_FLAGS["repair"] in capsys.readouterr().out  # cited when a row of a fitted file is bad
