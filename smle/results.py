@@ -195,6 +195,14 @@ def _data_lines(result: FitResult) -> list[str]:
     return lines
 
 
+def date_texts(index) -> list[str] | None:
+    """ISO dates (with the time when some row has one) of a pandas DatetimeIndex, else None."""
+    if not hasattr(index, "strftime") or not hasattr(index, "normalize"):
+        return None
+    daily = bool((index == index.normalize()).all())
+    return list(index.strftime("%Y-%m-%d" if daily else "%Y-%m-%d %H:%M:%S"))
+
+
 def describe_data(y, source=None, dates=None):
     """``(values, data_source, dates)`` for :func:`smle.fit`: a pandas Series or DataFrame gives
     its name(s) and, with a DatetimeIndex, its dates; ``source`` (a file name, or a mapping with
@@ -205,9 +213,8 @@ def describe_data(y, source=None, dates=None):
         names = list(y.columns) if hasattr(y, "columns") else ([y.name] if y.name is not None else [])
         if names:
             info["columns"] = [str(n) for n in names]
-        if dates is None and hasattr(index, "strftime"):
-            daily = bool((index == index.normalize()).all())
-            dates = list(index.strftime("%Y-%m-%d" if daily else "%Y-%m-%d %H:%M:%S"))
+        if dates is None:
+            dates = date_texts(index)
         y = y.to_numpy(dtype=float)
     if isinstance(source, (str, Path)):
         info["file"] = str(source)

@@ -165,20 +165,12 @@ def _dated_columns(path, key, chosen, prices: bool, drop_missing: bool):
     return table.to_numpy(dtype=float), table.index
 
 
-def _date_texts(index) -> list[str] | None:
-    import pandas as pd
-
-    if not isinstance(index, pd.DatetimeIndex):
-        return None
-    daily = bool((index == index.normalize()).all())
-    return list(index.strftime("%Y-%m-%d" if daily else "%Y-%m-%d %H:%M:%S"))
-
-
 def read_observations(path, columns, prices: bool, drop_missing: bool, model=None) -> Observations:
     """The observations of ``model`` (default: one series) from a CSV or Parquet file."""
     import numpy as np
 
     from smle.data import readers
+    from smle.results import date_texts
 
     if not Path(path).exists():
         raise SmleInputError(f"data file {str(path)!r} does not exist")
@@ -203,7 +195,7 @@ def read_observations(path, columns, prices: bool, drop_missing: bool, model=Non
         values = np.column_stack([returns, values[1:, 1:]])
         index = None if index is None else index[1:]
         units[0] = "percent log return, from prices"
-    dates = None if index is None else _date_texts(index)
+    dates = None if index is None else date_texts(index)
     source = {"file": str(path), "columns": list(chosen), "units": units, "prices": bool(prices)}
     label = f"{chosen[0]} ({units[0] or 'as given'})"
     return Observations(values[:, 0] if n_series == 1 else values, dates, label, source)
