@@ -33,16 +33,20 @@ FIT = """
 import time, smle
 y, _ = smle.simulate("sv", dict(mu=-0.5, phi=0.95, sigma_eta=0.26), 2000, seed=1)
 started = time.perf_counter()
-result = smle.fit("sv", y, n_draws=64, seed=0)
+result = smle.fit("sv", y, n_draws=64, seed=0, verbose=True)  # says how long the first evaluation took
 print(time.perf_counter() - started, result.iterations, result.n_evaluations)
 """
 
 
 def _run(command: list[str], cache: Path) -> tuple[float, str]:
+    """Wall seconds, and standard output followed by the seconds of the fit's first evaluation
+    (compilation included; from its "compiled and evaluated in" line) when there is one."""
     environment = {**os.environ, "SMLE_CACHE_DIR": str(cache), "PYTHONPATH": str(ROOT)}
     started = time.perf_counter()
     done = subprocess.run(command, capture_output=True, text=True, env=environment, check=True)
-    return time.perf_counter() - started, done.stdout
+    seconds = time.perf_counter() - started
+    first = [line.split()[4] for line in done.stderr.splitlines() if line.startswith("compiled and evaluated in")]
+    return seconds, done.stdout + (" " + first[0] if first else "")
 
 
 def _console_script() -> list[str]:
@@ -64,22 +68,26 @@ def measure(repeats: int) -> dict:
         cache = Path(folder) / "cache"
         for name, command in cases.items():
             out[name] = statistics.median(_run(command, cache)[0] for _ in range(repeats))
-        cold, cold_fit = [], []
+        cold, cold_fit, cold_first = [], [], []
         for _ in range(repeats):
             shutil.rmtree(cache, ignore_errors=True)
             seconds, text = _run([sys.executable, "-c", FIT], cache)
             cold.append(seconds)
             cold_fit.append(float(text.split()[0]))
-        warm, warm_fit = [], []
+            cold_first.append(float(text.split()[-1]))
+        warm, warm_fit, warm_first = [], [], []
         for _ in range(repeats):
             seconds, text = _run([sys.executable, "-c", FIT], cache)
             warm.append(seconds)
             warm_fit.append(float(text.split()[0]))
-        steps = text.split()[1:]
+            warm_first.append(float(text.split()[-1]))
+        steps = text.split()[1:3]
     out["first fit sv T=2000, empty cache"] = statistics.median(cold)
     out["  of which smle.fit itself"] = statistics.median(cold_fit)
+    out["  of which its first evaluation (compilation)"] = statistics.median(cold_first)
     out["first fit sv T=2000, warm cache"] = statistics.median(warm)
     out["  of which smle.fit itself (warm)"] = statistics.median(warm_fit)
+    out["  of which its first evaluation (warm cache)"] = statistics.median(warm_first)
     out["fit: L-BFGS steps, evaluations"] = " ".join(steps)
     return out
 
