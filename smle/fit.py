@@ -35,7 +35,7 @@ from smle.errors import SmleInputError
 from smle.models import Model, get_model
 from smle.models.base import model_options
 from smle.restricted import Restriction, check_fixed, compiled_natural, standard_errors
-from smle.results import FitResult
+from smle.results import FitResult, count_zero_returns, describe_data
 from smle.validation import as_key, check_control, check_integer, check_observations, check_settings, checked_params
 
 NO_CONTROL = ControlSpec()
@@ -198,6 +198,8 @@ def fit(
     control_variates: str | None = None,
     cv_coefficient="regression",
     fixed: Mapping[str, float] | None = None,
+    source=None,
+    dates=None,
 ) -> FitResult:
     """Estimate a model by simulated maximum likelihood (EIS), or by exact maximum likelihood for a
     model without a latent state (``state_dim == 0``: closed form, JAX gradients and Hessian; the
@@ -217,7 +219,8 @@ def fit(
         observation, in the unconstrained parameterisation, is below this.
       n_seeds: number of independent fits for simulation standard errors (1: none).
       level: confidence level of the intervals.
-      verbose: print optimiser progress to standard error.
+      verbose: print optimiser progress to standard error (and, before a first compilation,
+        that it is compiling and about how long it takes).
       n_score_draws: paths of the EIS scoring set, if not ``n_draws``.
       control_variates, cv_coefficient: maximise the control-variate corrected log-likelihood
         (see :func:`smle.loglik`); "independent" about doubles the cost of an evaluation.
@@ -225,11 +228,16 @@ def fit(
       fixed: parameters held at given values, e.g. ``{"ar1": 0.0, "rho": 0.0}`` (each strictly
         inside its admissible region); the others are estimated, and standard errors, intervals
         and the number of parameters in AIC and BIC are those of the free ones.
+      source: what ``y`` is, kept in ``FitResult.data_source`` and said in the summary: a file
+        name, or a mapping with keys ``file``, ``columns``, ``units``. A pandas Series or
+        DataFrame ``y`` gives its column name(s), and its dates with a DatetimeIndex.
+      dates: the date of each period (text or datetimes), kept in ``FitResult.dates``.
 
     Returns:
       A :class:`~smle.results.FitResult`.
     """
     model = get_model(model)
+    y, data_source, dates = describe_data(y, source, dates)
     y = check_fit_data(model, y)
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
     control = check_control(model, control_variates, cv_coefficient) if model.state_dim else NO_CONTROL
@@ -243,10 +251,11 @@ def fit(
     y_jax = jnp.asarray(y)
     started = time.perf_counter()
     if model.state_dim == 0:
-        return _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbose, started)
+        result = _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbose, started)
+        return _with_data_facts(result, model, y, data_source, dates)
     if verbose:
-        print(f"fitting '{model.name}' to {y.shape[0]} periods with {settings.n_draws} EIS draws (the first call "
-              "compiles; later calls of this shape reuse the program)", file=sys.stderr, flush=True)
+        print(f"fitting '{model.name}' to {y.shape[0]} periods with {settings.n_draws} EIS draws",
+              file=sys.stderr, flush=True)
     first = _fit_one(restriction, settings, control, y_jax, key, start_params, max_steps, gtol, verbose)
     extra = []
     for offset in range(1, n_seeds):
@@ -254,7 +263,16 @@ def fit(
             print(f"refit with seed {seed + offset} ({offset + 1}/{n_seeds})", file=sys.stderr, flush=True)
         extra.append(_fit_one(restriction, settings, control, y_jax, as_key(seed + offset), start_params, max_steps,
                               gtol, False))
-    return _assemble(restriction, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started)
+    result = _assemble(restriction, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started)
+    return _with_data_facts(result, model, y, data_source, dates)
+
+
+def _with_data_facts(result: FitResult, model, y, data_source, dates) -> FitResult:
+    """The result with what was fitted (``data_source``), its dates and its zero returns."""
+    if data_source is not None:
+        data_source["n_obs"] = result.n_obs
+    result.data_source, result.dates, result.zero_returns = data_source, dates, count_zero_returns(model, y)
+    return result
 
 
 def _start_values(model, start, y) -> dict:
@@ -278,7 +296,46 @@ def _evaluator(restriction, settings, control, y, key):
 
 def _fit_one(restriction, settings, control, y, key, start_params, max_steps, gtol, verbose):
     u0 = restriction.free_start(start_params)
-    return _lbfgs(_evaluator(restriction, settings, control, y, key), u0, int(max_steps), float(gtol), verbose)
+    evaluate = _evaluator(restriction, settings, control, y, key)
+    if verbose:
+        model = restriction.model
+        evaluate = announce_compilation(evaluate, (restriction, settings, control, y.shape), model.name,
+                                        f"T = {y.shape[0]}, {settings.n_draws} draws")
+    return _lbfgs(evaluate, u0, int(max_steps), float(gtol), verbose)
+
+
+_COMPILED_SHAPES: set = set()
+
+
+def announce_compilation(evaluate, program, what: str, shape: str):
+    """``evaluate``, saying on standard error before its first call that the likelihood of ``what``
+    is being compiled (the first time this process runs ``program``, a compiled function and its
+    data shape), about how long that took last time, and afterwards how long it took
+    (remembered in the compilation cache folder)."""
+    if program in _COMPILED_SHAPES:
+        return evaluate
+    _COMPILED_SHAPES.add(program)
+    from smle import _config
+
+    last = _config.compile_seconds(what)
+    guess = f"~{last:.0f} s" if last is not None else "10-20 s"
+    print(f"compiling the likelihood for {what}, {shape}: this takes {guess} the first time "
+          "(later fits of this shape reuse it)", file=sys.stderr, flush=True)
+    pending = [True]
+
+    def first_call(u):
+        if not pending:
+            return evaluate(u)
+        started = time.perf_counter()
+        out = evaluate(u)
+        jax.block_until_ready(out)
+        seconds = time.perf_counter() - started
+        pending.clear()
+        print(f"compiled and evaluated in {seconds:.1f} s", file=sys.stderr, flush=True)
+        _config.remember_compile_seconds(what, seconds)
+        return out
+
+    return first_call
 
 
 def _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbose, started):

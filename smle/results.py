@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 
 from smle import report_text as layout
+from smle.errors import SmleInputError
 
 CAUTION = (
     "Model estimates are statistical output, not investment advice; users remain responsible "
@@ -54,6 +55,11 @@ class FitResult:
     A model without a latent state is fitted by its closed-form likelihood: ``eis`` is then
     ``{"method": "closed form"}``, ``nse`` 0, the smoothed path is the model's
     ``factor_path`` (e.g. sqrt(h_t)), its band collapsed onto it, and ``log_weights`` empty.
+      data_source: what was fitted, or None: ``file``, ``columns``, ``units`` (one per column,
+        None when not stated), ``first`` and ``last`` date (None without dates), ``n_obs``.
+      dates: the date of each period (ISO text), or None.
+      zero_returns: how many returns are exactly zero (kept as observations), or None for a
+        model whose first series is not a return.
     """
 
     model: str
@@ -86,6 +92,9 @@ class FitResult:
     seed_estimates: list | None = None
     observations: np.ndarray | None = None
     fixed: dict | None = None
+    data_source: dict | None = None
+    dates: list | None = None
+    zero_returns: int | None = None
 
     @property
     def loglik_bias_corrected(self) -> float:
@@ -141,7 +150,8 @@ class FitResult:
         return layout.render(
             layout.title("fit", f"model {self.model}", f"{self.n_obs} periods",
                        f"converged: {'yes' if self.converged else 'no'}"),
-            [self._estimate_block(), self._likelihood_block(), self._optimiser_block(), self._simulation_block()],
+            [_data_lines(self), self._estimate_block(), self._likelihood_block(), self._optimiser_block(),
+             self._simulation_block()],
             CAUTION)
 
     def _estimate_block(self) -> list[str]:
@@ -212,6 +222,63 @@ def low_ess_warning(ess: float, n: int, unit: str, where: str = "", fraction: fl
         return []
     return [layout.warning(f"effective sample size {ess:.1f}{where} is below {fraction:.0%} of the {n} {unit} "
                            f"(common practice): the estimate rests on a few {unit}; use more {unit}")]
+def _data_lines(result: FitResult) -> list[str]:
+    """The summary's lines on what was fitted (file, columns, units, dates) and its zero returns."""
+    lines = []
+    source = result.data_source
+    if source:
+        columns = source.get("columns") or []
+        units = source.get("units") or [None] * len(columns)
+        parts = [f"{c} ({u})" if u else str(c) for c, u in zip(columns, units)]
+        where = f"{source['file']}, " if source.get("file") else ""
+        what = f"column{'s' if len(parts) > 1 else ''} {', '.join(parts)}" if parts else "unnamed series"
+        span = f", {source['first']} to {source['last']}" if source.get("first") else ""
+        lines.append(f"data: {where}{what}{span}, T = {result.n_obs}")
+    if result.zero_returns:
+        lines.append(f"{result.zero_returns} zero returns (market holidays?) kept as observations")
+    return lines
+
+
+def date_texts(index) -> list[str] | None:
+    """ISO dates (with the time when some row has one) of a pandas DatetimeIndex, else None."""
+    if not hasattr(index, "strftime") or not hasattr(index, "normalize"):
+        return None
+    daily = bool((index == index.normalize()).all())
+    return list(index.strftime("%Y-%m-%d" if daily else "%Y-%m-%d %H:%M:%S"))
+
+
+def describe_data(y, source=None, dates=None):
+    """``(values, data_source, dates)`` for :func:`smle.fit`: a pandas Series or DataFrame gives
+    its name(s) and, with a DatetimeIndex, its dates; ``source`` (a file name, or a mapping with
+    the keys of ``FitResult.data_source``) and ``dates`` override them."""
+    info = {}
+    index = getattr(y, "index", None)
+    if index is not None and hasattr(y, "to_numpy"):
+        names = list(y.columns) if hasattr(y, "columns") else ([y.name] if y.name is not None else [])
+        if names:
+            info["columns"] = [str(n) for n in names]
+        if dates is None:
+            dates = date_texts(index)
+        y = y.to_numpy(dtype=float)
+    if isinstance(source, (str, Path)):
+        info["file"] = str(source)
+    elif source is not None:
+        info.update(dict(source))
+    if dates is not None:
+        dates = [str(d) for d in dates]
+        if len(dates) != np.shape(y)[0]:
+            raise SmleInputError(f"dates has {len(dates)} entries for {np.shape(y)[0]} observations; "
+                                 "accepted: one date per period")
+        info.update(first=dates[0], last=dates[-1])
+    return y, (info or None), dates
+
+
+def count_zero_returns(model, y: np.ndarray) -> int | None:
+    """Exactly-zero values of the first series when it is a return (None otherwise)."""
+    if model.series_labels[0] != "return":
+        return None
+    first = y if y.ndim == 1 else y[:, 0]
+    return int(np.count_nonzero(first == 0.0))
 
 
 def _control_lines(eis: dict) -> list[str]:

@@ -1,7 +1,9 @@
 """The ``smle`` command line.
 
     smle fit --model sv data.csv      estimate a model on a column of returns or prices
-    smle models                       list the registered models and their parameters
+    smle fit --model realized-sv daily.csv --column ret --column rv   two observed series
+    smle fit --model garch-mix --option link=lognormal data.csv        a model option
+    smle models                       list the registered models, their parameters and options
     smle demo                         fit the invented demo scenario end to end
     smle prepare intraday.csv         prices to the aligned daily table of returns and measures
     smle check data.csv --params ...  health check of the simulated likelihood (smle/cli/check.py)
@@ -17,9 +19,8 @@ import tempfile
 from pathlib import Path
 
 
-from smle.cli.shared import (
-    add_column_options, add_fix_option, parse_fixed, parse_model_spec, read_saved_fit, read_series,
-)
+from smle.cli.shared import (add_column_options, add_fix_option, add_option_flag, describe_options,
+                             model_from_args, parse_fixed, parse_model_spec, read_observations, read_saved_fit, say)
 from smle.errors import SmleInputError
 
 
@@ -52,35 +53,50 @@ def _diagnose(result, y, args):
     return diagnostics
 
 
-def _fit_and_report(model_spec, y, label, args) -> int:
+def _model_and_held(args):
+    """The model of ``--model`` (``NAME`` with ``--option`` items, or ``NAME:key=value,...``) and the
+    parameters its spec holds fixed."""
+    if ":" in args.model:
+        if args.option:
+            raise SmleInputError(f"--model {args.model!r} with --option: give the model's options one way, "
+                                 "either in the spec (NAME:key=value) or as --option NAME=VALUE")
+        return parse_model_spec(args.model)
+    return model_from_args(args.model, args.option), {}
+
+
+def _fit_and_report(model, observations, args, held=None) -> int:
     import smle
 
-    fixed = parse_fixed(args.fix)
-    model, held = parse_model_spec(model_spec)
+    fixed = parse_fixed(getattr(args, "fix", None))
     unknown = [name for name in fixed if name not in model.param_names]
     if unknown:
         raise SmleInputError(f"--fix {unknown[0]}: model '{model.name}' has no parameter {unknown[0]!r}; its "
                              f"parameters are: {', '.join(model.param_names)}")
-    result = smle.fit(model, y, n_draws=args.draws, seed=args.seed, n_seeds=args.seeds, verbose=not args.quiet,
-                      control_variates=args.control_variates, fixed={**held, **fixed} or None)
+    result = smle.fit(model, observations.values, n_draws=args.draws, seed=args.seed, n_seeds=args.seeds,
+                      verbose=not args.quiet, control_variates=args.control_variates, max_steps=args.max_steps,
+                      source=observations.source, dates=observations.dates, fixed={**(held or {}), **fixed} or None)
     print(result.summary())
     if args.report:
         folder = Path(args.report)
-        names = _write_report(result, y, folder, label, args)
+        names = _write_report(result, observations.values, folder, observations.label, args)
         print(f"\nreport written to {folder}/ ({', '.join(names)})")
     return 0 if result.converged else 3
 
 
 def _command_fit(args) -> int:
-    y, _, label = read_series(args.data, args.column, args.prices, args.drop_missing)
-    return _fit_and_report(args.model, y, label, args)
+    model, held = _model_and_held(args)
+    observations = read_observations(args.data, args.column, args.prices, args.drop_missing, model)
+    return _fit_and_report(model, observations, args, held)
 
 
 def _command_diagnose(args) -> int:
+    import smle
+
     result = read_saved_fit(args.result, "result file")
     y = None
     if args.data:
-        y, _, _ = read_series(args.data, args.column, args.prices, args.drop_missing)
+        model = smle.get_model(result.model, **result.model_options)
+        y = read_observations(args.data, args.column, args.prices, args.drop_missing, model).values
     elif result.observations is None:
         raise SmleInputError(f"{args.result!r} stores no observations; give the data with --data")
     diagnostics = _diagnose(result, y, args)
@@ -96,11 +112,17 @@ def _command_models(args) -> int:
     for name in smle.model_names():
         model = smle.get_model(name)
         print(model.describe())
-        print(f"    equations: {model.equations}\n")
+        print(f"    equations: {model.equations}")
+        series = ", ".join(model.series_labels[:model.n_series])
+        print(f"    observed series (one --column each, in this order): {series}")
+        for line in describe_options(type(model)):
+            print(f"    {line}")
+        print()
     return 0
 
 
 def _command_demo(args) -> int:
+    from smle.cli.observations import Observations, unit_of
     from smle.data import demo_scenario, prepare_from_daily
 
     folder = Path(args.report or tempfile.mkdtemp(prefix="smle-demo-"))
@@ -111,24 +133,29 @@ def _command_demo(args) -> int:
     print(f"demo scenario (invented, simulated data): {settings['instrument']} on {settings['venue']}, "
           f"{len(y)} daily returns in percent; files in {folder / 'data'}")
     args.report = str(folder / "report")
-    return _fit_and_report(args.model, y, "daily return (percent, demo data)", args)
+    source = {"file": str(scenario.files["daily"]), "columns": ["return_pct"], "units": [unit_of("return_pct")],
+              "prices": True}
+    observations = Observations(y, list(daily.index.strftime("%Y-%m-%d")), "daily return (percent, demo data)",
+                                source)
+    model, held = _model_and_held(args)
+    return _fit_and_report(model, observations, args, held)
 
 
 def _command_prepare(args) -> int:
     from smle.data import prepare_file
 
-    options = {}
-    if args.session_open:
-        options["session_open"] = args.session_open
-    if args.session_close:
-        options["session_close"] = args.session_close
-    if args.timezone:
-        options["timezone"] = args.timezone
+    options = {name: getattr(args, name) for name in ("session_open", "session_close", "timezone", "price_column")
+               if getattr(args, name)}
     if args.drop_bad_rows:
         options["repair"] = "drop"
     table = prepare_file(args.data, args.output, interval=args.interval, kind=args.kind, **options)
     print(table.head().to_string())
-    print(f"... {len(table)} daily rows written to {table.attrs['output_path']}")
+    for repair in table.attrs.get("repairs", []):
+        say(f"{repair.action} {repair.label}: {repair.rule} ({repair.detail})")
+    for note in table.attrs.get("notes", []):
+        say(f"note: {note}")
+    print(f"... {len(table)} daily rows written to {table.attrs['output_path']}; fit them with "
+          f"'smle fit {table.attrs['output_path']}' (the return column is found by itself)")
     return 0
 
 
@@ -152,9 +179,11 @@ def build_parser() -> argparse.ArgumentParser:
                        help="maximise the control-variate corrected likelihood (default: none)")
         p.add_argument("--particles", type=int, default=2000,
                        help="particles of the goodness-of-fit filter written with --report (default 2000; 0: none)")
+        p.add_argument("--max-steps", type=int, default=200, help="cap on optimiser (L-BFGS) steps (default 200)")
+        add_option_flag(p)
 
-    fit = commands.add_parser("fit", help="estimate a model on a CSV column of returns or prices")
-    fit.add_argument("data", help="CSV file")
+    fit = commands.add_parser("fit", help="estimate a model on a file's column(s) of returns or prices")
+    fit.add_argument("data", help="CSV (or Parquet) file; a table written by 'smle prepare' is understood as is")
     add_column_options(fit)
     fit.add_argument("--report", help="folder for the report (result.json, summary, figures)")
     estimation_options(fit)
@@ -174,9 +203,13 @@ def build_parser() -> argparse.ArgumentParser:
     prepare.add_argument("--output", help="CSV to write (default: <input>_daily.csv)")
     prepare.add_argument("--interval", default="5min", help="sampling interval of realized measures (default 5min)")
     prepare.add_argument("--kind", default="auto", choices=["auto", "intraday", "daily"], help="input kind (default: detect)")
-    prepare.add_argument("--session-open", help="session open, venue time HH:MM (default 09:30)")
-    prepare.add_argument("--session-close", help="session close, venue time HH:MM (default 16:00)")
-    prepare.add_argument("--timezone", help="venue time zone (default UTC)")
+    prepare.add_argument("--price-column", help="the column of prices (default: found by name, e.g. price or close)")
+    prepare.add_argument("--session-open", help="session open, venue time HH:MM (default: inferred from the data, "
+                                                "the usual time of each day's first row)")
+    prepare.add_argument("--session-close", help="session close, venue time HH:MM (default: inferred from the data, "
+                                                 "the usual time of each day's last row)")
+    prepare.add_argument("--timezone", help="venue time zone, e.g. Europe/Paris (default: the clock as written in "
+                                            "the data; UTC where no offset is given)")
     prepare.add_argument("--drop-bad-rows", action="store_true", help="drop bad rows (logged) instead of failing")
     prepare.set_defaults(handler=_command_prepare)
 

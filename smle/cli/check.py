@@ -49,24 +49,22 @@ def _model_and_params(args):
 
     if (args.params is None) == (args.from_fit is None):
         raise SmleInputError("give exactly one of --params NAME=VALUE,... and --from-fit RESULT.json")
+    from smle.cli.shared import model_from_args, read_saved_fit
+
     if args.params is not None:
-        return smle.get_model(args.model), _parse_params(args.params)
-    from smle.cli.shared import read_saved_fit
+        return model_from_args(args.model, args.option), _parse_params(args.params)
 
     fitted = read_saved_fit(args.from_fit, "--from-fit")
     return smle.get_model(fitted.model, **fitted.model_options), dict(fitted.params)
 
 
 def _command_check(args) -> int:
-    import numpy as np
-
     import smle
-    from smle.cli.shared import read_series
+    from smle.cli.shared import read_observations
 
     model, params = _model_and_params(args)
-    y, index, label = read_series(args.data, args.column, args.prices, args.drop_missing)
-    index = np.asarray(index)
-    dates = None if index.dtype.kind in "iu" else [str(v) for v in index]
+    observations = read_observations(args.data, args.column, args.prices, args.drop_missing, model)
+    y, dates, label = observations.values, observations.dates, observations.label
 
     def progress(text):
         print(f"smle check: {text}", file=sys.stderr, flush=True)
@@ -92,7 +90,7 @@ def add_check_command(commands) -> None:
     """Register ``smle check`` on the ``smle`` sub-command parser."""
     import argparse
 
-    from smle.cli.shared import add_column_options
+    from smle.cli.shared import add_column_options, add_option_flag
 
     check = commands.add_parser(
         "check", help="health check of the simulated likelihood at given parameters (noise, weight tail, NSE)",
@@ -105,6 +103,7 @@ def add_check_command(commands) -> None:
     check.add_argument("--params", help="parameter values, e.g. mu=-7.36,phi=0.95,sigma_eta=0.26")
     check.add_argument("--from-fit", help="take the model and parameters from a saved fit (result.json of smle fit)")
     add_column_options(check)
+    add_option_flag(check)
     check.add_argument("--draws", type=int, default=64, help="EIS draws of the runs being checked (default 64)")
     check.add_argument("--seeds", type=int, default=20, help="independent seeds for the spread (default 20, least 3)")
     check.add_argument("--seed", type=int, default=0, help="base seed: runs use seed, seed+1, ... (default 0)")

@@ -15,11 +15,12 @@ exit status: 0 every fit converged, 3 some did not, 2 bad input."""
 
 
 def _command_compare(args) -> int:
-    from smle.cli.shared import parse_fixed, parse_model_spec, read_series
+    from smle.cli.shared import parse_fixed, parse_model_spec, read_observations
     from smle.decision.compare import ModelSpec, compare
     from smle.models.base import model_options
 
-    y, _, label = read_series(args.data, args.column, args.prices, args.drop_missing)
+    observations = read_observations(args.data, args.column, args.prices, args.drop_missing)
+    y, label = observations.values, observations.label
     fixed = parse_fixed(args.fix)
     specs = []
     for text in args.model:

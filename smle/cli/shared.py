@@ -1,60 +1,17 @@
-"""What the commands share: reading a column of a CSV file as returns, reading a saved fit, and
-the column options. Every command module imports from here (never from another command module).
+"""What the commands share: reading observations (see :mod:`smle.cli.observations`), a model and
+its options (see :mod:`smle.cli.options`), reading a saved fit, and the data options. Every
+command module imports from here (never from another command module). Nothing here imports
+JAX or pandas at import time, so that ``smle --help`` is quick.
 """
 
 from __future__ import annotations
 
-import sys
-
-import numpy as np
-
+from smle.cli.observations import Observations, read_observations, say
+from smle.cli.options import add_option_flag, describe_options, model_from_args
 from smle.errors import SmleInputError
 
-
-def read_series(path: str, column: str | None, prices: bool, drop_missing: bool) -> tuple[np.ndarray, object, str]:
-    """One numeric column of a CSV file as returns (percent log returns when ``prices``)."""
-    import pandas as pd
-
-    try:
-        frame = pd.read_csv(path)
-    except FileNotFoundError:
-        raise SmleInputError(f"data file {path!r} does not exist") from None
-    except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as error:
-        raise SmleInputError(f"data file {path!r} could not be read as CSV: {error}") from None
-    if column is None:
-        numeric = [c for c in frame.columns if pd.api.types.is_numeric_dtype(frame[c]) and str(c).lower() not in ("rownames", "index", "")]
-        if not numeric:
-            raise SmleInputError(f"{path!r} has no numeric column; its columns are: {', '.join(map(str, frame.columns))}")
-        column = numeric[-1]
-    elif column not in frame.columns:
-        raise SmleInputError(f"--column {column!r} is not in {path!r}; its columns are: {', '.join(map(str, frame.columns))}")
-    series = pd.to_numeric(frame[column], errors="coerce")
-    bad_text = series.isna() & frame[column].notna()
-    if bad_text.any():
-        rows = [int(r) + 2 for r in np.flatnonzero(bad_text.to_numpy())[:5]]
-        raise SmleInputError(f"column {column!r} of {path!r} has non-numeric values at file line(s) {rows}")
-    missing = series.isna().to_numpy()
-    if missing.any():
-        rows = [int(r) + 2 for r in np.flatnonzero(missing)[:10]]
-        if not drop_missing:
-            raise SmleInputError(
-                f"column {column!r} of {path!r} has {int(missing.sum())} missing value(s), at file line(s) {rows}"
-                f"{' ...' if missing.sum() > 10 else ''}; fix them, or pass --drop-missing to drop those rows"
-            )
-        print(f"dropped {int(missing.sum())} row(s) with a missing {column!r} (file lines {rows}...)", file=sys.stderr)
-        frame = frame.loc[~missing]
-        series = series.loc[~missing]
-    values = series.to_numpy(dtype=float)
-    index = frame.iloc[:, 0].to_numpy() if frame.shape[1] > 1 else np.arange(len(values))
-    unit = "as given"
-    if prices:
-        if np.any(values <= 0):
-            row = int(np.flatnonzero(values <= 0)[0]) + 2
-            raise SmleInputError(f"--prices: column {column!r} has a non-positive price at file line {row}")
-        values = 100.0 * np.diff(np.log(values))
-        index = index[1:]
-        unit = "percent log returns"
-    return values, index, f"{column} ({unit})"
+__all__ = ["Observations", "add_column_options", "add_fix_option", "add_option_flag", "describe_options",
+           "model_from_args", "parse_fixed", "parse_model_spec", "read_observations", "read_saved_fit", "say"]
 
 
 def read_saved_fit(path: str, argument: str):
@@ -70,12 +27,16 @@ def read_saved_fit(path: str, argument: str):
 
 
 def add_column_options(parser, which: str = "") -> None:
-    """``--column``, ``--prices`` and ``--drop-missing``: how a CSV column becomes returns (see read_series)."""
-    parser.add_argument("--column", help=f"column {which}to use (default: the last numeric column)")
+    """``--column`` (repeatable), ``--prices`` and ``--drop-missing``: how a file's columns become
+    the observations (see :func:`read_observations`)."""
+    parser.add_argument("--column", action="append", metavar="NAME",
+                        help=f"column {which}to use; give it once per observed series, in the model's order "
+                             "(e.g. --column ret --column rv for realized-sv). Default: the return (and realized "
+                             "measure) of a table written by 'smle prepare', else the only numeric column")
     parser.add_argument("--prices", action="store_true",
-                        help=f"the column {which}holds prices: convert to percent log returns")
-    parser.add_argument("--drop-missing", action="store_true",
-                        help=f"drop rows {which}with a missing value instead of failing")
+                        help=f"the (first) column {which}holds prices: convert to percent log returns")
+    parser.add_argument("--drop-bad-rows", "--drop-missing", dest="drop_missing", action="store_true",
+                        help=f"drop rows {which}with a missing or bad value (each one reported) instead of failing")
 
 
 def _scalar(text: str):

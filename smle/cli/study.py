@@ -91,13 +91,26 @@ def _command_example(args) -> int:
     return 0
 
 
+_FORMAT = "<the study file format>"
+
+
+class _StudyHelp(argparse.RawDescriptionHelpFormatter):
+    """Writes the study file format (:func:`smle.study.spec.format_text`) in place of ``_FORMAT``,
+    reading it only when the help is shown (it imports numpy, which ``smle --help`` need not)."""
+
+    def add_text(self, text):
+        if text == _FORMAT:
+            from smle.study.spec import format_text
+
+            text = format_text()
+        super().add_text(text)
+
+
 def add_study_commands(subparsers) -> None:
     """Add ``study run|status|summary|export|example`` to an argparse subparsers object."""
-    from smle.study.spec import format_text
-
     study = subparsers.add_parser("study", help="Monte Carlo studies: run, status, summary, export, example",
                                   description="Monte Carlo studies of smle's estimators from a study file (TOML).",
-                                  epilog=format_text(), formatter_class=argparse.RawDescriptionHelpFormatter)
+                                  epilog=_FORMAT, formatter_class=_StudyHelp)
     commands = study.add_subparsers(dest="study_command", required=True)
 
     run = commands.add_parser("run", help="run or resume a study file (TOML)")

@@ -125,6 +125,7 @@ class Diagnostics:
       tests: the :class:`TestResult` list; fit_loglik, fit_nse: the EIS log-likelihood and NSE.
       params, model_options: the fit's estimates and model options (the figures show the factor as
         the model displays it, ``Model.factor_display``).
+      dates: the date of each period (from the fit), or None; the figures' time axis.
     """
 
     model: str
@@ -142,6 +143,7 @@ class Diagnostics:
     fit_nse: float
     params: dict | None = None
     model_options: dict | None = None
+    dates: list | None = None
 
     @property
     def flagged(self) -> list:
@@ -307,6 +309,7 @@ def diagnose(
         smoothed_mean=np.asarray(result.smoothed_mean), smoothed_lower=np.asarray(result.smoothed_lower),
         smoothed_upper=np.asarray(result.smoothed_upper), tests=tests, fit_loglik=result.loglik,
         fit_nse=result.nse, params=dict(result.params), model_options=dict(result.model_options or {}),
+        dates=getattr(result, "dates", None),
     )
 
 

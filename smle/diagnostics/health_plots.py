@@ -12,6 +12,8 @@ import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.ticker import MaxNLocator
 
+from smle.diagnostics.plots import time_axis
+
 _INK, _ACCENT, _BAND = "#33506e", "#8c3b1e", "#e3a857"
 FILES = ("loglik_seeds.png", "weight_tail.png", "nse_scaling.png", "period_contributions.png")
 
@@ -152,12 +154,7 @@ def period_contributions(report, path) -> Path:
     bottom.plot(t, report.r_squared, color=_ACCENT, lw=0.8)
     bottom.set_ylabel("EIS regression R^2")
     bottom.set_ylim(min(0.0, float(np.min(report.r_squared))), 1.02)
-    if report.dates:
-        ticks = np.linspace(0, report.n_periods - 1, 6).astype(int)
-        bottom.set_xticks(ticks, [report.dates[i] for i in ticks], fontsize=8, rotation=30, ha="right")
-        bottom.set_xlabel("date")
-    else:
-        bottom.set_xlabel("period")
+    time_axis(bottom, report.n_periods, report.dates)
     for axis in (top, bottom):
         axis.grid(alpha=0.3)
     return _save(figure, path)

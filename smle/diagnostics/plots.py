@@ -18,6 +18,16 @@ def _subplots(*args, figsize, **kwargs):
     return figure, figure.subplots(*args, **kwargs)
 
 
+def time_axis(axis, n_periods: int, dates=None) -> None:
+    """Label the time axis of ``axis`` (positions 0 .. n_periods - 1) with dates when there are."""
+    if dates is not None and len(dates) == n_periods:
+        ticks = np.unique(np.linspace(0, n_periods - 1, 6).astype(int))
+        axis.set_xticks(ticks, [str(dates[i]) for i in ticks], fontsize=8, rotation=30, ha="right")
+        axis.set_xlabel("date")
+    else:
+        axis.set_xlabel("period")
+
+
 def _legend_below(axis, columns: int = 3) -> None:
     """The legend under the axes, outside them, so that it covers no point, bar or band."""
     axis.legend(fontsize=8, loc="upper center", bbox_to_anchor=(0.5, -0.18), ncols=columns, frameon=False)
@@ -50,7 +60,7 @@ def data_and_factor(result, y, label: str, path) -> Path | Figure:
     bottom.fill_between(t, lower, upper, color="#e3a857", alpha=0.45, label="5%-95% posterior band")
     bottom.plot(t, mean, color="#8c3b1e", lw=0.9, label="at the posterior mean of the state")
     bottom.set_ylabel(name)
-    bottom.set_xlabel("period")
+    time_axis(bottom, len(t), getattr(result, "dates", None))
     _legend_below(bottom, 2)
     if path is None:
         return figure
@@ -171,14 +181,14 @@ def _autocorrelation_scores(d) -> Figure:
 def _factor_filtered_smoothed(d) -> Figure:
     """Factor paths: filtered (data up to t) and smoothed (all data), as the model shows its factor."""
     f = d.filter
-    t = np.arange(1, d.scores.shape[0] + 1)
+    t = np.arange(d.scores.shape[0])
     name, low, high, filtered, smoothed = factor_shown(d.model, d.model_options, d.params, f.filtered_lower,
                                                        f.filtered_upper, f.filtered_mean, d.smoothed_mean)
     figure, axis = _subplots(figsize=(10, 4.8))
     axis.fill_between(t, low, high, color="#9fb8d0", alpha=0.5, label="filtered 5%-95%")
     axis.plot(t, filtered, color="#33506e", lw=0.8, label="at the filtered mean (data up to t)")
     axis.plot(t, smoothed, color="#8c3b1e", lw=0.8, label="at the smoothed mean (all data)")
-    axis.set_xlabel("period")
+    time_axis(axis, len(t), d.dates)
     axis.set_ylabel(name)
     axis.set_title(f"Filtered and smoothed factor ({d.model}, {f.n_particles} particles)")
     _legend_below(axis)

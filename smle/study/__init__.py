@@ -11,16 +11,27 @@ alone (:func:`replication_seeds`); results go to an SQLite store (:mod:`smle.stu
 one committed row at a time.
 """
 
-from smle.study.replication import run_replication
-from smle.study.runner import RunReport, pending_replications, run_study
-from smle.study.spec import Design, Estimator, Study, check_study, load_study, replication_seeds, study_from_mapping
-from smle.study.store import SCHEMA_VERSION, check_compatible
-from smle.study.summary import (export_csv, format_status, markdown_tables, parameter_statistics, read_results,
-                                study_status, summarize, write_summary)
+import importlib
 
-__all__ = [
-    "Design", "Estimator", "RunReport", "SCHEMA_VERSION", "Study", "check_compatible", "check_study", "export_csv",
-    "format_status", "load_study", "markdown_tables", "parameter_statistics", "pending_replications", "read_results",
-    "replication_seeds", "run_replication", "run_study", "study_from_mapping", "study_status", "summarize",
-    "write_summary",
-]
+# public name -> the module that defines it; imported on first use (module __getattr__, PEP 562)
+# so that reading a study file (``smle study --help`` included) does not import pandas or JAX
+_PUBLIC = {
+    "run_replication": "replication",
+    **dict.fromkeys(("RunReport", "pending_replications", "run_study"), "runner"),
+    **dict.fromkeys(("Design", "Estimator", "Study", "check_study", "load_study", "replication_seeds",
+                     "study_from_mapping"), "spec"),
+    **dict.fromkeys(("SCHEMA_VERSION", "check_compatible"), "store"),
+    **dict.fromkeys(("export_csv", "format_status", "markdown_tables", "parameter_statistics", "read_results",
+                     "study_status", "summarize", "write_summary"), "summary"),
+}
+
+
+def __getattr__(name):
+    if name not in _PUBLIC:
+        raise AttributeError(f"module 'smle.study' has no attribute {name!r}")
+    value = getattr(importlib.import_module(f"smle.study.{_PUBLIC[name]}"), name)
+    globals()[name] = value
+    return value
+
+
+__all__ = sorted(_PUBLIC)
