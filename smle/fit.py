@@ -28,13 +28,16 @@ import optax
 from scipy.special import ndtri
 
 from smle.engine import eis
-from smle.engine.control import ControlSpec, control_facts, controlled_output
+from smle.engine.control import ControlSpec, control_facts
+from smle.engine.methods import eis_evaluation
 from smle.engine.posterior import path_quantiles
 from smle.errors import SmleInputError
 from smle.models import Model, get_model
 from smle.models.base import model_options
 from smle.results import FitResult
-from smle.validation import as_key, check_control, check_integer, check_observations, check_settings, checked_params
+from smle.validation import (
+    as_key, check_control, check_integer, check_observations, check_settings, check_state_settings, checked_params,
+)
 
 NO_CONTROL = ControlSpec()
 
@@ -50,7 +53,7 @@ def objective(model: Model, settings: eis.EISSettings, y, key, control: ControlS
 
     def negative_loglik(unconstrained):
         params = model.from_real(unconstrained)
-        out, extra = controlled_output(model, settings, control, params, y, key)
+        out, extra = eis_evaluation(model, settings, control, params, y, key)
         diagnostics = eis.weight_diagnostics(jax.lax.stop_gradient(out.log_weights), settings.antithetic)
         return -extra["value"] / n_periods, (out, diagnostics, jax.lax.stop_gradient(extra))
 
@@ -202,6 +205,7 @@ def fit(
     y = check_fit_data(model, y)
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
     control = check_control(model, control_variates, cv_coefficient)
+    check_state_settings(model, settings)
     n_seeds = check_integer("n_seeds", n_seeds, 1)
     if not (isinstance(level, float) and 0.5 <= level < 1):
         raise SmleInputError(f"level = {level!r} is not accepted; accepted: a number in [0.5, 1)")
@@ -260,7 +264,7 @@ def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start
     log_weights = np.asarray(out.log_weights)
     weights = np.exp(log_weights - log_weights.max())
     weights /= weights.sum()
-    lower, upper = np.asarray(path_quantiles(out.paths, weights, (0.05, 0.95)))
+    smoothed_mean, lower, upper = _smoothed(np.asarray(out.paths), weights)
     loglik = float(cv_extra["value"])
     facts = control_facts(control, settings.antithetic, out, diagnostics["nse"], cv_extra)
     k = len(names)
@@ -308,7 +312,7 @@ def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start
             **_control_entries(facts),
         },
         factor_name=model.factor_name,
-        smoothed_mean=np.asarray(out.paths) @ weights,
+        smoothed_mean=smoothed_mean,
         smoothed_lower=lower,
         smoothed_upper=upper,
         log_weights=log_weights,
@@ -316,6 +320,18 @@ def _assemble(model, settings, control, y, y_jax, key, seed, first, extra, start
         seed_estimates=seed_estimates,
         observations=np.array(y, dtype=float),
     )
+
+
+def _smoothed(paths: np.ndarray, weights: np.ndarray):
+    """Posterior mean and 5%/95% quantiles per period from the weighted scoring paths: each of
+    shape (T,), or (T, k) per component for paths of shape (T, S, k)."""
+    mean = np.tensordot(paths, weights, axes=([1], [0]))
+    if paths.ndim == 2:
+        lower, upper = np.asarray(path_quantiles(paths, weights, (0.05, 0.95)))
+        return mean, lower, upper
+    bands = np.stack([np.asarray(path_quantiles(paths[..., j], weights, (0.05, 0.95))) for j in range(paths.shape[-1])],
+                     axis=-1)
+    return mean, bands[0], bands[1]
 
 
 def _convergence(first) -> tuple[bool, str]:

@@ -17,10 +17,11 @@ import jax.numpy as jnp
 import numpy as np
 
 from smle.engine.control import control_facts
-from smle.engine.methods import compiled_eis
+from smle.engine.methods import eis_entry
 from smle.models import get_model
 from smle.validation import (
-    as_key, check_control, check_integer, check_settings, checked_inputs, checked_params, jax_params,
+    as_key, check_control, check_integer, check_settings, check_state_settings, checked_inputs, checked_params,
+    jax_params,
 )
 
 
@@ -38,8 +39,10 @@ class LoglikResult:
       last_change: largest relative change of the auxiliary parameters at the last iteration.
       n_draws, antithetic, seed: the estimator settings used.
       log_weights: log importance weights of the scoring paths, shape (S,).
-      paths: the scoring paths of the latent state, shape (T, S).
-      b_obs, c_obs: fitted auxiliary parameters, shape (T,).
+      paths: the scoring paths of the latent state, shape (T, S) (or (T, S, k) for a
+        k-dimensional state).
+      b_obs, c_obs: fitted auxiliary parameters, shape (T,) (for k > 1: (T, k), and (T, m) the
+        entries of C on the model's basis pairs).
       r_squared: per-period R^2 of the final EIS regressions, shape (T,).
       n_score_draws: paths in the scoring set (``log_weights`` and ``paths`` have this many).
       control_variates: the control variates applied (None, "independent", "draws" or "both");
@@ -77,9 +80,10 @@ class LoglikResult:
         return self.value + 0.5 * self.nse**2
 
     def smoothed_mean(self) -> np.ndarray:
-        """Posterior mean of the latent state per period from the weighted scoring paths."""
+        """Posterior mean of the latent state per period from the weighted scoring paths: (T,),
+        or (T, k) for a k-dimensional state."""
         w = np.exp(self.log_weights - self.log_weights.max())
-        return self.paths @ (w / w.sum())
+        return np.tensordot(self.paths, w / w.sum(), axes=([1], [0]))
 
     def __repr__(self) -> str:
         flag = "converged" if self.converged else "NOT converged"
@@ -137,8 +141,9 @@ def loglik(
     model, checked, y = checked_inputs(model, params, y)
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
     control = check_control(model, control_variates, cv_coefficient)
+    check_state_settings(model, settings)
     key = as_key(seed)
-    out, diagnostics, extra = compiled_eis(model, settings, control)(jax_params(checked), jnp.asarray(y), key)
+    out, diagnostics, extra = eis_entry(model, settings, control)(jax_params(checked), jnp.asarray(y), key)
     value = float(extra["value"])
     if not math.isfinite(value):
         raise FloatingPointError(
@@ -170,7 +175,8 @@ def simulate(model, params: Mapping[str, float], n_periods: int, seed=0):
     """Simulate ``n_periods`` observations and the latent path from ``model`` at ``params``.
 
     Returns:
-      ``(y, x)`` as NumPy arrays: observations of shape (T,) or (T, n_series), latent path (T,).
+      ``(y, x)`` as NumPy arrays: observations of shape (T,) or (T, n_series), latent path (T,)
+      (or (T, k) for a k-dimensional state).
     """
     model = get_model(model)
     checked = checked_params(model, params)

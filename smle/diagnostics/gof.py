@@ -49,7 +49,7 @@ from smle.diagnostics.residual_tests import (  # noqa: F401 (public names of gof
     PIT_CLIP, arch_lm, autocorrelations, check_lags, berkowitz_test, durbin_watson, ljung_box, normal_scores, tail_test,
 )
 from smle.diagnostics.filtering import FilterResult, check_filter_settings, filter_factor, has_obs_cdf
-from smle.validation import check_observations
+from smle.validation import check_observations, require_scalar_state
 from smle.models import get_model
 from smle.results import CAUTION, FitResult
 
@@ -223,6 +223,7 @@ def diagnose(
     """
     result = _check_fit_result(fit_result)
     model = _fitted_model(result)
+    require_scalar_state(model, "smle.diagnose")
     if y is None:
         y = result.observations
         if y is None:

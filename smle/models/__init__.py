@@ -48,5 +48,6 @@ def get_model(name, **options) -> Model:
 
 
 from smle.models import ar1_noise, garch_mix, realized_sv, sv, sv_t  # noqa: E402,F401  (registration)
+from smle.models import factor_sv, sv_2factor, var1_noise  # noqa: E402,F401  (registration)
 
 __all__ = ["Model", "get_model", "model_names", "register"]
