@@ -28,15 +28,17 @@ import numpy as np
 import optax
 
 from smle.engine import eis
-from smle.engine.control import ControlSpec, control_facts, controlled_output
-from smle.engine.methods import compiled_closed_form
+from smle.engine.control import ControlSpec, control_facts
+from smle.engine.methods import compiled_closed_form, eis_evaluation
 from smle.engine.posterior import path_quantiles
 from smle.errors import SmleInputError
 from smle.models import Model, get_model
 from smle.models.base import model_options
 from smle.restricted import Restriction, check_fixed, compiled_natural, standard_errors
 from smle.results import FitResult, count_zero_returns, describe_data
-from smle.validation import as_key, check_control, check_integer, check_observations, check_settings, checked_params
+from smle.validation import (
+    as_key, check_control, check_integer, check_observations, check_settings, check_state_settings, checked_params,
+)
 
 NO_CONTROL = ControlSpec()
 
@@ -54,7 +56,7 @@ def objective(model: Model, settings: eis.EISSettings, y, key, control: ControlS
 
     def negative_loglik(unconstrained):
         params = model.from_real(unconstrained) if restriction is None else restriction.natural(unconstrained)
-        out, extra = controlled_output(model, settings, control, params, y, key)
+        out, extra = eis_evaluation(model, settings, control, params, y, key)
         diagnostics = eis.weight_diagnostics(jax.lax.stop_gradient(out.log_weights), settings.antithetic)
         return -extra["value"] / n_periods, (out, diagnostics, jax.lax.stop_gradient(extra))
 
@@ -241,6 +243,8 @@ def fit(
     y = check_fit_data(model, y)
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
     control = check_control(model, control_variates, cv_coefficient) if model.state_dim else NO_CONTROL
+    if model.state_dim > 1:
+        check_state_settings(model, settings)
     n_seeds = check_integer("n_seeds", n_seeds, 1)
     if not (isinstance(level, float) and 0.5 <= level < 1):
         raise SmleInputError(f"level = {level!r} is not accepted; accepted: a number in [0.5, 1)")
@@ -395,7 +399,7 @@ def _assemble(restriction, settings, control, y, y_jax, key, seed, first, extra,
     log_weights = np.asarray(out.log_weights)
     weights = np.exp(log_weights - log_weights.max())
     weights /= weights.sum()
-    lower, upper = np.asarray(path_quantiles(out.paths, weights, (0.05, 0.95)))
+    smoothed_mean, lower, upper = _smoothed(np.asarray(out.paths), weights)
     loglik = float(cv_extra["value"])
     facts = control_facts(control, settings.antithetic, out, diagnostics["nse"], cv_extra)
     k = len(restriction.free_names)
@@ -443,7 +447,7 @@ def _assemble(restriction, settings, control, y, y_jax, key, seed, first, extra,
             **_control_entries(facts),
         },
         factor_name=model.factor_name,
-        smoothed_mean=np.asarray(out.paths) @ weights,
+        smoothed_mean=smoothed_mean,
         smoothed_lower=lower,
         smoothed_upper=upper,
         log_weights=log_weights,
@@ -452,6 +456,18 @@ def _assemble(restriction, settings, control, y, y_jax, key, seed, first, extra,
         observations=np.array(y, dtype=float),
         fixed=restriction.fixed_values,
     )
+
+
+def _smoothed(paths: np.ndarray, weights: np.ndarray):
+    """Posterior mean and 5%/95% quantiles per period from the weighted scoring paths: each of
+    shape (T,), or (T, k) per component for paths of shape (T, S, k)."""
+    mean = np.tensordot(paths, weights, axes=([1], [0]))
+    if paths.ndim == 2:
+        lower, upper = np.asarray(path_quantiles(paths, weights, (0.05, 0.95)))
+        return mean, lower, upper
+    bands = np.stack([np.asarray(path_quantiles(paths[..., j], weights, (0.05, 0.95))) for j in range(paths.shape[-1])],
+                     axis=-1)
+    return mean, bands[0], bands[1]
 
 
 def _convergence(first) -> tuple[bool, str]:

@@ -17,11 +17,12 @@ import jax.numpy as jnp
 import numpy as np
 
 from smle.engine.control import control_facts
-from smle.engine.methods import compiled_closed_form, compiled_eis
+from smle.engine.methods import compiled_closed_form, eis_entry
 from smle.errors import EISBreakdownError, SmleInputError
 from smle.models import get_model
 from smle.validation import (
-    as_key, check_control, check_integer, check_settings, checked_inputs, checked_params, jax_params,
+    as_key, check_control, check_integer, check_settings, check_state_settings, checked_inputs, checked_params,
+    jax_params,
 )
 
 
@@ -40,8 +41,10 @@ class LoglikResult:
       last_change: largest relative change of the auxiliary parameters at the last iteration.
       n_draws, antithetic, seed: the estimator settings used.
       log_weights: log importance weights of the scoring paths, shape (S,).
-      paths: the scoring paths of the latent state, shape (T, S).
-      b_obs, c_obs: fitted auxiliary parameters, shape (T,).
+      paths: the scoring paths of the latent state, shape (T, S) (or (T, S, k) for a
+        k-dimensional state).
+      b_obs, c_obs: fitted auxiliary parameters, shape (T,) (for k > 1: (T, k), and (T, m) the
+        entries of C on the model's basis pairs).
       r_squared: per-period R^2 of the final EIS regressions, shape (T,).
       n_score_draws: paths in the scoring set (``log_weights`` and ``paths`` have this many).
       control_variates: the control variates applied (None, "independent", "draws" or "both");
@@ -95,9 +98,10 @@ class LoglikResult:
         return self.value + 0.5 * self.nse**2
 
     def smoothed_mean(self) -> np.ndarray:
-        """Posterior mean of the latent state per period from the weighted scoring paths."""
+        """Posterior mean of the latent state per period from the weighted scoring paths: (T,),
+        or (T, k) for a k-dimensional state."""
         w = np.exp(self.log_weights - self.log_weights.max())
-        return self.paths @ (w / w.sum())
+        return np.tensordot(self.paths, w / w.sum(), axes=([1], [0]))
 
     def __repr__(self) -> str:
         if self.method == "closed form":
@@ -175,11 +179,12 @@ def loglik(
         return _closed_form_loglik(model, checked, y)
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
     control = check_control(model, control_variates, cv_coefficient)
+    check_state_settings(model, settings)
     key = as_key(seed)
     if on_breakdown not in ("raise", "return"):
         raise SmleInputError(f"on_breakdown = {on_breakdown!r} is not accepted; accepted: 'raise' or 'return'")
     if on_breakdown == "return":
-        out, diagnostics, extra = compiled_eis(model, settings, control)(jax_params(checked), jnp.asarray(y), key)
+        out, diagnostics, extra = eis_entry(model, settings, control)(jax_params(checked), jnp.asarray(y), key)
         repairs = ()
         if not math.isfinite(float(extra["value"])):
             raise EISBreakdownError(f"the EIS log-likelihood of model '{model.name}' is not finite at params={checked}")
@@ -208,8 +213,8 @@ def loglik(
         repairs=repairs,
         nse_estimates={name: float(diagnostics[f"nse_{name}"]) for name in ("delta", "lognormal", "batches")},
         log_weight_sd=float(diagnostics["log_weight_sd"]),
-        failed_regressions=int(out.info.failed_regressions),
-        damping_step=float(out.info.step),
+        failed_regressions=int(getattr(out.info, "failed_regressions", 0)),
+        damping_step=float(getattr(out.info, "step", 1.0)),
     )
 
 
@@ -241,11 +246,11 @@ def breakdown(out, diagnostics, extra) -> str | None:
     the last EIS iteration, or an NSE above :data:`NSE_LIMIT`."""
     if not math.isfinite(float(extra["value"])):
         return "the estimate is not finite"
-    rounding = float(out.rounding)
+    rounding = float(getattr(out, "rounding", 0.0))  # the scalar engine measures it
     if not rounding <= ROUNDING_LIMIT:
         return (f"float64 rounding alone can move it by {rounding:.3g} (the terms of the log weights are huge: data far "
                 "from zero against a tiny noise scale; rescale the data)")
-    failed = int(out.info.failed_regressions)
+    failed = int(getattr(out.info, "failed_regressions", 0))
     if failed:
         return f"the last EIS regressions failed in {failed} periods (a collapsed or overflowing draw set)"
     nse = honest_nse(diagnostics)
@@ -261,7 +266,7 @@ def _checked_run(model, settings, control, params, y, key):
 
     Returns ``(out, diagnostics, extra, settings_used, repairs)``."""
     inputs = (jax_params(params), jnp.asarray(y), key)
-    out, diagnostics, extra = compiled_eis(model, settings, control)(*inputs)
+    out, diagnostics, extra = eis_entry(model, settings, control)(*inputs)
     reason = breakdown(out, diagnostics, extra)
     if reason is None:
         return out, diagnostics, extra, settings, ()
@@ -272,7 +277,7 @@ def _checked_run(model, settings, control, params, y, key):
         n_draws=DRAW_REPAIR_FACTOR * settings.n_draws,
         n_score_draws=None if settings.n_score_draws is None else DRAW_REPAIR_FACTOR * settings.n_score_draws,
     )
-    out, diagnostics, extra = compiled_eis(model, wider, control)(*inputs)
+    out, diagnostics, extra = eis_entry(model, wider, control)(*inputs)
     second = breakdown(out, diagnostics, extra)
     if second is None:
         return out, diagnostics, extra, wider, (f"{reason}; repaired with {wider.n_draws} draws",)
@@ -301,7 +306,8 @@ def simulate(model, params: Mapping[str, float], n_periods: int, seed=0):
     """Simulate ``n_periods`` observations and the latent path from ``model`` at ``params``.
 
     Returns:
-      ``(y, x)`` as NumPy arrays: observations of shape (T,) or (T, n_series), latent path (T,).
+      ``(y, x)`` as NumPy arrays: observations of shape (T,) or (T, n_series), latent path (T,)
+      (or (T, k) for a k-dimensional state).
     """
     model = get_model(model)
     checked = checked_params(model, params)

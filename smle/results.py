@@ -43,7 +43,8 @@ class FitResult:
       eis: settings and diagnostics of the EIS estimator at the estimates.
       factor_name: what the latent state is (e.g. the log variance).
       smoothed_mean, smoothed_lower, smoothed_upper: posterior mean and 5%/95% quantiles of the
-        latent state per period, from the weighted scoring draws.
+        latent state per period, from the weighted scoring draws: shape (T,), or (T, k) per
+        component for a k-dimensional state (the JSON stores them as nested lists).
       log_weights: log importance weights at the estimates.
       simulation_std_errors, seed_estimates: with ``n_seeds > 1``, the spread of the estimates
         across independent random numbers and the estimates themselves.

@@ -14,7 +14,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from smle.engine import eis
+from smle.engine import eis, eis_multi
 from smle.engine.control import CONTROL_VARIATES, ControlSpec
 from smle.errors import SmleInputError, describe
 from smle.models import Model, get_model
@@ -92,6 +92,11 @@ def check_control(model: Model, control_variates, cv_coefficient="regression") -
             f"model '{model.name}' has no latent state: its likelihood is exact (closed form), so there is no "
             "simulation and no simulation error to measure, check or reduce; use smle.loglik or smle.fit"
         )
+    if control_variates is not None and model.state_dim > 1:
+        raise SmleInputError(
+            f"control_variates = {control_variates!r}: control variates are not yet available for a "
+            f"{model.state_dim}-dimensional state (model '{model.name}'); accepted: None"
+        )
     if control_variates not in CONTROL_VARIATES:
         raise SmleInputError(
             f"control_variates = {control_variates!r} is not accepted; accepted: "
@@ -115,6 +120,28 @@ def check_control(model: Model, control_variates, cv_coefficient="regression") -
             "weights on the independent case's log weights, from this run) or a finite number such as 1.0"
         )
     return ControlSpec(independent=independent, draws=control_variates in ("draws", "both"), coefficient=coefficient)
+
+
+def check_state_settings(model: Model, settings: eis.EISSettings) -> None:
+    """For a k-dimensional state (k > 1): the model's regression basis is valid and both draw
+    sets identify it (:func:`smle.engine.eis_multi.check_draws`)."""
+    k = model.state_dim
+    if k <= 1:
+        return
+    pairs = eis_multi.check_pairs(model.pairs() or eis_multi.full_pairs(k), k)
+    eis_multi.check_draws(settings.n_draws, k, pairs, settings.antithetic)
+    if settings.n_score_draws is not None:
+        eis_multi.check_draws(settings.n_score_draws, 0, (), settings.antithetic)
+
+
+def require_scalar_state(model: Model, what: str) -> None:
+    """Raise SmleInputError if ``what`` (a function name) is asked of a model with k > 1."""
+    if model.state_dim > 1:
+        raise SmleInputError(
+            f"{what} is not yet available for a k-dimensional state: model '{model.name}' has k = "
+            f"{model.state_dim}; accepted: models with a one-dimensional state (smle.loglik and smle.fit "
+            "work for both)"
+        )
 
 
 def checked_params(model: Model, params) -> dict[str, float]:

@@ -52,7 +52,7 @@ import numpy as np
 
 from smle.errors import SmleInputError
 from smle.engine.posterior import weighted_quantiles
-from smle.validation import as_key, check_integer, checked_inputs, jax_params
+from smle.validation import as_key, check_integer, checked_inputs, jax_params, require_scalar_state
 from smle.models import Model
 
 MIN_PARTICLES = 100
@@ -271,6 +271,7 @@ def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000
     model, checked, y = checked_inputs(model, params, y)
     if model.state_dim == 0:
         raise SmleInputError(no_state_message(model))
+    require_scalar_state(model, "smle.filter_factor")
     n_particles, resample_threshold = check_filter_settings(n_particles, resample_threshold)
     key = as_key(seed)
     out = compiled_filter(model, n_particles)(jax_params(checked), jnp.asarray(y), key, resample_threshold)

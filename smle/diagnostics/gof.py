@@ -53,7 +53,7 @@ from smle.diagnostics.residual_tests import (  # noqa: F401 (public names of gof
 from smle.diagnostics.filtering import (
     FilterResult, check_filter_settings, filter_factor, has_obs_cdf, no_state_message,
 )
-from smle.validation import check_observations
+from smle.validation import check_observations, require_scalar_state
 from smle.models import saved_model
 from smle import report_text as layout
 from smle.results import CAUTION, FitResult, low_ess_warning
@@ -268,6 +268,7 @@ def diagnose(
     """
     result = _check_fit_result(fit_result)
     model = saved_model(result.model, result.model_options)
+    require_scalar_state(model, "smle.diagnose")
     if y is None:
         y = result.observations
         if y is None:

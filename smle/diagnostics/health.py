@@ -51,7 +51,9 @@ from smle.engine import eis
 from smle.errors import SmleInputError, describe
 from smle.likelihood import LoglikResult, loglik
 from smle.models.base import model_options
-from smle.validation import MIN_DRAWS, check_control, check_integer, check_settings, checked_inputs, jax_params
+from smle.validation import (
+    MIN_DRAWS, check_control, check_integer, check_settings, checked_inputs, jax_params, require_scalar_state,
+)
 
 # ---------------------------------------------------------------------------------------------
 # Measurements
@@ -157,6 +159,7 @@ def _checked_arguments(model, params, y, n_draws, n_seeds, seed, tail_draws, dra
     """The arguments of :func:`check`, validated: ``(model, params, y, settings, n_seeds, seed,
     tail_draws, grid, labels)``."""
     resolved, checked, y_array = checked_inputs(model, params, y)
+    require_scalar_state(resolved, "smle.check")
     settings = check_settings(n_draws, antithetic, tol, max_iter)
     n_seeds = check_integer("n_seeds", n_seeds, MIN_SEEDS, "independent seeds for the spread; 20 or more is better")
     seed = check_integer("seed", seed, 0, "the base seed")

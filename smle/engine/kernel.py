@@ -1,7 +1,8 @@
 """The model-to-EIS kernel: one pure, differentiable EIS evaluation of a model at parameters.
 
 A model instance is passed in (its ``latent``, ``log_obs_density``, ``prepare`` and
-``mode_guess``); the engine never imports the models package.
+``mode_guess``; with a k-dimensional state ``latent_var`` and ``pairs``); the engine never
+imports the models package.
 """
 
 from __future__ import annotations
@@ -9,7 +10,7 @@ from __future__ import annotations
 import functools
 from typing import Mapping
 
-from smle.engine import eis
+from smle.engine import eis, eis_multi
 
 
 def eis_output(model, settings: eis.EISSettings, params: Mapping, y, key) -> eis.EISOutput:
@@ -17,6 +18,15 @@ def eis_output(model, settings: eis.EISSettings, params: Mapping, y, key) -> eis
     data = model.prepare(params, y)
     return eis.eis_loglik(
         model.latent(params), _log_obs_function(model), (params, data), model.mode_guess(params, data), key, settings
+    )
+
+
+def eis_output_multi(model, settings: eis.EISSettings, params: Mapping, y, key) -> eis_multi.EISMultiOutput:
+    """Pure, differentiable EIS evaluation of a model with a k-dimensional VAR(1) state (k > 1)."""
+    data = model.prepare(params, y)
+    return eis_multi.eis_loglik_multi(
+        model.latent_var(params), _log_obs_function(model), (params, data), model.mode_guess(params, data), key,
+        settings, model.pairs(),
     )
 
 

@@ -12,7 +12,8 @@ Class attributes (set in the model's own module):
   series is, for the goodness-of-fit tests; default ``("return",)``), ``min_periods``,
   ``stationary_state``, ``expects_returns``, ``factor_name``;
 * ``state_dim``: dimension of the latent state (default 1; 0 means no latent state, the
-  likelihood in closed form).
+  likelihood in closed form). A model whose dimension depends on its options (``var1-noise``,
+  ``factor-sv``) overrides it with a property.
 
 Required methods:
 
@@ -21,6 +22,22 @@ Required methods:
 * ``log_obs_density(params, data, x)``: log g_t(y_t | x_t) for paths ``x`` of shape (T, S);
 * ``simulate(params, n_periods, key)``: observations and the latent path;
 * ``start_params(y)``: sensible start values from the data.
+
+With a k-dimensional state (``state_dim = k > 1``) the state is a Gaussian VAR(1) and
+``latent`` is replaced by:
+
+* ``latent_var(params)``: the :class:`~smle.engine.latent_var.LatentVAR1` coefficients
+  (``smle.engine.latent_var.independent_ar1`` or ``stationary`` build them);
+* ``log_obs_density(params, data, x)`` takes paths ``x`` of shape (T, S, k) and returns (T, S);
+* ``simulate`` returns the latent path with shape (T, k), and ``mode_guess`` a (T, k) path;
+* ``pairs()`` (optional): the products x_i x_j (i <= j) of the EIS regression basis; None (the
+  default) is every product. Return ``smle.engine.eis_multi.diagonal_pairs(k)`` when log g_t is
+  a sum over components, ``star_pairs(k, hub)`` when one common component meets every other:
+  fewer regressors, fewer draws needed. The basis must cover every entry where the Hessian of
+  log g_t in x_t can be non-zero.
+
+The health check, the particle filter and goodness of fit (``check``, ``filter_factor``,
+``diagnose``) and control variates are not yet available for k > 1 (a clear error says so).
 
 Optional hooks (each has a default here):
 
@@ -56,6 +73,7 @@ import jax.numpy as jnp
 import numpy as np
 
 from smle.engine.latent import LatentAR1
+from smle.engine.latent_var import LatentVAR1
 from smle.params import Constraint
 
 
@@ -77,8 +95,8 @@ class Model:
     ``("return", "realized measure")``."""
     state_dim: ClassVar[int] = 1
     """Dimension of the latent state: 1 for the AR(1) factor every model has today; 0 means no
-    latent state (the likelihood in closed form). Nothing reads it yet: it is there for the
-    likelihood methods to come (the exact grid method is for ``state_dim == 1``)."""
+    latent state (the likelihood in closed form); above 1 the state is the Gaussian VAR(1) of
+    :meth:`latent_var` and the likelihood methods dispatch to the multivariate EIS engine."""
 
     # -- to be supplied by each model ---------------------------------------------------------
     def constraints(self) -> dict[str, Constraint]:
@@ -87,11 +105,21 @@ class Model:
     def latent(self, params: Mapping) -> LatentAR1:
         raise NotImplementedError
 
+    def latent_var(self, params: Mapping) -> LatentVAR1:
+        """The Gaussian VAR(1) state implied by theta (models with ``state_dim > 1``)."""
+        raise NotImplementedError(f"model '{self.name}' has no k-dimensional state (latent_var)")
+
+    def pairs(self):
+        """Products x_i x_j (i <= j) in the EIS regression basis for k > 1; None: all of them."""
+        return None
+
     def log_obs_density(self, params: Mapping, data, x: jax.Array) -> jax.Array:
+        """log g_t(y_t | x_t) at paths x of shape (T, S) (or (T, S, k) for k > 1); returns (T, S)."""
         raise NotImplementedError
 
     def simulate(self, params: Mapping, n_periods: int, key: jax.Array):
-        """Return ``(y, x)``: observations, shape (T,) or (T, n_series), and the latent path (T,)."""
+        """Return ``(y, x)``: observations, shape (T,) or (T, n_series), and the latent path,
+        shape (T,) (or (T, k) for k > 1)."""
         raise NotImplementedError
 
     def start_params(self, y: np.ndarray) -> dict[str, float]:
@@ -103,9 +131,13 @@ class Model:
         return y
 
     def mode_guess(self, params: Mapping, data) -> jax.Array:
-        """A rough path for the posterior mode of x, shape (T,) (default: the state's mean)."""
-        state = self.latent(params)
+        """A rough path for the posterior mode of x, shape (T,) or (T, k) for k > 1 (default: the
+        state's mean)."""
         n_periods = jax.tree.leaves(data)[0].shape[0]
+        if self.state_dim > 1:
+            mean = jnp.asarray(self.latent_var(params).init_mean, float)
+            return jnp.broadcast_to(mean, (n_periods, mean.shape[0]))
+        state = self.latent(params)
         return jnp.full((n_periods,), state.init_mean, dtype=jnp.result_type(float))
 
     def check_data(self, y: np.ndarray) -> np.ndarray:
