@@ -9,7 +9,8 @@ import pytest
 from scipy import optimize, stats
 
 import smle
-from smle import SmleInputError, eis
+from smle import SmleInputError
+from smle.engine import eis
 from smle.reference import grid_loglik
 from smle.reference.grid import _grid_filter_jit
 from smle.results import _equal

@@ -61,7 +61,8 @@ import jax.numpy as jnp
 import numpy as np
 from jax.scipy.stats import norm
 
-from smle import latent, params as P
+from smle import params as P
+from smle.engine import latent
 from smle.distributions import inverse_gaussian_log_density, nig_log_density, normal_to_inverse_gaussian
 from smle.errors import SmleInputError
 from smle.models import register

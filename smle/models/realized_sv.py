@@ -27,7 +27,8 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from smle import latent, params as P
+from smle import params as P
+from smle.engine import latent
 from smle.errors import SmleInputError
 from smle.models import register
 from smle.models.sv import LogVarianceState

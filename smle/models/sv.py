@@ -18,7 +18,8 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from smle import latent, params as P
+from smle import params as P
+from smle.engine import latent
 from smle.models import register
 from smle.models.base import Model
 

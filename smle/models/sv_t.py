@@ -25,7 +25,8 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from smle import latent, params as P
+from smle import params as P
+from smle.engine import latent
 from smle.distributions import standardized_student_t_log_density
 from smle.models import register
 from smle.models.sv import LogVarianceState
