@@ -298,11 +298,9 @@ def choose_grid(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_p
 
 def _grid_for(lower, upper, spacing, state, max_size, time_varying) -> ExactGrid:
     needed = (upper - lower) / spacing + 1
-    size = next((s for s in SIZES if s >= needed and s <= max_size), None)
-    if size is None:
-        raise SmleInputError(
-            f"the exact grid needs {math.ceil(needed)} points to resolve the state on [{lower:.4g}, {upper:.4g}] "
-            f"at spacing {spacing:.3g}; accepted: at most max_size = {max_size} points")
+    # beyond max_size the largest allowed grid is used and the accuracy check reports what it reaches
+    allowed = [s for s in SIZES if s <= max_size] or [SIZES[0]]
+    size = next((s for s in allowed if s >= needed), allowed[-1])
     return ExactGrid(float(lower), float(upper), size, _band_for(size, (upper - lower) / (size - 1), state, time_varying))
 
 
@@ -361,8 +359,10 @@ def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_
                                  "density at every grid point); check the data and parameters")
         best = (error, spec.size)
         if edge > EDGE_MASS_TOL:
+            if spec.size >= min(max_size, SIZES[-1]):
+                break
             half = 0.25 * (spec.upper - spec.lower)
-            spec = _widen(spec, half, state, transition is not None, max_size, best, tol)
+            spec = _grid_for(spec.lower - half, spec.upper + half, spec.spacing, state, max_size, transition is not None)
             continue
         if error <= tol:
             return ExactFilterOutput(jnp.sum(log_pred), log_pred, mean, sd, spec.points(), spec.size, error, edge, spec)
@@ -372,8 +372,9 @@ def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_
         spec = _grid_for(spec.lower, spec.upper, (spec.upper - spec.lower) / (finer - 1), state, max_size,
                          transition is not None)
     raise SmleInputError(
-        f"the exact grid reached an accuracy of {best[0]:.3g} (log-likelihood units) with {best[1]} points, "
-        f"short of tol = {tol!r}; accepted: a larger max_size (now {max_size}) or a looser tol")
+        f"the exact grid reached an accuracy of {best[0]:.3g} (log-likelihood units) with {best[1]} points "
+        f"(largest filtered mass at the grid's edges {edge:.3g}), short of tol = {tol!r}; accepted: a larger "
+        f"max_size (now {max_size}) or a looser tol")
 
 
 def _coarser(spec, state, time_varying):
@@ -381,17 +382,6 @@ def _coarser(spec, state, time_varying):
     size = max(s for s in COARSE_SIZES if s < spec.size)
     band = _band_for(size, (spec.upper - spec.lower) / (size - 1), state, time_varying)
     return ExactGrid(spec.lower, spec.upper, size, band)
-
-
-def _widen(spec, half, state, time_varying, max_size, best, tol):
-    lower, upper = spec.lower - half, spec.upper + half
-    try:
-        return _grid_for(lower, upper, spec.spacing, state, max_size, time_varying)
-    except SmleInputError:
-        raise SmleInputError(
-            f"the state leaves the exact grid [{spec.lower:.4g}, {spec.upper:.4g}] and widening needs more "
-            f"than max_size = {max_size} points; accuracy reached {best[0]:.3g} with {best[1]} points "
-            f"(tol = {tol!r})") from None
 
 
 # ---------------------------------------------------------------------------------------------
@@ -432,18 +422,34 @@ def _smooth(grid, predicted, filtered, state, transition):
     return jnp.concatenate([rest, filtered[-1][None]])
 
 
+@jax.jit
+def _quantiles(masses, grid, level):
+    """The ``level`` quantile of each row's law, from the sinc interpolant of the density: its CDF
+    is ``sum_j m_j (1/2 + Si(pi (x - x_j) / h) / pi)``, accurate to the grid's geometric order
+    (a piecewise-linear CDF is only O(h^2): measured 0.04 off at h = 0.6 sd). Four Newton steps
+    from the piecewise-linear estimate."""
+    spacing = grid[1] - grid[0]
+    crude = jax.vmap(lambda row: jnp.interp(level, jnp.cumsum(row) - 0.5 * row, grid))(masses)
+
+    def newton(x, _):
+        z = (x[:, None] - grid[None, :]) / spacing
+        cdf = jnp.sum(masses * (0.5 + jax.scipy.special.sici(jnp.pi * z)[0] / jnp.pi), axis=1)
+        density = jnp.sum(masses * jnp.sinc(z), axis=1) / spacing
+        return x - (cdf - level) / jnp.maximum(density, 1e-300), None
+
+    return jax.lax.scan(newton, crude, None, length=4)[0]
+
+
 def smooth(state: LatentAR1, log_g: jax.Array, spec: ExactGrid, transition: PeriodTransition | None = None,
            levels: tuple = (0.05, 0.95)) -> SmoothedOutput:
     """Smoothed law of x_t given y_1..y_T by the backward pass on the grid (Kitagawa 1987, sec. 2):
-    mean, sd and the ``levels`` quantiles (linear interpolation of the grid CDF)."""
+    mean, sd and the ``levels`` quantiles (see :func:`_quantiles`)."""
     grid = spec.points()
     predicted, filtered = predicted_masses(state, log_g, spec, transition)
     masses = _smooth(grid, predicted, filtered, state, transition)
     mean = masses @ grid
     sd = jnp.sqrt(jnp.maximum(masses @ grid**2 - mean**2, 0.0))
-    # the mass of point j spread over its cell: the CDF at x_j is the mass below plus half of m_j
-    cdf = jnp.cumsum(masses, axis=1) - 0.5 * masses
-    quantiles = [jax.vmap(lambda c, q=q: jnp.interp(q, c, grid))(cdf) for q in levels]
+    quantiles = [_quantiles(masses, grid, q) for q in levels]
     return SmoothedOutput(mean, sd, quantiles[0], quantiles[-1], tuple(levels))
 
 
