@@ -96,7 +96,7 @@ def test_smoothed_moments_and_predictive_pits_equal_kalman(ar1_data):
     np.testing.assert_allclose(pits, expected, atol=1e-8)
 
 
-def numpy_point_mass_loglik(y, mu, phi, sigma_eta, lower=-10.0, upper=8.0, n_points=1500):
+def numpy_point_mass_loglik(y, mu, phi, sigma_eta, lower=-10.0, upper=8.0, n_points=1200):
     """Kitagawa (1987) point-mass filter for sv in plain NumPy: a dense, very fine grid with the
     trapezoid weights h N(x_i; mu + phi (x_j - mu), sigma_eta^2), no normalisation."""
     x = np.linspace(lower, upper, n_points)
@@ -180,13 +180,13 @@ def test_garch_mix_state_in_far_tails_is_covered():
     # a nearly degenerate mixing law (lambda = 50, Var W = 0.02) and a small GARCH intercept: the
     # large DAX residuals (EuStockMarkets) in units of sqrt(h_t) can only come from an extreme
     # W_t, so the data push the state beyond 10 sd. The automatic grid must reach there and agree
-    # with a wide fixed grid [-12, 20] of 1536 points; a fixed +- 8 sd grid is visibly wrong
+    # with a wide fixed grid [-12, 20] of 1024 points; a fixed +- 8 sd grid is visibly wrong
     p = {**GARCH_NIG, "omega": 0.002, "alpha": 0.02, "beta": 0.97, "rho": 0.5, "lambda": 50.0}
     y = eustock_returns("DAX", 1859)
     out = run_exact(GARCH_MIX, p, y)
     assert out.spec.upper > 12.0
     assert float(jnp.max(out.filtered_mean + 3 * out.filtered_sd)) > 9.0  # measured 10.1
-    wide = exact.ExactGrid(-12.0, 20.0, 1536, 0)
+    wide = exact.ExactGrid(-12.0, 20.0, 1024, 0)
     state = GARCH_MIX.latent(as_jax(p))
     reference = float(exact.loglik_on_grid(state, log_g_on(GARCH_MIX, p, y, wide), wide))
     assert abs(float(out.loglik) - reference) < 1e-6
@@ -202,7 +202,7 @@ def test_reported_error_bound_is_honest(sp500_returns):
     params = dict(mu=-0.4, phi=0.995, sigma_eta=0.07)
     state = SV.latent(as_jax(params))
     chosen = run_exact(SV, params, y).spec
-    fine = chosen._replace(size=3072, band=0)
+    fine = chosen._replace(size=1536, band=0)
     truth = float(exact.loglik_on_grid(state, log_g_on(SV, params, y, fine), fine))
     actual_errors = []
     for size in (96, 128, 192, 256):
