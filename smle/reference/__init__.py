@@ -1,6 +1,6 @@
 """Exact (deterministic) likelihood references that the simulated estimators are checked against.
 
-* :func:`kalman_loglik` / :func:`kalman_filter`: linear Gaussian models (Kalman 1960; Durbin and
+* :func:`kalman_loglik` / :func:`kalman_filter` / :func:`kalman_smoother`: linear Gaussian models (Kalman 1960; Durbin and
   Koopman 2012, chapters 2 and 5), with an exact diffuse start for the random walk.
 * :func:`grid_loglik` / :func:`grid_filter`: any model with a univariate stationary latent state,
   by a deterministic grid (quadrature) filter (Kitagawa 1987, JASA 82).
@@ -13,7 +13,7 @@
 
 from smle.reference.grid import GridFilterOutput, grid_filter, grid_loglik
 from smle.reference.grid2d import grid2d_loglik
-from smle.reference.kalman import KalmanOutput, kalman_filter, kalman_loglik
+from smle.reference.kalman import KalmanOutput, kalman_filter, kalman_loglik, kalman_smoother
 from smle.reference.kalman_var import kalman_loglik_var
 from smle.engine.quadrature import log_integral_adaptive
 
@@ -26,5 +26,6 @@ __all__ = [
     "kalman_filter",
     "kalman_loglik",
     "kalman_loglik_var",
+    "kalman_smoother",
     "log_integral_adaptive",
 ]
