@@ -161,7 +161,7 @@ def test_a_prepared_table_is_fitted_as_is(tmp_path, capsys):
 def test_compilation_is_announced_before_the_first_evaluation(tmp_path, capsys, monkeypatch):
     import smle.fit as fit_module  # noqa: F401  (the package attribute is the function)
 
-    monkeypatch.setattr(sys.modules["smle.fit"], "_COMPILED_SHAPES", set())
+    monkeypatch.setattr(sys.modules["smle.optimizer"], "COMPILED_SHAPES", set())
     path, _, _ = _model_file(tmp_path, "local-level")
     assert cli.main(["fit", str(path), "--model", "local-level", "--draws", str(DRAWS), "--max-steps", "1",
                      "--particles", "0"]) in (0, 3)

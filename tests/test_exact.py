@@ -13,7 +13,7 @@ from scipy import stats
 
 import smle
 from smle.distributions import normal_to_inverse_gaussian
-from smle.engine import exact, latent
+from smle.engine import exact, exact_smoothing, latent
 from smle.errors import SmleInputError
 from smle.reference import kalman_filter, kalman_loglik, kalman_smoother
 
@@ -81,7 +81,7 @@ def test_smoothed_moments_and_predictive_pits_equal_kalman(ar1_data):
     out = run_exact(AR1, params, y)
     state = AR1.latent(as_jax(params))
     log_g = log_g_on(AR1, params, y, out.spec)
-    smoothed = exact.smooth(state, log_g, out.spec)
+    smoothed = exact_smoothing.smooth(state, log_g, out.spec)
     mean, var = kalman_smoother(y, state, params["sigma_eps"] ** 2)
     np.testing.assert_allclose(smoothed.mean, mean, atol=1e-8)
     np.testing.assert_allclose(smoothed.sd, np.sqrt(var), atol=1e-8)
@@ -90,7 +90,7 @@ def test_smoothed_moments_and_predictive_pits_equal_kalman(ar1_data):
     np.testing.assert_allclose(smoothed.upper, mean + 1.6448536 * np.sqrt(var), atol=2e-6)  # measured 6.6e-7
     pjax = as_jax(params)
     cdf = AR1.obs_cdf(pjax, AR1.prepare(pjax, jnp.asarray(y)), jnp.broadcast_to(out.spec.points(), log_g.shape))
-    pits = exact.predictive_pit(state, log_g, out.spec, cdf)
+    pits = exact_smoothing.predictive_pit(state, log_g, out.spec, cdf)
     kf = kalman_filter(y, state, params["sigma_eps"] ** 2)
     expected = stats.norm.cdf(np.asarray(kf.innovation) / np.sqrt(np.asarray(kf.innovation_var)))
     np.testing.assert_allclose(pits, expected, atol=1e-8)
@@ -275,7 +275,7 @@ def test_period_transition_with_an_observed_input_equals_kalman(ar1_data):
     assert abs(float(out.loglik) - total) < 1e-8
     # and its smoother runs through the same hook (means within the filtered range)
     log_g = log_g_on(AR1, params, y, out.spec)
-    smoothed = exact.smooth(state, log_g, out.spec, transition(out.spec.points()))
+    smoothed = exact_smoothing.smooth(state, log_g, out.spec, transition(out.spec.points()))
     assert np.all(np.isfinite(smoothed.mean))
 
 

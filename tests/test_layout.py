@@ -35,7 +35,7 @@ LAYERS = [
     ("models", ["smle.models"]),
     ("likelihood", ["smle.validation", "smle.likelihood"]),
     ("reference", ["smle.reference"]),
-    ("fitting", ["smle.fit", "smle.results", "smle.restricted"]),
+    ("fitting", ["smle.optimizer", "smle.fit", "smle.results", "smle.restricted"]),
     ("diagnostics", ["smle.diagnostics"]),
     ("decision", ["smle.decision"]),
     ("data", ["smle.data"]),
@@ -48,6 +48,9 @@ MAX_MODULE_LINES = 450
 MAX_FUNCTION_LINES = 80
 # Functions allowed to be longer than MAX_FUNCTION_LINES, each with the reason.
 LONG_FUNCTIONS: dict[str, str] = {
+    "smle.fit.fit": "a public entry point whose docstring documents every argument (35 lines); the body is 31",
+    "smle.likelihood.loglik": "a public entry point whose docstring documents every argument and the regions where "
+                              "EIS breaks down (46 lines); the body is 42",
     "smle.data.demo.demo_scenario": "the demo scenario's steps read best in one place; its file is being changed "
                                     "on another branch, split after that merge",
     "smle.data.prepare.prepare_daily": "one pass over the intraday table; its file is being changed on another "

@@ -136,16 +136,6 @@ class ExactFilterOutput(NamedTuple):
     spec: ExactGrid
 
 
-class SmoothedOutput(NamedTuple):
-    """Smoothed law of x_t given all data, shape (T,) each; quantiles from the grid CDF."""
-
-    mean: jax.Array
-    sd: jax.Array
-    lower: jax.Array
-    upper: jax.Array
-    levels: tuple
-
-
 # ---------------------------------------------------------------------------------------------
 # the compiled recursion
 
@@ -395,80 +385,3 @@ def _coarser(spec, state, time_varying):
 # smoothing and predictive PITs (not on the likelihood fast path)
 
 
-@functools.partial(jax.jit, static_argnames=("band",))
-def _masses(grid, log_g, state, transition, band):
-    _, _, _, _, predicted, filtered = _run(grid, log_g, state, transition, band, keep=True)
-    return predicted, filtered
-
-
-def predicted_masses(state: LatentAR1, log_g: jax.Array, spec: ExactGrid,
-                     transition: PeriodTransition | None = None):
-    """Predicted and filtered masses on the grid, each (T, G): p(x_t = x_i | y_1..y_{t-1}) and
-    p(x_t = x_i | y_1..y_t) times the spacing."""
-    return _masses(spec.points(), log_g, state, transition, spec.band if transition is None else 0)
-
-
-@jax.jit
-def _smooth(grid, predicted, filtered, state, transition):
-    spacing = grid[1] - grid[0]
-    if transition is None:
-        kernel = _dense_kernel(grid, state.intercept + state.phi * grid, state.sigma_eta, spacing)
-        rows = None
-    else:
-        rows = (transition.mean, transition.sd)
-
-    def step(after, inputs):
-        pred_next, filt, row = inputs
-        k = kernel if row is None else _dense_kernel(grid, row[0], row[1], spacing)
-        ratio = jnp.where(pred_next > 1e-300, after / jnp.maximum(pred_next, 1e-300), 0.0)
-        current = filt * (k.T @ ratio)
-        current = current / jnp.sum(current)
-        return current, current
-
-    _, rest = jax.lax.scan(step, filtered[-1], (predicted[1:], filtered[:-1], rows), reverse=True)
-    return jnp.concatenate([rest, filtered[-1][None]])
-
-
-@jax.jit
-def _quantiles(masses, grid, level):
-    """The ``level`` quantile of each row's law, from the sinc interpolant of the density: its CDF
-    is ``sum_j m_j (1/2 + Si(pi (x - x_j) / h) / pi)``, accurate to the grid's geometric order
-    (a piecewise-linear CDF is only O(h^2): measured 0.04 off at h = 0.6 sd). Four Newton steps
-    from the piecewise-linear estimate."""
-    spacing = grid[1] - grid[0]
-    crude = jax.vmap(lambda row: jnp.interp(level, jnp.cumsum(row) - 0.5 * row, grid))(masses)
-
-    def newton(x, _):
-        z = (x[:, None] - grid[None, :]) / spacing
-        cdf = jnp.sum(masses * (0.5 + jax.scipy.special.sici(jnp.pi * z)[0] / jnp.pi), axis=1)
-        density = jnp.sum(masses * jnp.sinc(z), axis=1) / spacing
-        return x - (cdf - level) / jnp.maximum(density, 1e-300), None
-
-    return jax.lax.scan(newton, crude, None, length=4)[0]
-
-
-def smooth(state: LatentAR1, log_g: jax.Array, spec: ExactGrid, transition: PeriodTransition | None = None,
-           levels: tuple = (0.05, 0.95)) -> SmoothedOutput:
-    """Smoothed law of x_t given y_1..y_T by the backward pass on the grid (Kitagawa 1987, sec. 2):
-    mean, sd and the ``levels`` quantiles (see :func:`_quantiles`)."""
-    grid = spec.points()
-    predicted, filtered = predicted_masses(state, log_g, spec, transition)
-    masses = _smooth(grid, predicted, filtered, state, transition)
-    mean = masses @ grid
-    sd = jnp.sqrt(jnp.maximum(masses @ grid**2 - mean**2, 0.0))
-    quantiles = [_quantiles(masses, grid, q) for q in levels]
-    return SmoothedOutput(mean, sd, quantiles[0], quantiles[-1], tuple(levels))
-
-
-def predictive_pit(state: LatentAR1, log_g: jax.Array, spec: ExactGrid, cdf_values: jax.Array,
-                   transition: PeriodTransition | None = None) -> jax.Array:
-    """One-step predictive PITs ``u_t = sum_i p(x_i | y_1..y_{t-1}) F(y_t | x_i)``.
-
-    ``cdf_values``: F(y_t | x_i) on ``spec.points()``, shape (T, G) or (T, G, n_series); the result
-    has shape (T,) or (T, n_series). Under the model the u_t are i.i.d. uniform (Rosenblatt 1952).
-    """
-    predicted, _ = predicted_masses(state, log_g, spec, transition)
-    weights = predicted / jnp.sum(predicted, axis=1, keepdims=True)
-    if cdf_values.ndim == 3:
-        return jnp.einsum("tg,tgn->tn", weights, cdf_values)
-    return jnp.sum(weights * cdf_values, axis=1)
