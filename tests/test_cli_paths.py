@@ -30,7 +30,14 @@ PARAMS = {
     "realized-sv": dict(mu=0.0, phi=0.97, sigma_eta=0.2, xi=-0.3, sigma_u=0.4),
     "garch-mix": dict(mu=0.03, ar1=0.05, omega=0.05, alpha=0.06, beta=0.90, gamma=-0.4, s=0.6, rho=0.9,
                       xi=-0.3, sigma_u=0.4),
+    "garch": dict(mu=0.03, ar1=0.05, omega=0.05, alpha=0.06, beta=0.90),
+    "sv-2factor": dict(mu=0.0, phi1=0.97, sigma_eta1=0.2, phi2=0.5, sigma_eta2=0.4),
 }
+# The k-dimensional models with several observed series share sv-2factor's path through the
+# command line (the multivariate EIS dispatch) and the multi-column reading that realized-sv and
+# garch-mix test here; each one compiles for tens of seconds, so they are left out of this test.
+NOT_HERE = {"var1-noise", "factor-sv"}
+DRAWS_FOR = {"sv-2factor": 16}  # the full quadratic basis of a 2-d state needs S/2 > 4 draw pairs
 OPTIONS = {"garch-mix": ["link=lognormal", "realized=true"]}  # both options, and two observed series
 DATES = pd.bdate_range("2031-01-06", periods=T).strftime("%Y-%m-%d")
 
@@ -76,9 +83,10 @@ def test_options_are_converted_by_field_type_and_bad_ones_named():
 # sv from a file is fitted by tests/test_cli.py (T = 500, 64 draws); one compilation less here
 @pytest.mark.parametrize("name", sorted(set(PARAMS) - {"sv"}))
 def test_each_model_from_the_command_line(name, tmp_path, capsys):
-    assert set(PARAMS) == set(smle.model_names())
+    assert set(PARAMS) == set(smle.model_names()) - NOT_HERE
     path, columns, _ = _model_file(tmp_path, name)
-    argv = ["fit", str(path), "--model", name, "--draws", str(DRAWS), "--max-steps", "1", "--particles", "0",
+    argv = ["fit", str(path), "--model", name, "--draws", str(DRAWS_FOR.get(name, DRAWS)), "--max-steps", "1",
+            "--particles", "0",
             "--quiet"]
     for option in OPTIONS.get(name, []):
         argv += ["--option", option]
