@@ -80,8 +80,8 @@ def test_bad_settings_and_seed(returns):
 
 
 def test_unknown_model_lists_the_registry(returns):
-    with pytest.raises(SmleInputError, match=r"model = 'garch' is not a registered model; available: .*sv"):
-        smle.loglik("garch", SV, returns)
+    with pytest.raises(SmleInputError, match=r"model = 'egarch' is not a registered model; available: .*sv"):
+        smle.loglik("egarch", SV, returns)
 
 
 def test_grid_filter_refuses_a_random_walk_state():

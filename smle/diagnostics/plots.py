@@ -33,6 +33,14 @@ def _legend_below(axis, columns: int = 3) -> None:
     axis.legend(fontsize=8, loc="upper center", bbox_to_anchor=(0.5, -0.18), ncols=columns, frameon=False)
 
 
+def _figure_legend_below(axis, columns: int = 2) -> None:
+    """For a figure whose lowest axes carry a time axis (dates, rotated): the legend in the
+    "outside" slot of the constrained layout, which makes room below the tick labels and the
+    axis label whatever their height."""
+    handles, labels = axis.get_legend_handles_labels()
+    axis.figure.legend(handles, labels, fontsize=8, loc="outside lower center", ncols=columns, frameon=False)
+
+
 def factor_shown(model_name: str, options: dict | None, params: dict | None, *states):
     """The states as the model shows its factor (``Model.factor_display``) and the label:
     ``(label, shown_1, shown_2, ...)``. Without parameters, the states themselves."""
@@ -61,7 +69,7 @@ def data_and_factor(result, y, label: str, path) -> Path | Figure:
     bottom.plot(t, mean, color="#8c3b1e", lw=0.9, label="at the posterior mean of the state")
     bottom.set_ylabel(name)
     time_axis(bottom, len(t), getattr(result, "dates", None))
-    _legend_below(bottom, 2)
+    _figure_legend_below(bottom, 2)
     if path is None:
         return figure
     figure.savefig(path, dpi=110)
@@ -191,6 +199,6 @@ def _factor_filtered_smoothed(d) -> Figure:
     time_axis(axis, len(t), d.dates)
     axis.set_ylabel(name)
     axis.set_title(f"Filtered and smoothed factor ({d.model}, {f.n_particles} particles)")
-    _legend_below(axis)
+    _figure_legend_below(axis, 3)
     axis.grid(alpha=0.3)
     return figure
