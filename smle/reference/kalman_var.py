@@ -36,6 +36,7 @@ class KalmanVAROutput(NamedTuple):
     contributions: jax.Array
 
 
+@jax.jit
 def kalman_filter_var(y, state: LatentVAR1, obs_cov, loading=None, obs_intercept=None) -> KalmanVAROutput:
     """Run the filter on observations ``y`` of shape (T, p); ``loading`` Z is (p, k) (default I)."""
     y = jnp.asarray(y, float)
