@@ -568,7 +568,7 @@ def _all_finite(tree):
 
 
 
-@settings(max_examples=80, deadline=None)
+@settings(max_examples=80, deadline=None, derandomize=True)  # the same examples every run: CI is never flaky
 @given(
     x=st.floats(-1e4, 1e4),
     alpha=_log_uniform(1e-2, 1e3),
@@ -587,7 +587,7 @@ def test_log_densities_finite_over_admissible_region(x, alpha, beta_ratio, mu, d
     assert _all_finite((evaluate(log_k1, [z]), evaluate(log_k1_derivatives, [z])))
 
 
-@settings(max_examples=80, deadline=None)
+@settings(max_examples=80, deadline=None, derandomize=True)  # the same examples every run: CI is never flaky
 @given(
     p=st.floats(1e-15, 1.0 - 1e-15),
     x=st.floats(-8.0, 8.0),

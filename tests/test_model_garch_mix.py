@@ -218,7 +218,7 @@ def test_zero_returns_are_ordinary(data):
     assert np.isfinite(smle.loglik(MODELS["ig"][0], IG, y, n_draws=N_DRAWS, seed=1).value)
 
 
-@settings(max_examples=15, deadline=None)
+@settings(max_examples=15, deadline=None, derandomize=True)  # the same examples every run: CI is never flaky
 @given(
     mu=st.floats(-0.5, 0.5), ar1=st.floats(-0.9, 0.9), omega=st.floats(1e-3, 1.0),
     persistence=st.floats(0.05, 0.995), share=st.floats(0.01, 0.6), gamma=st.floats(-2.0, 2.0),

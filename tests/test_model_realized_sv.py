@@ -103,7 +103,7 @@ def test_zero_returns_are_ordinary(data500):
     assert np.isfinite(smle.loglik("realized-sv", DESIGN, y, n_draws=N_DRAWS, seed=1).value)
 
 
-@settings(max_examples=15, deadline=None)
+@settings(max_examples=15, deadline=None, derandomize=True)  # the same examples every run: CI is never flaky
 @given(
     mu=st.floats(-3, 3), phi=st.floats(-0.9, 0.995), sigma_eta=st.floats(0.02, 1.5),
     xi=st.floats(-2, 2), sigma_u=st.floats(0.05, 2.0),
