@@ -4,6 +4,8 @@ Compiled EIS kernels are cached per (model, settings, data shape): tests reuse a
 shapes (T in {40, 500, 2000, 2780}, n_draws in {4, 32, 64}) so that CI compiles each only once.
 """
 
+import gc
+
 import numpy as np
 import pytest
 
@@ -16,6 +18,23 @@ JPR_DESIGNS = {
     "phi=0.95": dict(mu=-7.36, phi=0.95, sigma_eta=0.260),
     "phi=0.98": dict(mu=-7.36, phi=0.98, sigma_eta=0.166),
 }
+
+
+@pytest.fixture(scope="module", autouse=True)
+def release_compiled_programs():
+    """Drop the compiled programs of each test module when it ends.
+
+    Every compiled XLA program keeps about 20 memory mappings, and the whole suite in one process
+    reached Linux's default limit of 65,530 mappings (vm.max_map_count) about three quarters of
+    the way through, where the next compilation aborted (measured: 64,151 mappings just before
+    the crash). Programs a later module needs again come back from the persistent compilation
+    cache on disk.
+    """
+    yield
+    import jax
+
+    jax.clear_caches()
+    gc.collect()
 
 
 @pytest.fixture(scope="session")
