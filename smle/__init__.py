@@ -14,7 +14,7 @@ from smle import _config
 
 _config.configure()
 
-from smle.errors import SmleInputError  # noqa: E402
+from smle.errors import EISBreakdownError, SmleInputError  # noqa: E402
 
 __version__ = "0.1.0"
 
@@ -84,6 +84,7 @@ __all__ = [
     "LoglikResult",
     "Model",
     "SmleInputError",
+    "EISBreakdownError",
     "get_model",
     "loglik",
     "model_names",
