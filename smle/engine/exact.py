@@ -245,8 +245,17 @@ def _check_state(state: LatentAR1) -> None:
         raise SmleInputError(f"sigma_eta = {state.sigma_eta!r} is not accepted; accepted: > 0")
 
 
+def log_g_and_curvature(log_obs: Callable[[jax.Array], jax.Array], x: jax.Array):
+    """``(log g, -d^2 log g / dx^2)`` at states x of shape (T, S), for :func:`choose_grid` (log g is
+    elementwise in x, so the Hessian-vector product with ones is its diagonal)."""
+    def total(z):
+        return jnp.sum(log_obs(z))
+    return log_obs(x), -jax.jvp(jax.grad(total), (x,), (jnp.ones_like(x),))[1]
+
+
 def choose_grid(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_periods: int,
-                transition_sd: float | None = None, refine: int = 1, max_size: int = SIZES[-1]) -> ExactGrid:
+                transition_sd: float | None = None, refine: int = 1, max_size: int = SIZES[-1],
+                curvature_probe: Callable | None = None) -> ExactGrid:
     """The grid for a state and data (see the module docstring).
 
     Args:
@@ -257,6 +266,8 @@ def choose_grid(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_p
         (default: ``state.sigma_eta``).
       refine: divide the spacing by this factor (the accuracy loop doubles it).
       max_size: the largest grid allowed.
+      curvature_probe: x -> :func:`log_g_and_curvature` of ``log_obs`` at x, compiled by the caller (default:
+        compiled here, once per call).
     """
     state = _concrete_state(state)
     _check_state(state)
@@ -264,31 +275,38 @@ def choose_grid(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_p
     probe = mean0 + sd0 * np.linspace(-PROBE_SDS, PROBE_SDS, PROBE_POINTS)
     states = jnp.broadcast_to(jnp.asarray(probe), (n_periods, PROBE_POINTS))
 
-    def values_and_curvature(x):
-        def total(z):
-            return jnp.sum(log_obs(z))
-        # log g is elementwise in x, so the Hessian-vector product with ones is its diagonal
-        return log_obs(x), -jax.jvp(jax.grad(total), (x,), (jnp.ones_like(x),))[1]
-
-    log_g, curvature = jax.jit(values_and_curvature)(states)
-    log_g, curvature = np.asarray(log_g), np.asarray(curvature)
-    if not np.all(np.isfinite(log_g[:, PROBE_POINTS // 2])):
+    if curvature_probe is None:
+        curvature_probe = jax.jit(functools.partial(log_g_and_curvature, log_obs))
+    centre_finite, low, high, kappa = (float(v) for v in _probe_summary(*curvature_probe(states), jnp.asarray(probe),
+                                                                          mean0, sd0))
+    if not centre_finite:
         raise SmleInputError("the observation log density is not finite at the state's mean for some periods")
-    log_q = np.where(np.isfinite(log_g), log_g, -np.inf) - 0.5 * ((probe - mean0) / sd0) ** 2
-    top = np.max(log_q, axis=1, keepdims=True)
-    inside = log_q >= top - TAIL_NATS
     probe_step = probe[1] - probe[0]
-    covered = probe[np.any(inside, axis=0)]
-    lower = min(float(covered.min()) - probe_step, mean0 - STATIONARY_SDS * sd0)
-    upper = max(float(covered.max()) + probe_step, mean0 + STATIONARY_SDS * sd0)
-    # curvature where the single-period posterior has its mass (its posterior mean, then the
-    # 90% quantile over periods: outliers alone would double the grid); the accuracy check catches what this rough guide misses
-    weight = np.exp(log_q - top) * np.isfinite(curvature)
-    weighted = np.sum(weight * np.where(np.isfinite(curvature), np.maximum(curvature, 0.0), 0.0), axis=1)
-    kappa = float(np.quantile(weighted / np.maximum(np.sum(weight, axis=1), 1e-300), 0.9))
+    lower = min(low - probe_step, mean0 - STATIONARY_SDS * sd0)
+    upper = max(high + probe_step, mean0 + STATIONARY_SDS * sd0)
     sd_min = state.sigma_eta if transition_sd is None else float(transition_sd)
     width = 1.0 / math.sqrt(1.0 / sd_min**2 + kappa)
     return _grid_for(lower, upper, width / (CELLS_PER_WIDTH * refine), state, max_size, transition_sd is not None)
+
+
+@jax.jit
+def _probe_summary(log_g, curvature, probe, mean0, sd0):
+    """From log g and its curvature on the probe grid (T, S): whether log g is finite at the
+    state's mean in every period; the range of states where some period's single-period posterior
+    is within TAIL_NATS of its maximum; and the curvature where that posterior has its mass (its
+    posterior mean per period, then the 90% quantile over periods: outliers alone would double
+    the grid; the accuracy check catches what this rough guide misses)."""
+    centre_finite = jnp.all(jnp.isfinite(log_g[:, PROBE_POINTS // 2]))
+    log_q = jnp.where(jnp.isfinite(log_g), log_g, -jnp.inf) - 0.5 * ((probe - mean0) / sd0) ** 2
+    top = jnp.max(log_q, axis=1, keepdims=True)
+    covered = jnp.any(log_q >= top - TAIL_NATS, axis=0)
+    low = jnp.min(jnp.where(covered, probe, jnp.inf))
+    high = jnp.max(jnp.where(covered, probe, -jnp.inf))
+    finite = jnp.isfinite(curvature)
+    weight = jnp.exp(log_q - top) * finite
+    weighted = jnp.sum(weight * jnp.where(finite, jnp.maximum(curvature, 0.0), 0.0), axis=1)
+    kappa = jnp.quantile(weighted / jnp.maximum(jnp.sum(weight, axis=1), 1e-300), 0.9)
+    return centre_finite, low, high, kappa
 
 
 def _grid_for(lower, upper, spacing, state, max_size, time_varying) -> ExactGrid:
@@ -311,7 +329,8 @@ def _band_for(size, spacing, state, time_varying) -> int:
 
 def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_periods: int, tol: float = 1e-6,
                  transition: Callable[[jax.Array], PeriodTransition] | None = None,
-                 max_size: int = SIZES[-1], spec: ExactGrid | None = None) -> ExactFilterOutput:
+                 max_size: int = SIZES[-1], spec: ExactGrid | None = None,
+                 curvature_probe: Callable | None = None) -> ExactFilterOutput:
     """The exact log-likelihood with an automatic, checked grid.
 
     Args:
@@ -323,6 +342,7 @@ def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_
       transition: optional grid -> :class:`PeriodTransition` for a time-varying transition.
       max_size: the largest grid tried.
       spec: start from this grid instead of :func:`choose_grid`'s.
+      curvature_probe: passed to :func:`choose_grid`.
 
     Raises:
       SmleInputError: the accuracy ``tol`` is not reached within ``max_size`` points (the message
@@ -338,7 +358,8 @@ def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_
                                         state.init_mean + 8 * math.sqrt(state.init_var), 64))
         transition_sd = float(jnp.min(probe.sd))
     if spec is None:
-        spec = choose_grid(state, log_obs, n_periods, transition_sd, max_size=max_size)
+        spec = choose_grid(state, log_obs, n_periods, transition_sd, max_size=max_size,
+                           curvature_probe=curvature_probe)
     best = None
     for _ in range(12):
         coarse = _coarser(spec, state, transition is not None)

@@ -9,7 +9,7 @@
 
     y_t = x_t + e_t,   x_t = x_{t-1} + sigma_eta eta_t
 
-Both have an exact Kalman-filter likelihood (:mod:`smle.reference.kalman`), and since log g_t is
+Both have an exact Kalman-filter likelihood (:mod:`smle.engine.kalman`), and since log g_t is
 exactly quadratic in x_t, EIS reproduces it to rounding error for any number of draws.
 """
 
@@ -38,6 +38,9 @@ class _GaussianNoise:
 
     def mode_guess(self, params, data):
         return jnp.asarray(data, float)
+
+    def gaussian_measurement(self, params):
+        return params["sigma_eps"] ** 2
 
     def obs_cdf(self, params, data, x):
         from smle.distributions import normal_cdf  # here, not at the top: keeps this hook self-contained

@@ -58,6 +58,8 @@ state-space methods ``loglik_closed_form(params, y)`` (the exact log-likelihood,
 ``log_predictive(params, y)`` and ``predictive_cdf(params, y)`` (per period, shape (T,)), and
 ``factor_path(params, y)``: the path a fit reports in place of a smoothed factor.
 * ``factor_display(params, x)``: the quantity figures show for the factor (default: x itself).
+* ``gaussian_measurement(params)``: for a linear Gaussian model, ``y_t = x_t + N(0, v)``, the
+  variance ``v``; the exact method then runs the Kalman filter (default None: not linear Gaussian).
 
 The engine knows nothing about any particular model.
 """
@@ -126,6 +128,10 @@ class Model:
         raise NotImplementedError
 
     # -- optional hooks ----------------------------------------------------------------------
+    def gaussian_measurement(self, params: Mapping):
+        """The measurement variance v of a linear Gaussian model y_t = x_t + N(0, v), or None."""
+        return None
+
     def prepare(self, params: Mapping, y: jax.Array):
         """Data-only precomputation passed to :meth:`log_obs_density` (default: the data)."""
         return y

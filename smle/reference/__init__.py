@@ -13,7 +13,7 @@
 
 from smle.reference.grid import GridFilterOutput, grid_filter, grid_loglik
 from smle.reference.grid2d import grid2d_loglik
-from smle.reference.kalman import KalmanOutput, kalman_filter, kalman_loglik, kalman_smoother
+from smle.engine.kalman import KalmanOutput, kalman_filter, kalman_loglik, kalman_smoother
 from smle.reference.kalman_var import kalman_loglik_var
 from smle.engine.quadrature import log_integral_adaptive
 
