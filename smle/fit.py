@@ -31,10 +31,12 @@ from smle.engine.control import ControlSpec, control_facts
 from smle.engine.methods import compiled_closed_form, eis_evaluation
 from smle.engine.posterior import path_quantiles
 from smle.errors import SmleInputError
+from smle.exact_likelihood import EXACT_TOL, check_exact_tol, resolve_method
+from smle.fit_exact import fit_exact
 from smle.models import Model, get_model
 from smle.models.base import model_options
 from smle.optimizer import announce_compilation, hessian_by_differences, lbfgs
-from smle.restricted import Restriction, check_fixed, compiled_natural, standard_errors
+from smle.restricted import Restriction, check_fixed, estimates_at
 from smle.results import FitResult, count_zero_returns, describe_data
 from smle.validation import (
     as_key, check_control, check_integer, check_observations, check_settings, check_state_settings, checked_params,
@@ -139,10 +141,13 @@ def fit(
     fixed: Mapping[str, float] | None = None,
     source=None,
     dates=None,
+    method: str = "auto",
+    exact_tol: float = EXACT_TOL,
 ) -> FitResult:
-    """Estimate a model by simulated maximum likelihood (EIS), or by exact maximum likelihood for a
-    model without a latent state (``state_dim == 0``: closed form, JAX gradients and Hessian; the
-    EIS settings are then not used).
+    """Estimate a model by maximum likelihood: exact where the latent state is one-dimensional
+    (the grid filter or the Kalman filter, :mod:`smle.fit_exact`), simulated (EIS) where it has
+    more dimensions or where ``method="eis"`` asks for it, and in closed form for a model without
+    a latent state (``state_dim == 0``). The EIS settings are used by EIS only.
 
     Args:
       model: registered model name or instance.
@@ -171,11 +176,16 @@ def fit(
         name, or a mapping with keys ``file``, ``columns``, ``units``. A pandas Series or
         DataFrame ``y`` gives its column name(s), and its dates with a DatetimeIndex.
       dates: the date of each period (text or datetimes), kept in ``FitResult.dates``.
+      method: "auto" (default: "exact" for a one-dimensional state, "eis" otherwise), "exact" or
+        "eis" (see :func:`smle.loglik`). ``FitResult.eis["method"]`` says which ran.
+      exact_tol: the accuracy of the exact log-likelihood (log-likelihood units).
 
     Returns:
       A :class:`~smle.results.FitResult`.
     """
     model = get_model(model)
+    resolved = resolve_method(model, method)
+    exact_tol = check_exact_tol(exact_tol)
     y, data_source, dates = describe_data(y, source, dates)
     y = check_fit_data(model, y)
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
@@ -191,8 +201,11 @@ def fit(
     key = as_key(seed)
     y_jax = jnp.asarray(y)
     started = time.perf_counter()
-    if model.state_dim == 0:
+    if resolved == "closed form":
         result = _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbose, started)
+        return _with_data_facts(result, model, y, data_source, dates)
+    if resolved == "exact":
+        result = fit_exact(restriction, y, start_params, max_steps, gtol, level, verbose, started, exact_tol)
         return _with_data_facts(result, model, y, data_source, dates)
     if verbose:
         print(f"fitting '{model.name}' to {y.shape[0]} periods with {settings.n_draws} EIS draws",
@@ -260,7 +273,7 @@ def _fit_closed_form(restriction, y, start_params, max_steps, gtol, level, verbo
         print(f"fitting '{model.name}' to {y.shape[0]} periods by its closed-form likelihood", file=sys.stderr)
     first = lbfgs(evaluate, restriction.free_start(start_params), int(max_steps), float(gtol), verbose)
     hessian = hessian_by_differences(evaluate, first["u"], y.shape[0])
-    params, covariance, std_errors, conf_int, converged, message = _estimates(restriction, first, hessian, level)
+    params, covariance, std_errors, conf_int, converged, message = estimates_at(restriction, first, hessian, level)
     loglik = -first["value"] * y.shape[0]
     path = np.asarray(_compiled_factor_path(model)({n: jnp.asarray(v) for n, v in params.items()}, y_jax))
     k = len(restriction.free_names)
@@ -281,22 +294,12 @@ def _compiled_factor_path(model):
     return jax.jit(model.factor_path)
 
 
-def _estimates(restriction, first, hessian, level):
-    """``(params, covariance, std_errors, conf_int, converged, message)`` at the optimiser's end."""
-    u = first["u"]
-    params = {n: float(v) for n, v in compiled_natural(restriction)(jnp.asarray(u)).items()}
-    converged, message = _convergence(first)
-    covariance, std_errors, conf_int, problem = standard_errors(restriction, u, params, hessian, level)
-    converged, message = _with_hessian(converged, message, problem)
-    return params, covariance, std_errors, conf_int, converged, message
-
-
 def _assemble(restriction, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started):
     model = restriction.model
     names = model.param_names
     n_periods = y.shape[0]
     hessian = hessian_by_differences(_evaluator(restriction, settings, control, y_jax, key), first["u"], n_periods)
-    params, covariance, std_errors, conf_int, converged, message = _estimates(restriction, first, hessian, level)
+    params, covariance, std_errors, conf_int, converged, message = estimates_at(restriction, first, hessian, level)
 
     out, diagnostics, cv_extra = first["aux"]
     log_weights = np.asarray(out.log_weights)
@@ -371,26 +374,6 @@ def _smoothed(paths: np.ndarray, weights: np.ndarray):
     bands = np.stack([np.asarray(path_quantiles(paths[..., j], weights, (0.05, 0.95))) for j in range(paths.shape[-1])],
                      axis=-1)
     return mean, bands[0], bands[1]
-
-
-def _convergence(first) -> tuple[bool, str]:
-    """Whether the optimiser converged, and the message saying so or why not."""
-    if first["grad_norm"] <= first["gtol"]:
-        return True, "converged: gradient below tolerance"
-    if first["stalled"]:
-        return False, (f"not converged: the line search made no progress (max|grad| = {first['grad_norm']:.2e}, "
-                       f"tolerance {first['gtol']:.0e}); try other start values or more draws")
-    return False, f"not converged: reached max_steps = {first['max_steps']} (max|grad| = {first['grad_norm']:.2e})"
-
-
-def _with_hessian(converged: bool, message: str, problem: str) -> tuple[bool, str]:
-    """The optimiser's verdict after the Hessian: a gradient below tolerance is no maximum when the
-    Hessian is not positive definite, so flag and message then both say 'not converged'."""
-    if not problem:
-        return converged, message
-    if converged:
-        return False, f"not converged: gradient below tolerance, but {problem}"
-    return False, f"{message}; also {problem}"
 
 
 def _control_entries(facts) -> dict:

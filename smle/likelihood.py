@@ -19,6 +19,7 @@ import numpy as np
 from smle.engine.control import control_facts
 from smle.engine.methods import compiled_closed_form, eis_entry
 from smle.errors import EISBreakdownError, SmleInputError
+from smle.exact_likelihood import EXACT_TOL, check_exact_tol, exact_run, resolve_method
 from smle.models import get_model
 from smle.validation import (
     as_key, check_control, check_integer, check_settings, check_state_settings, checked_inputs, checked_params,
@@ -53,8 +54,10 @@ class LoglikResult:
       cv_coefficients: the control-variate coefficients by name ("independent", "draws_he2", ...).
       independent_error: with the independent control, the EIS estimate at the independent
         parameters minus its exact value, with the same random numbers (the error corrected for).
-      method: how ``value`` was computed: "EIS", or "closed form" for a model without a latent
-        state (then ``nse`` is 0, no draws were made and the draw fields are empty).
+      method: how ``value`` was computed: "EIS"; "exact" (a one-dimensional state: the Kalman
+        filter or the checked grid filter, see ``exact_engine``); or "closed form" for a model
+        without a latent state. For "exact" and "closed form" ``nse`` is 0, no draws were made
+        and the draw fields are empty.
       nse_method: how ``nse`` was computed.
       nse_estimates: the NSE estimates by name ("delta", "lognormal", "batches").
       log_weight_sd: sd of the log importance weights (antithetic pair means).
@@ -62,6 +65,11 @@ class LoglikResult:
       failed_regressions: periods whose last EIS regression was not finite (0 in a returned result).
       damping_step: the step of the last EIS iteration (1: undamped; smaller: the iteration was
         damped because it oscillated).
+      error_bound: with "exact", an upper estimate of the error of ``value`` (the difference from
+        the next coarser grid summed over periods; 0 for the Kalman filter), else None.
+      exact_engine: with "exact", "Kalman filter" or "grid filter (G points)", else None.
+      log_predictive, filtered_mean, filtered_sd: with "exact", log p(y_t | y_1..y_{t-1}) and the
+        moments of x_t given y_1..y_t, shape (T,) each; else None.
     """
 
     value: float
@@ -91,6 +99,11 @@ class LoglikResult:
     repairs: tuple = ()
     failed_regressions: int = 0
     damping_step: float = 1.0
+    error_bound: float | None = None
+    exact_engine: str | None = None
+    log_predictive: np.ndarray | None = None
+    filtered_mean: np.ndarray | None = None
+    filtered_sd: np.ndarray | None = None
 
     @property
     def value_bias_corrected(self) -> float:
@@ -99,13 +112,20 @@ class LoglikResult:
 
     def smoothed_mean(self) -> np.ndarray:
         """Posterior mean of the latent state per period from the weighted scoring paths: (T,),
-        or (T, k) for a k-dimensional state."""
+        or (T, k) for a k-dimensional state. (An exact result has no paths: use
+        ``smle.filter_factor`` for its smoothed factor.)"""
+        if self.method != "EIS":
+            raise SmleInputError(f"a result of method {self.method!r} has no simulated paths; smle.filter_factor "
+                                 "gives the smoothed factor")
         w = np.exp(self.log_weights - self.log_weights.max())
         return np.tensordot(self.paths, w / w.sum(), axes=([1], [0]))
 
     def __repr__(self) -> str:
         if self.method == "closed form":
             return f"LoglikResult(value={self.value:.4f}, nse=0, method='closed form')"
+        if self.method == "exact":
+            return (f"LoglikResult(value={self.value:.4f}, method='exact', {self.exact_engine}, "
+                    f"error_bound={self.error_bound:.1e})")
         flag = "converged" if self.converged else "NOT converged"
         control = f", control_variates={self.control_variates!r}" if self.control_variates else ""
         return (
@@ -127,8 +147,11 @@ def loglik(
     control_variates: str | None = None,
     cv_coefficient="regression",
     on_breakdown: str = "raise",
+    method: str = "auto",
+    exact_tol: float = EXACT_TOL,
 ) -> LoglikResult:
-    """EIS estimate of the log-likelihood of ``model`` at ``params`` on observations ``y``.
+    """The log-likelihood of ``model`` at ``params`` on observations ``y``: exact where the latent
+    state is one-dimensional, an EIS estimate with its measured error otherwise (see ``method``).
 
     Args:
       model: a registered model name (see ``smle.model_names()``) or a model instance.
@@ -154,10 +177,17 @@ def loglik(
         (A regression of the weights themselves, not their logs, is thrown off by heavy tails.)
       on_breakdown: "raise" (default: see Raises) or "return": return the run as it is, with its
         measured NSE, ESS and ``failed_regressions`` (for diagnostics that study broken samplers).
+      method: "auto" (default): "exact" where the latent state is one-dimensional, "eis" where it
+        has more dimensions; "exact": the Kalman filter for a linear Gaussian model, else the grid
+        filter of :mod:`smle.engine.exact` with its accuracy checked (a model with a
+        k-dimensional state, k > 1, is refused); "eis": efficient importance sampling, with the
+        settings above. The EIS settings are not used by the exact method.
+      exact_tol: the accuracy the exact method must reach (log-likelihood units; the grid is
+        refined until its error bound is below it).
 
     A model without a latent state (``state_dim == 0``, e.g. ``garch``) has its likelihood in
-    closed form: the result is exact (``method`` "closed form", ``nse`` 0) and the EIS settings
-    are not used.
+    closed form: the result is exact (``method`` "closed form", ``nse`` 0) whatever ``method``
+    says, and the EIS settings are not used.
 
     Returns:
       A :class:`LoglikResult`.
@@ -175,8 +205,11 @@ def loglik(
       Richard and Zhang (2007), J. Econometrics 141; Durbin and Koopman (1997), Biometrika 84.
     """
     model, checked, y = checked_inputs(model, params, y)
-    if model.state_dim == 0:
+    resolved = resolve_method(model, method)
+    if resolved == "closed form":
         return _closed_form_loglik(model, checked, y)
+    if resolved == "exact":
+        return _exact_loglik(model, checked, y, check_exact_tol(exact_tol))
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
     control = check_control(model, control_variates, cv_coefficient)
     check_state_settings(model, settings)
@@ -286,7 +319,7 @@ def _checked_run(model, settings, control, params, y, key):
         f"{wider.n_draws} draws {second}. EIS breaks down like this where the state's innovation is large against "
         "what one observation says about it (e.g. sv with sigma_eta above about 1.5) or the data scale is far from "
         "the parameters' (returns in percent?); for a one-dimensional state the grid filter "
-        "(smle.reference.grid_loglik) gives the exact value"
+        "(method='exact') gives the exact value"
     )
 
 
@@ -300,6 +333,21 @@ def _closed_form_loglik(model, checked, y) -> LoglikResult:
     return LoglikResult(value=value, nse=0.0, ess=math.nan, iterations=0, converged=True, last_change=0.0,
                         n_draws=0, antithetic=False, seed=-1, log_weights=empty, paths=np.zeros((y.shape[0], 0)),
                         b_obs=empty, c_obs=empty, r_squared=empty, method="closed form")
+
+
+def _exact_loglik(model, checked, y, exact_tol) -> LoglikResult:
+    """The exact log-likelihood of a model with a one-dimensional state, as a :class:`LoglikResult`."""
+    run = exact_run(model, jax_params(checked), jnp.asarray(y), exact_tol)
+    if not math.isfinite(run.loglik):
+        raise SmleInputError(f"the exact log-likelihood of model '{model.name}' is not finite at params={checked} "
+                             "(check the data scale, e.g. returns in percent)")
+    empty = np.zeros(0)
+    engine = run.engine if not run.grid_size else f"grid filter ({run.grid_size} points)"
+    return LoglikResult(value=run.loglik, nse=0.0, ess=math.nan, iterations=0, converged=True, last_change=0.0,
+                        n_draws=0, antithetic=False, seed=-1, log_weights=empty, paths=np.zeros((y.shape[0], 0)),
+                        b_obs=empty, c_obs=empty, r_squared=empty, method="exact", nse_method="none (exact)",
+                        error_bound=run.error_bound, exact_engine=engine, log_predictive=run.log_predictive,
+                        filtered_mean=run.filtered_mean, filtered_sd=run.filtered_sd)
 
 
 def simulate(model, params: Mapping[str, float], n_periods: int, seed=0):

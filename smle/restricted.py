@@ -170,3 +170,33 @@ def standard_errors(restriction, u, params, hessian, level):
             bounds = [params[n] - z * std_errors[n], params[n] + z * std_errors[n]]
         conf_int[n] = (min(bounds), max(bounds))
     return covariance, std_errors, conf_int, ""
+
+
+def estimates_at(restriction, first, hessian, level):
+    """``(params, covariance, std_errors, conf_int, converged, message)`` at the optimiser's end."""
+    u = first["u"]
+    params = {n: float(v) for n, v in compiled_natural(restriction)(jnp.asarray(u)).items()}
+    converged, message = convergence(first)
+    covariance, std_errors, conf_int, problem = standard_errors(restriction, u, params, hessian, level)
+    converged, message = with_hessian(converged, message, problem)
+    return params, covariance, std_errors, conf_int, converged, message
+
+
+def convergence(first) -> tuple[bool, str]:
+    """Whether the optimiser converged, and the message saying so or why not."""
+    if first["grad_norm"] <= first["gtol"]:
+        return True, "converged: gradient below tolerance"
+    if first["stalled"]:
+        return False, (f"not converged: the line search made no progress (max|grad| = {first['grad_norm']:.2e}, "
+                       f"tolerance {first['gtol']:.0e}); try other start values or more draws")
+    return False, f"not converged: reached max_steps = {first['max_steps']} (max|grad| = {first['grad_norm']:.2e})"
+
+
+def with_hessian(converged: bool, message: str, problem: str) -> tuple[bool, str]:
+    """The optimiser's verdict after the Hessian: a gradient below tolerance is no maximum when the
+    Hessian is not positive definite, so flag and message then both say 'not converged'."""
+    if not problem:
+        return converged, message
+    if converged:
+        return False, f"not converged: gradient below tolerance, but {problem}"
+    return False, f"{message}; also {problem}"

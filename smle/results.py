@@ -176,9 +176,23 @@ class FitResult:
         """Whether the likelihood was exact in closed form (a model without a latent state)."""
         return self.eis.get("method") == "closed form"
 
+    @property
+    def method(self) -> str:
+        """How the likelihood was computed: "EIS", "exact" or "closed form"."""
+        return self.eis.get("method", "EIS")
+
+    @property
+    def simulated(self) -> bool:
+        """Whether the likelihood was simulated (EIS): False for the exact method and the closed form."""
+        return self.method == "EIS"
+
     def _likelihood_block(self) -> list[str]:
-        value = (f"{self.loglik:.4f} (closed form: exact, no simulation error)" if self.closed_form else
-                 f"{self.loglik:.4f} (NSE {self.nse:.4f}; bias-corrected {self.loglik_bias_corrected:.4f})")
+        if self.closed_form:
+            value = f"{self.loglik:.4f} (closed form: exact, no simulation error)"
+        elif self.method == "exact":
+            value = f"{self.loglik:.4f} (exact: {exact_engine_text(self.eis)})"
+        else:
+            value = f"{self.loglik:.4f} (NSE {self.nse:.4f}; bias-corrected {self.loglik_bias_corrected:.4f})"
         free = len(self.param_names) - len(self.fixed or {})
         counted = f"{free} free parameters" + (f", {len(self.fixed)} fixed" if self.fixed else "")
         return layout.block("Likelihood", [
@@ -195,7 +209,7 @@ class FitResult:
 
     def _simulation_block(self) -> list[str]:
         eis = self.eis
-        if self.closed_form:
+        if not self.simulated:
             return []
         lines = [
             layout.field("draws", f"{eis['n_draws']}{' antithetic' if eis['antithetic'] else ''}, seed {eis['seed']}, "
@@ -223,6 +237,14 @@ def low_ess_warning(ess: float, n: int, unit: str, where: str = "", fraction: fl
         return []
     return [layout.warning(f"effective sample size {ess:.1f}{where} is below {fraction:.0%} of the {n} {unit} "
                            f"(common practice): the estimate rests on a few {unit}; use more {unit}")]
+def exact_engine_text(facts: dict) -> str:
+    """The exact method's engine and accuracy in words, from ``FitResult.eis`` entries."""
+    if not facts.get("grid_size"):
+        return "Kalman filter, no simulation error"
+    return (f"grid filter, {facts['grid_size']} points, error bound {facts['error_bound']:.1e} against a coarser grid, "
+            "no simulation error")
+
+
 def _data_lines(result: FitResult) -> list[str]:
     """The summary's lines on what was fitted (file, columns, units, dates) and its zero returns."""
     lines = []

@@ -33,10 +33,11 @@ def _write_report(result, y, folder: Path, label: str, args=None) -> list[str]:
     (folder / "summary.txt").write_text(result.summary() + "\n")
     plots.data_and_factor(result, y, label, folder / "factor.png")
     names = ["result.json", "summary.txt", "factor.png"]
-    if result.eis.get("method") == "closed form":  # no draws, no latent state to filter
+    if result.closed_form:  # no latent state to filter
         return names
-    plots.log_weights(result, folder / "log_weights.png")
-    names.append("log_weights.png")
+    if result.simulated:  # an exact fit has no draws
+        plots.log_weights(result, folder / "log_weights.png")
+        names.append("log_weights.png")
     if args is not None and getattr(args, "particles", 0):
         diagnostics = _diagnose(result, y, args)
         names += [path.name for path in diagnostics.write(folder)]

@@ -172,10 +172,9 @@ class Comparison:
         """One dict per model: label, method, log-likelihood, its error, free parameters, AIC, BIC."""
         out = []
         for spec, result in zip(self.specs, self.fits):
-            closed = result.eis.get("method") == "closed form"
             out.append({"label": spec.title(), "model": spec.name, "options": dict(spec.options),
-                        "fixed": dict(spec.fixed), "method": "closed form" if closed else "EIS",
-                        "loglik": result.loglik, "loglik_error": 0.0 if closed else result.nse,
+                        "fixed": dict(spec.fixed), "method": result.method,
+                        "loglik": result.loglik, "loglik_error": result.nse if result.simulated else 0.0,
                         "free_parameters": len(result.param_names) - len(result.fixed or {}),
                         "aic": result.aic, "bic": result.bic, "converged": result.converged})
         return out

@@ -81,7 +81,8 @@ def _evaluate(model, params, y, n_draws, seed, settings, n_score_draws=None, con
     try:
         return loglik(model, params, y, n_draws=n_draws, seed=seed, antithetic=settings.antithetic,
                                  tol=settings.tol, max_iter=settings.max_iter, n_score_draws=n_score_draws,
-                                 control_variates=control_variates, on_breakdown="return")  # the check judges broken runs itself
+                                 control_variates=control_variates, on_breakdown="return",  # the check judges broken runs itself
+                                 method="eis")
     except FloatingPointError as error:
         raise EstimatorBreakdown(
             f"verdict: unreliable -- the EIS log-likelihood is not finite at seed {seed} with {n_draws} draws"

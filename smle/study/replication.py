@@ -23,8 +23,14 @@ from smle.study.spec import Design, replication_seeds
 
 
 def _finite_or_none(value):
+    if value is None:
+        return None
     value = float(value)
     return value if math.isfinite(value) else None
+
+
+def _int_or_none(value):
+    return None if value is None else int(value)
 
 
 def run_replication(design: Design | dict, master_seed: int, replication: int) -> dict:
@@ -53,7 +59,7 @@ def run_replication(design: Design | dict, master_seed: int, replication: int) -
         result = smle.fit(model, y, n_draws=e.n_draws, seed=eis_seed, antithetic=e.antithetic,
                           start=dict(design.params) if e.start == "truth" else None, tol=e.tol,
                           max_iter=e.max_iter, max_steps=e.max_steps, gtol=e.gtol, n_seeds=e.n_seeds,
-                          level=e.level)
+                          level=e.level, method=getattr(e, "method", "eis"))
     except Exception as error:  # noqa: BLE001 - a failed replication is a result to keep
         row.update(status="failed", error=f"{type(error).__name__}: {error}\n{traceback.format_exc(limit=-3)}",
                    elapsed_seconds=time.perf_counter() - started, estimates=[])
@@ -64,8 +70,8 @@ def run_replication(design: Design | dict, master_seed: int, replication: int) -
             loglik=_finite_or_none(result.loglik), nse=_finite_or_none(result.nse),
             converged=bool(result.converged), message=result.message, iterations=int(result.iterations),
             n_evaluations=int(result.n_evaluations), grad_norm=_finite_or_none(result.grad_norm),
-            eis_iterations=int(result.eis["iterations"]), eis_converged=bool(result.eis["converged"]),
-            ess=_finite_or_none(result.eis["ess"]), level=float(result.level),
+            eis_iterations=_int_or_none(result.eis.get("iterations")), eis_converged=result.eis.get("converged"),
+            ess=_finite_or_none(result.eis.get("ess")), level=float(result.level),
             fit_seconds=float(result.elapsed_seconds), elapsed_seconds=time.perf_counter() - started,
             estimates=[
                 {"parameter": name, "truth": float(design.params[name]),

@@ -52,6 +52,9 @@ Unknown keys are refused with the list of accepted ones.
   max_iter      integer >= 1, default 100. EIS fixed-point iterations.
   level         number in [0.5, 1), default 0.95. Confidence level of the intervals
                 whose coverage the summary reports.
+  method        "eis" (default: a study measures the simulated estimator), "exact" (the
+                exact likelihood of a one-dimensional state: exact maximum likelihood, the
+                reference the simulated estimator is measured against) or "auto".
 
 A design's numbers depend on everything above except replications; changing any of it
 for a design that already has stored results is refused (rename the design or use a new
@@ -112,6 +115,7 @@ class Estimator:
       start: ``"data"`` (the model's start values from the data) or ``"truth"``.
       max_steps, gtol, tol, max_iter: optimiser and EIS settings, as in :func:`smle.fit`.
       level: confidence level of the reported intervals.
+      method: the likelihood method of :func:`smle.fit`: "eis" (default), "exact" or "auto".
     """
 
     n_draws: int = 64
@@ -124,6 +128,16 @@ class Estimator:
     tol: float = 1e-8
     max_iter: int = 100
     level: float = 0.95
+    method: str = "eis"
+
+
+def _estimator_identity(estimator: Estimator) -> dict:
+    """The estimator's settings as stored; ``method`` only when not "eis", so that stores written
+    before the method existed (all EIS) keep their identity."""
+    settings = dataclasses.asdict(estimator)
+    if settings["method"] == "eis":
+        del settings["method"]
+    return settings
 
 
 @dataclasses.dataclass(frozen=True)
@@ -155,7 +169,7 @@ class Design:
             "model_options": dict(self.model_options),
             "params": dict(self.params),
             "n_periods": self.n_periods,
-            "estimator": dataclasses.asdict(self.estimator),
+            "estimator": _estimator_identity(self.estimator),
         }
 
     def to_dict(self) -> dict:
@@ -267,6 +281,8 @@ def check_design(design: Design) -> Design:
     _check_int(where, "n_seeds", e.n_seeds, 1)
     _check_int(where, "seed_offset", e.seed_offset, 0)
     _check_int(where, "max_steps", e.max_steps, 1)
+    if e.method not in ("eis", "exact", "auto"):
+        raise SmleInputError(f"{where}: method = {describe(e.method)} is not accepted; accepted: eis, exact, auto")
     if e.start not in _START_CHOICES:
         raise SmleInputError(f"{where}: start = {describe(e.start)} is not accepted; accepted: {', '.join(_START_CHOICES)}")
     for name in ("gtol", "tol"):
