@@ -32,6 +32,7 @@ from smle.engine.methods import compiled_closed_form, eis_evaluation
 from smle.engine.posterior import path_quantiles
 from smle.errors import SmleInputError
 from smle.exact_likelihood import EXACT_TOL, check_exact_tol, resolve_method
+from smle.fit_exact import exact_reference as fit_exact_reference
 from smle.fit_exact import fit_exact
 from smle.models import Model, get_model
 from smle.models.base import model_options
@@ -143,6 +144,7 @@ def fit(
     dates=None,
     method: str = "auto",
     exact_tol: float = EXACT_TOL,
+    exact_reference: bool = True,
 ) -> FitResult:
     """Estimate a model by maximum likelihood: exact where the latent state is one-dimensional
     (the grid filter or the Kalman filter, :mod:`smle.fit_exact`), simulated (EIS) where it has
@@ -179,6 +181,9 @@ def fit(
       method: "auto" (default: "exact" for a one-dimensional state, "eis" otherwise), "exact" or
         "eis" (see :func:`smle.loglik`). ``FitResult.eis["method"]`` says which ran.
       exact_tol: the accuracy of the exact log-likelihood (log-likelihood units).
+      exact_reference: an EIS fit of a model with a one-dimensional state is measured against the
+        exact likelihood: the exact value at its estimate, the exact maximum and the loss between
+        them go into ``FitResult.eis`` (see :func:`smle.fit_exact.exact_reference`) and the summary.
 
     Returns:
       A :class:`~smle.results.FitResult`.
@@ -218,6 +223,11 @@ def fit(
         extra.append(_fit_one(restriction, settings, control, y_jax, as_key(seed + offset), start_params, max_steps,
                               gtol, False))
     result = _assemble(restriction, settings, control, y, y_jax, key, seed, first, extra, start_params, level, started)
+    if model.state_dim == 1 and exact_reference:
+        try:
+            result.eis.update(fit_exact_reference(restriction, y, result.params, result.loglik, max_steps, gtol, exact_tol))
+        except SmleInputError as error:  # the grid cannot reach the accuracy here: say so, keep the fit
+            result.eis["exact_reference_error"] = str(error)
     return _with_data_facts(result, model, y, data_source, dates)
 
 

@@ -125,3 +125,35 @@ def exact_facts(run, exact_tol: float) -> dict:
     """The ``FitResult.eis`` entries of an exact fit: the method and how accurate it was."""
     return {"method": "exact", "engine": run.engine, "grid_size": run.grid_size, "error_bound": run.error_bound,
             "exact_tol": exact_tol}
+
+
+def exact_reference(restriction: Restriction, y: np.ndarray, params: dict, fitted_loglik: float,
+                    max_steps: int, gtol: float, exact_tol: float) -> dict:
+    """An EIS fit measured against the exact likelihood (a one-dimensional state): the exact
+    log-likelihood at the EIS estimate, the exact maximum (L-BFGS started from the EIS estimate)
+    and its estimates. Entries of ``FitResult.eis``:
+
+    * ``exact_loglik_at_estimate``: exact log L at the EIS estimate;
+    * ``simulation_error``: the EIS value there minus the exact one (what the NSE should cover);
+    * ``exact_max_loglik``, ``exact_estimates``: the exact maximum and where it is;
+    * ``loss_against_exact``: exact maximum minus the exact value at the EIS estimate (>= 0 up to
+      the optimisers' tolerance): the likelihood the simulation cost the estimate.
+    """
+    model = restriction.model
+    y_jax = jnp.asarray(y)
+    at = {n: jnp.asarray(v) for n, v in params.items()}
+    run = exact_run(model, at, y_jax, exact_tol)
+    grid = _grid_of(run, model, at)
+    u = restriction.free_start(params)
+    best = lbfgs(_evaluator(restriction, grid, y_jax, False), u, int(max_steps), float(gtol), False)
+    natural = compiled_natural(restriction)
+    best_params = {n: float(v) for n, v in natural(best["u"]).items()}
+    best_run = exact_run(model, natural(best["u"]), y_jax, exact_tol)
+    return {
+        "exact_loglik_at_estimate": run.loglik,
+        "simulation_error": fitted_loglik - run.loglik,
+        "exact_max_loglik": best_run.loglik,
+        "exact_estimates": best_params,
+        "loss_against_exact": best_run.loglik - run.loglik,
+        "exact_engine": run.engine if not run.grid_size else f"grid filter ({run.grid_size} points)",
+    }

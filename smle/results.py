@@ -219,8 +219,34 @@ class FitResult:
                                                 f"({eis['ess'] / eis['n_draws']:.0%})"),
             *low_ess_warning(eis["ess"], eis["n_draws"], "draws"),
             *_control_lines(eis),
+            *self._exact_reference_lines(),
         ]
         return layout.block("Simulation (EIS at the estimates)", lines)
+
+    def _exact_reference_lines(self) -> list[str]:
+        """The EIS fit measured against the exact likelihood (one-dimensional states)."""
+        eis = self.eis
+        if "exact_reference_error" in eis:
+            return [layout.field("against the exact likelihood", f"not available: {eis['exact_reference_error']}")]
+        if "exact_loglik_at_estimate" not in eis:
+            return []
+        gaps = {n: abs(self.params[n] - v) / self.std_errors[n] for n, v in eis["exact_estimates"].items()
+                if n in self.std_errors and self.std_errors[n] > 0}
+        worst = max(gaps, key=gaps.get) if gaps else None
+        lines = [
+            layout.field("against the exact likelihood",
+                         f"exact {eis['exact_loglik_at_estimate']:.4f} at the estimate ({eis['exact_engine']}): "
+                         f"simulation error {eis['simulation_error']:+.4f} against a reported NSE of {self.nse:.4f}"),
+            layout.field("exact maximum", f"{eis['exact_max_loglik']:.4f}, {eis['loss_against_exact']:.4f} above the "
+                                          "exact value at the EIS estimate"
+                         + (f"; estimates within {gaps[worst]:.2f} standard errors of it (largest: {worst})"
+                            if worst else "")),
+        ]
+        if abs(eis["simulation_error"]) > 3 * max(self.nse, 1e-12):
+            lines.append(layout.warning(f"the simulation error is {abs(eis['simulation_error']) / max(self.nse, 1e-12):.1f} "
+                                        "times the reported NSE: the NSE understates the error; use the exact method "
+                                        "or more draws"))
+        return lines
 
     def __str__(self) -> str:
         return self.summary()

@@ -16,7 +16,7 @@ N_DRAWS = 64
 
 def eis_across_seeds(model, params, y, n_seeds=N_SEEDS, first_seed=0):
     """EIS estimates over independent seeds: (values, results)."""
-    results = [smle.loglik(model, params, y, n_draws=N_DRAWS, seed=first_seed + s) for s in range(n_seeds)]
+    results = [smle.loglik(model, params, y, n_draws=N_DRAWS, seed=first_seed + s, method="eis") for s in range(n_seeds)]
     return np.array([r.value for r in results]), results
 
 

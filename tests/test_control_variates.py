@@ -30,7 +30,7 @@ def garch_data():
 
 @pytest.fixture(scope="module")
 def garch_runs(garch_data):
-    return [smle.loglik("garch-mix", GARCH, garch_data, n_draws=64, seed=s, control_variates="independent")
+    return [smle.loglik("garch-mix", GARCH, garch_data, n_draws=64, seed=s, control_variates="independent", method="eis")
             for s in range(N_SEEDS)]
 
 
@@ -70,10 +70,10 @@ def test_regression_coefficient_does_no_harm_at_high_autocorrelation():
     # there (experiments/results/control_variates.md), the regression coefficient did not
     params = {**GARCH, "rho": 0.9}
     y, _ = smle.simulate("garch-mix", params, 500, seed=13)
-    runs = [smle.loglik("garch-mix", params, y, n_draws=64, seed=s, control_variates="independent")
+    runs = [smle.loglik("garch-mix", params, y, n_draws=64, seed=s, control_variates="independent", method="eis")
             for s in range(N_SEEDS)]
     ones = [smle.loglik("garch-mix", params, y, n_draws=64, seed=s, control_variates="independent",
-                        cv_coefficient=1.0) for s in range(N_SEEDS)]
+                        cv_coefficient=1.0, method="eis") for s in range(N_SEEDS)]
     raw = np.array([r.value_uncorrected for r in runs])
     regression = np.array([r.value for r in runs])
     one = np.array([r.value for r in ones])
@@ -90,7 +90,7 @@ def test_controls_change_nothing_in_the_exact_gaussian_case():
     model = smle.get_model("ar1-noise")
     exact = float(kalman_loglik(y, model.latent(params), params["sigma_eps"] ** 2))
     for control in ("independent", "draws", "both"):
-        r = smle.loglik("ar1-noise", params, y, n_draws=32, seed=1, control_variates=control)
+        r = smle.loglik("ar1-noise", params, y, n_draws=32, seed=1, control_variates=control, method="eis")
         assert r.value == pytest.approx(exact, abs=1e-8)
         assert r.nse < 1e-6 and np.isfinite(r.nse)
 
@@ -135,8 +135,8 @@ def test_corrected_objective_gradient_matches_finite_differences():
 def test_larger_scoring_set(garch_data):
     # the sampler is fitted on 64 draws and scored on 512: log weights of that size, an NSE
     # smaller by about sqrt(8) (measured ratio 0.3-0.4 over seeds; required below 0.7)
-    small = smle.loglik("garch-mix", GARCH, garch_data, n_draws=64, seed=3)
-    large = smle.loglik("garch-mix", GARCH, garch_data, n_draws=64, n_score_draws=512, seed=3)
+    small = smle.loglik("garch-mix", GARCH, garch_data, n_draws=64, seed=3, method="eis")
+    large = smle.loglik("garch-mix", GARCH, garch_data, n_draws=64, n_score_draws=512, seed=3, method="eis")
     assert large.log_weights.shape == (512,) and large.paths.shape == (500, 512)
     assert large.n_score_draws == 512 and small.n_score_draws == 64
     assert large.nse < 0.7 * small.nse
@@ -157,11 +157,11 @@ def test_larger_scoring_set(garch_data):
 def test_bad_control_input(kwargs, match):
     y, _ = smle.simulate("sv", JPR_DESIGNS["phi=0.95"], 40, seed=1)
     with pytest.raises(SmleInputError, match=match):
-        smle.loglik("sv", JPR_DESIGNS["phi=0.95"], y, n_draws=32, **kwargs)
+        smle.loglik("sv", JPR_DESIGNS["phi=0.95"], y, n_draws=32, **kwargs, method="eis")
 
 
 def test_model_without_independent_case_is_told_to_use_draws(nile):
     with pytest.raises(SmleInputError, match="'local-level' has no independent-factor case.*control_variates='draws'"):
-        smle.loglik("local-level", dict(sigma_eps=120.0, sigma_eta=40.0), nile, control_variates="independent")
+        smle.loglik("local-level", dict(sigma_eps=120.0, sigma_eta=40.0), nile, control_variates="independent", method="eis")
     with pytest.raises(SmleInputError, match="has no independent-factor case"):
-        smle.fit("local-level", nile, control_variates="both")
+        smle.fit("local-level", nile, control_variates="both", method="eis")

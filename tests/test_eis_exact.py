@@ -32,7 +32,7 @@ def test_eis_equals_kalman_for_ar1_plus_noise(n_periods, n_draws):
     for draw in range(20):
         params = _random_params(rng)
         y, _ = smle.simulate(model, params, n_periods, seed=draw)
-        result = smle.loglik(model, params, y, n_draws=n_draws, seed=draw)
+        result = smle.loglik(model, params, y, n_draws=n_draws, seed=draw, method="eis")
         exact = float(kalman_loglik(y, model.latent(params), params["sigma_eps"] ** 2))
         assert result.value == pytest.approx(exact, abs=1e-8), (params, result.value - exact)
         assert result.nse < 1e-7  # equal weights up to rounding
@@ -44,7 +44,7 @@ def test_eis_equals_kalman_without_antithetic_draws():
     model = smle.get_model("ar1-noise")
     params = dict(mu=0.3, phi=0.9, sigma_eta=0.4, sigma_eps=1.1)
     y, _ = smle.simulate(model, params, 500, seed=2)
-    result = smle.loglik(model, params, y, n_draws=5, seed=1, antithetic=False)
+    result = smle.loglik(model, params, y, n_draws=5, seed=1, antithetic=False, method="eis")
     exact = float(kalman_loglik(y, model.latent(params), 1.1**2))
     assert result.value == pytest.approx(exact, abs=1e-8)
 
@@ -53,7 +53,7 @@ def test_eis_equals_kalman_for_local_level_on_nile(nile):
     # Durbin and Koopman (2012, section 2.10) maximum-likelihood values (recalled from memory)
     params = dict(sigma_eps=np.sqrt(15099.0), sigma_eta=np.sqrt(1469.1))
     model = smle.get_model("local-level")
-    result = smle.loglik(model, params, nile, n_draws=4, seed=0)
+    result = smle.loglik(model, params, nile, n_draws=4, seed=0, method="eis")
     exact = float(kalman_loglik(nile, model.latent(params), 15099.0))
     assert result.value == pytest.approx(exact, abs=1e-8)
     diffuse = float(kalman_loglik(nile, model.latent(params), 15099.0, diffuse=True))

@@ -40,7 +40,7 @@ def _exact(model, params, y):
 
 def _returned_or_refused(model, params, y, exact, seed, n_draws=64):
     try:
-        result = smle.loglik(model, params, y, n_draws=n_draws, seed=seed)
+        result = smle.loglik(model, params, y, n_draws=n_draws, seed=seed, method="eis")
     except EISBreakdownError as error:
         assert "cannot be trusted" in str(error) and model in str(error)
         return "refused"
@@ -72,7 +72,7 @@ def test_zero_returns_at_a_wide_state_do_not_overflow():
     y, _ = smle.simulate("sv", params, 40, seed=3)
     y[:20] = 0.0
     try:
-        result = smle.loglik("sv", params, y, n_draws=4, seed=0)
+        result = smle.loglik("sv", params, y, n_draws=4, seed=0, method="eis")
     except EISBreakdownError:
         return
     assert np.isfinite(result.value) and np.isfinite(result.nse)
@@ -88,7 +88,7 @@ def test_price_levels_with_a_tiny_noise_scale_are_refused():
     model = smle.get_model("local-level")
     exact = float(kalman_loglik(levels, model.latent(params), params["sigma_eps"] ** 2))
     try:
-        result = smle.loglik(model, params, levels, seed=0)
+        result = smle.loglik(model, params, levels, seed=0, method="eis")
     except EISBreakdownError as error:
         assert "rounding" in str(error)
         return

@@ -17,7 +17,7 @@ N_DRAWS = 64
 
 
 def _across_seeds(params, y, n_seeds=N_SEEDS, first_seed=0):
-    results = [smle.loglik("sv", params, y, n_draws=N_DRAWS, seed=first_seed + s) for s in range(n_seeds)]
+    results = [smle.loglik("sv", params, y, n_draws=N_DRAWS, seed=first_seed + s, method="eis") for s in range(n_seeds)]
     return np.array([r.value for r in results]), np.array([r.nse for r in results]), results
 
 
@@ -64,14 +64,14 @@ def test_single_run_nse_agrees_with_spread_across_50_seeds():
 def test_common_random_numbers_make_the_estimate_deterministic_and_smooth():
     params = JPR_DESIGNS["phi=0.98"]
     y, _ = smle.simulate("sv", params, 500, seed=4)
-    first = smle.loglik("sv", params, y, n_draws=N_DRAWS, seed=9)
-    again = smle.loglik("sv", params, y, n_draws=N_DRAWS, seed=9)
-    other = smle.loglik("sv", params, y, n_draws=N_DRAWS, seed=10)
+    first = smle.loglik("sv", params, y, n_draws=N_DRAWS, seed=9, method="eis")
+    again = smle.loglik("sv", params, y, n_draws=N_DRAWS, seed=9, method="eis")
+    other = smle.loglik("sv", params, y, n_draws=N_DRAWS, seed=10, method="eis")
     assert first.value == again.value
     assert first.value != other.value
     # a small move in theta moves the estimate by a small, smooth amount (same random numbers)
     steps = np.array([-2e-4, -1e-4, 0.0, 1e-4, 2e-4])
-    curve = [smle.loglik("sv", {**params, "phi": params["phi"] + h}, y, n_draws=N_DRAWS, seed=9, tol=1e-10).value for h in steps]
+    curve = [smle.loglik("sv", {**params, "phi": params["phi"] + h}, y, n_draws=N_DRAWS, seed=9, tol=1e-10, method="eis").value for h in steps]
     # the curvature is constant to within 1% over the stencil: no Monte Carlo jitter, which
     # without common random numbers would be of the order of the NSE (about 0.03 here)
     second, third = np.diff(curve, 2), np.diff(curve, 3)
@@ -82,7 +82,7 @@ def test_zero_returns_give_a_finite_likelihood():
     params = JPR_DESIGNS["phi=0.95"]
     y, _ = smle.simulate("sv", params, 500, seed=5)
     y[::7] = 0.0
-    result = smle.loglik("sv", params, y, n_draws=N_DRAWS, seed=1)
+    result = smle.loglik("sv", params, y, n_draws=N_DRAWS, seed=1, method="eis")
     exact = grid_loglik("sv", params, y, n_grid=1000)
     assert np.isfinite(result.value)
     # single-run check, with a generous 6 NSE since the single-run NSE is itself estimated

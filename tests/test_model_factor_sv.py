@@ -47,7 +47,7 @@ def test_eis_agrees_with_a_bootstrap_particle_filter():
     assert y.shape == (T, 2) and x.shape == (T, 3)
     reference = np.mean([_particle_filter(y, N_PARTICLES, seed) for seed in range(PF_RUNS)])
     # measured over 4 EIS seeds: NSE 0.045-0.073; EIS minus the 6-run PF mean -0.15 to +0.003
-    result = smle.loglik(model, PARAMS, y, n_draws=64, seed=0, tol=1e-8, max_iter=100)
+    result = smle.loglik(model, PARAMS, y, n_draws=64, seed=0, tol=1e-8, max_iter=100, method="eis")
     assert result.converged
     combined = np.sqrt(result.nse**2 + PF_SD**2 / PF_RUNS)
     assert abs(result.value - reference) < 4.0 * combined, (result.value, reference, combined)

@@ -129,7 +129,7 @@ def test_factor_switched_off_is_gaussian_garch(data):
     y = data["lognormal"]
     params = {**LOGNORMAL, "s": 1e-7}
     gaussian, _, _ = gaussian_garch_loglik(params, y)
-    eis_value = smle.loglik(MODELS["lognormal"][0], params, y, n_draws=N_DRAWS, seed=0).value
+    eis_value = smle.loglik(MODELS["lognormal"][0], params, y, n_draws=N_DRAWS, seed=0, method="eis").value
     assert abs(eis_value - gaussian) < 1e-6
     # ig link: the NIG likelihood tends to the Gaussian one as lambda grows, the gap shrinking
     # like 1 / lambda (the NIG excess kurtosis is 3 (1 + 4 gamma^2 / (lambda + gamma^2)) / lambda)
@@ -166,7 +166,7 @@ def test_fit_recovers_parameters_with_calibrated_intervals():
     misses = total = 0
     for rep in range(2):
         y, _ = smle.simulate(model, truth, 2000, seed=400 + rep)
-        fit = smle.fit(model, y, n_draws=N_DRAWS, seed=rep)
+        fit = smle.fit(model, y, n_draws=N_DRAWS, seed=rep, method="eis")
         assert fit.converged, fit.message
         for name, value in truth.items():
             misses += abs(fit.params[name] - value) > 1.96 * fit.std_errors[name]
@@ -215,7 +215,7 @@ def test_bad_options_and_measures_are_refused(data):
 def test_zero_returns_are_ordinary(data):
     y = data["ig"].copy()
     y[::5] = 0.0
-    assert np.isfinite(smle.loglik(MODELS["ig"][0], IG, y, n_draws=N_DRAWS, seed=1).value)
+    assert np.isfinite(smle.loglik(MODELS["ig"][0], IG, y, n_draws=N_DRAWS, seed=1, method="eis").value)
 
 
 @settings(max_examples=15, deadline=None, derandomize=True)  # the same examples every run: CI is never flaky
@@ -227,4 +227,4 @@ def test_zero_returns_are_ordinary(data):
 def test_no_nan_over_the_admissible_region(data, mu, ar1, omega, persistence, share, gamma, log_shape, rho):
     params = dict(mu=mu, ar1=ar1, omega=omega, alpha=persistence * share, beta=persistence * (1 - share),
                   gamma=gamma, rho=rho, **{"lambda": float(np.exp(log_shape))})
-    assert np.isfinite(smle.loglik(MODELS["ig"][0], params, data["ig"], n_draws=N_DRAWS, seed=0).value)
+    assert np.isfinite(smle.loglik(MODELS["ig"][0], params, data["ig"], n_draws=N_DRAWS, seed=0, method="eis").value)

@@ -65,7 +65,7 @@ def test_fit_recovers_parameters_with_calibrated_intervals():
     fits = []
     for rep in range(3):
         y, _ = smle.simulate("realized-sv", DESIGN, 2000, seed=300 + rep)
-        fit = smle.fit("realized-sv", y, n_draws=N_DRAWS, seed=rep)
+        fit = smle.fit("realized-sv", y, n_draws=N_DRAWS, seed=rep, method="eis")
         assert fit.converged, fit.message
         fits.append(fit)
     misses, total = coverage_misses(fits, DESIGN)
@@ -100,7 +100,7 @@ def test_mismatched_lengths_are_refused(data500):
 def test_zero_returns_are_ordinary(data500):
     y = data500.copy()
     y[::5, 0] = 0.0
-    assert np.isfinite(smle.loglik("realized-sv", DESIGN, y, n_draws=N_DRAWS, seed=1).value)
+    assert np.isfinite(smle.loglik("realized-sv", DESIGN, y, n_draws=N_DRAWS, seed=1, method="eis").value)
 
 
 @settings(max_examples=15, deadline=None, derandomize=True)  # the same examples every run: CI is never flaky
@@ -110,4 +110,4 @@ def test_zero_returns_are_ordinary(data500):
 )
 def test_no_nan_over_the_admissible_region(data500, mu, phi, sigma_eta, xi, sigma_u):
     params = dict(mu=mu, phi=phi, sigma_eta=sigma_eta, xi=xi, sigma_u=sigma_u)
-    assert np.isfinite(smle.loglik("realized-sv", params, data500, n_draws=N_DRAWS, seed=0).value)
+    assert np.isfinite(smle.loglik("realized-sv", params, data500, n_draws=N_DRAWS, seed=0, method="eis").value)

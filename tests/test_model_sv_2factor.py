@@ -25,7 +25,7 @@ def _agrees_with_the_grid(params, y, seeds):
     assert abs(exact - grid2d_loglik("sv-2factor", params, y, (161, 61))) < 1e-6
     # measured over 6 seeds on the simulated series: NSE 0.03-0.06, |error| / NSE at most 1.5
     for seed in seeds:
-        result = smle.loglik("sv-2factor", params, y, n_draws=N_DRAWS, seed=seed, tol=1e-8, max_iter=100)
+        result = smle.loglik("sv-2factor", params, y, n_draws=N_DRAWS, seed=seed, tol=1e-8, max_iter=100, method="eis")
         assert result.converged
         assert abs(result.value - exact) < 4.0 * result.nse, (seed, result.value, exact, result.nse)
 

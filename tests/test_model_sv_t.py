@@ -61,15 +61,15 @@ def test_independent_case_against_quad_and_eis(data500):
 def test_large_nu_approaches_sv(data500):
     # the standardised t tends to the normal law: log L differs by O(T / nu)
     sv_params = {k: DESIGN[k] for k in ("mu", "phi", "sigma_eta")}
-    a = smle.loglik("sv-t", {**sv_params, "nu": 1e7}, data500, n_draws=N_DRAWS, seed=3).value
-    b = smle.loglik("sv", sv_params, data500, n_draws=N_DRAWS, seed=3).value
+    a = smle.loglik("sv-t", {**sv_params, "nu": 1e7}, data500, n_draws=N_DRAWS, seed=3, method="eis").value
+    b = smle.loglik("sv", sv_params, data500, n_draws=N_DRAWS, seed=3, method="eis").value
     assert abs(a - b) < 1e-3
 
 
 def test_zero_returns_are_ordinary(data500):
     y = data500.copy()
     y[::5] = 0.0
-    result = smle.loglik("sv-t", DESIGN, y, n_draws=N_DRAWS, seed=1)
+    result = smle.loglik("sv-t", DESIGN, y, n_draws=N_DRAWS, seed=1, method="eis")
     assert np.isfinite(result.value)
 
 
@@ -78,7 +78,7 @@ def test_fit_recovers_parameters_with_calibrated_intervals():
     fits = []
     for rep in range(3):
         y, _ = smle.simulate("sv-t", DESIGN, 2000, seed=200 + rep)
-        fit = smle.fit("sv-t", y, n_draws=N_DRAWS, seed=rep)
+        fit = smle.fit("sv-t", y, n_draws=N_DRAWS, seed=rep, method="eis")
         assert fit.converged, fit.message
         fits.append(fit)
     misses, total = coverage_misses(fits, DESIGN)
@@ -101,7 +101,7 @@ def test_no_nan_over_the_admissible_region(data500, mu, phi, sigma_eta, nu):
     # fit where the state's innovation swamps one observation: sigma_eta above about 1.3); never a NaN
     try:
         value = smle.loglik("sv-t", dict(mu=mu, phi=phi, sigma_eta=sigma_eta, nu=nu), data500, n_draws=N_DRAWS,
-                            seed=0).value
+                            seed=0, method="eis").value
     except EISBreakdownError as error:
         assert "cannot be trusted" in str(error) and sigma_eta > 1.0
         return

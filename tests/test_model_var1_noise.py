@@ -50,7 +50,7 @@ def test_eis_equals_the_kalman_filter(k, transition):
     params = _params(model, seed=k)
     y, x = smle.simulate(model, params, T, seed=1)
     assert y.shape == (T, k) and x.shape == (T, k)
-    result = smle.loglik(model, params, y, n_draws=N_DRAWS)
+    result = smle.loglik(model, params, y, n_draws=N_DRAWS, method="eis")
     assert result.converged
     assert abs(result.value - _kalman(model, params, y)) < 1e-8
     assert result.paths.shape == (T, N_DRAWS, k)
@@ -64,7 +64,7 @@ def test_fit_equals_the_kalman_maximum_likelihood_and_round_trips():
     truth = {"mu_1": 0.5, "mu_2": -1.0, "phi_1": 0.8, "phi_2": 0.4, "sigma_eta_1": 0.5, "sigma_eta_2": 0.7,
              "sigma_eps_1": 0.4, "sigma_eps_2": 0.6}
     y, _ = smle.simulate(model, truth, T, seed=5)
-    result = smle.fit(model, y, n_draws=N_DRAWS, start=truth)
+    result = smle.fit(model, y, n_draws=N_DRAWS, start=truth, method="eis")
     assert result.converged, result.message
 
     def negative(u):
@@ -94,9 +94,9 @@ def test_bad_options_and_unavailable_features_are_refused():
         smle.simulate(model, explosive, T)
     y, _ = smle.simulate(model, params, T)
     with pytest.raises(SmleInputError, match="not yet available for a 2-dimensional state"):
-        smle.loglik(model, params, y, control_variates="draws")
+        smle.loglik(model, params, y, control_variates="draws", method="eis")
     with pytest.raises(SmleInputError, match="n_draws=6 is too few"):
-        smle.loglik(model, params, y, n_draws=6)
+        smle.loglik(model, params, y, n_draws=6, method="eis")
     with pytest.raises(SmleInputError, match="smle.filter_factor is not yet available for a k-dimensional state"):
         smle.filter_factor(model, params, y)
     with pytest.raises(SmleInputError, match="smle.check is not yet available"):

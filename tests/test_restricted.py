@@ -22,7 +22,7 @@ def test_loglik_of_a_closed_form_model_is_exact_and_says_so():
     model = smle.get_model("garch", innovations="t")
     params = {**BASE, "nu": 6.0}
     y, _ = smle.simulate(model, params, 300, seed=3)
-    result = smle.loglik(model, params, y, n_draws=8, seed=5)  # EIS settings are not used
+    result = smle.loglik(model, params, y, n_draws=8, seed=5, method="eis")  # EIS settings are not used
     assert result.method == "closed form" and result.nse == 0.0
     assert result.value == pytest.approx(float(model.loglik_closed_form(params, jnp.asarray(y))), rel=1e-13)
     assert "closed form" in repr(result)
@@ -76,7 +76,7 @@ def test_garch_mix_with_rho_fixed_at_zero_is_the_garch_nig_fit():
     nig = smle.get_model("garch", innovations="nig")
     y, _ = smle.simulate(nig, NIG, 500, seed=13)
     exact = smle.fit(nig, y)
-    restricted = smle.fit("garch-mix", y, n_draws=32, seed=1, fixed={"rho": 0.0})
+    restricted = smle.fit("garch-mix", y, n_draws=32, seed=1, fixed={"rho": 0.0}, method="eis")
     assert restricted.params["rho"] == 0.0 and restricted.fixed == {"rho": 0.0}
     assert np.isnan(restricted.std_errors["rho"]) and np.all(restricted.covariance[-1] == 0)
     for name in nig.param_names:

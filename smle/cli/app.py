@@ -75,7 +75,8 @@ def _fit_and_report(model, observations, args, held=None) -> int:
                              f"parameters are: {', '.join(model.param_names)}")
     result = smle.fit(model, observations.values, n_draws=args.draws, seed=args.seed, n_seeds=args.seeds,
                       verbose=not args.quiet, control_variates=args.control_variates, max_steps=args.max_steps,
-                      source=observations.source, dates=observations.dates, fixed={**(held or {}), **fixed} or None)
+                      source=observations.source, dates=observations.dates, fixed={**(held or {}), **fixed} or None,
+                      method=args.method)
     print(result.summary())
     if args.report:
         folder = Path(args.report)
@@ -163,7 +164,8 @@ def _command_prepare(args) -> int:
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="smle",
-        description="Simulated maximum likelihood (efficient importance sampling) for latent-factor volatility models.",
+        description="Maximum likelihood for latent-factor volatility models: exact filtering for one-dimensional states, "
+                    "simulated (efficient importance sampling) for several dimensions.",
     )
     commands = parser.add_subparsers(dest="command", required=True)
 
@@ -172,6 +174,9 @@ def build_parser() -> argparse.ArgumentParser:
                        help=f"registered model name (default {default_model}; see 'smle models'), with options and "
                             "held parameters as NAME:key=value,... e.g. garch:innovations=t,ar1=0")
         add_fix_option(p)
+        p.add_argument("--method", choices=["auto", "exact", "eis"], default="auto",
+                       help="likelihood: exact (grid or Kalman filter, one-dimensional states), eis (simulated), or "
+                            "auto (default: exact where the state is one-dimensional, eis otherwise)")
         p.add_argument("--draws", type=int, default=64, help="EIS draws per set (default 64)")
         p.add_argument("--seed", type=int, default=0, help="seed of the common random numbers (default 0)")
         p.add_argument("--seeds", type=int, default=1, help="independent refits for simulation standard errors (default 1)")

@@ -27,7 +27,7 @@ def _command_compare(args) -> int:
         model, held = parse_model_spec(text, fixed)
         options = {k: v for k, v in model_options(model).items() if v != model_options(type(model)())[k]}
         specs.append(ModelSpec.of({"model": model.name, "options": options, "fixed": held}))
-    comparison = compare(specs, y, n_draws=args.draws, seed=args.seed)
+    comparison = compare(specs, y, n_draws=args.draws, seed=args.seed, method=args.method)
     print(f"data: {args.data}, {label}")
     print(comparison.summary())
     if args.report:
@@ -56,6 +56,9 @@ def add_compare_command(commands) -> None:
                         help="a model to fit, NAME[:key=value,...] (give two or more)")
     add_fix_option(parser)
     add_column_options(parser)
+    parser.add_argument("--method", choices=["auto", "exact", "eis"], default="auto",
+                        help="likelihood of the latent-state models: auto (default: exact for one-dimensional states), "
+                             "exact or eis")
     parser.add_argument("--draws", type=int, default=64, help="EIS draws per set for simulated likelihoods (default 64)")
     parser.add_argument("--seed", type=int, default=0, help="seed of the common random numbers (default 0)")
     parser.add_argument("--report", help="folder for compare.txt, compare.json and compare.png")
