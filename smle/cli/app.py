@@ -140,7 +140,32 @@ def _command_demo(args) -> int:
     observations = Observations(y, list(daily.index.strftime("%Y-%m-%d")), "daily return (percent, demo data)",
                                 source)
     model, held = _model_and_held(args)
-    return _fit_and_report(model, observations, args, held)
+    status = _fit_and_report(model, observations, args, held)
+    if model.state_dim == 1 and args.method != "eis":
+        _demo_simulated_against_exact(model, observations, args, held)
+    return status
+
+
+def _demo_simulated_against_exact(model, observations, args, held) -> None:
+    """The demo's second part: the same model by EIS, its fit and its health check measured
+    against the exact likelihood just computed."""
+    import smle
+
+    print("\n--- the same model by simulated maximum likelihood (EIS), measured against the exact fit ---\n")
+    simulated = smle.fit(model, observations.values, n_draws=args.draws, seed=args.seed, verbose=not args.quiet,
+                         max_steps=args.max_steps, fixed=held or None, method="eis", source=observations.source,
+                         dates=observations.dates)
+    print(simulated.summary())
+    report = smle.check(model, simulated.params, observations.values, n_draws=args.draws, n_seeds=5, seed=args.seed,
+                        tail_draws=500, draws_grid=None, dates=observations.dates)
+    print()
+    print(report.summary())
+    folder = Path(args.report) / "eis"
+    folder.mkdir(parents=True, exist_ok=True)
+    simulated.to_json(folder / "result.json")
+    (folder / "summary.txt").write_text(simulated.summary() + "\n")
+    written = report.write(folder / "check")
+    print(f"\nEIS fit and its check written to {folder}/ (result.json, summary.txt, check/: {len(written)} files)")
 
 
 def _command_prepare(args) -> int:
