@@ -47,6 +47,11 @@ def resolve_method(model: Model, method) -> str:
         return "closed form"
     if method == "auto":
         return "exact" if model.state_dim == 1 else "eis"
+    if method == "eis" and model.transition_uses_data:
+        raise SmleInputError(
+            f"method = 'eis' is not available for model '{model.name}': its state's transition depends on the data "
+            "(leverage), and the EIS sampler assumes a linear Gaussian AR(1) transition; accepted for this model: "
+            "'exact' or 'auto'")
     if method == "exact" and model.state_dim != 1:
         raise SmleInputError(
             f"method = 'exact' needs a one-dimensional latent state; model '{model.name}' has a "
@@ -122,9 +127,24 @@ def exact_run(model: Model, params, y, tol: float = EXACT_TOL, spec: ExactGrid |
                         np.sqrt(np.asarray(out.filtered_var)), 0.0, 0, "Kalman filter", None)
     log_g = _log_g(model)
     out = exact.exact_filter(model.latent(params), lambda x: log_g(params, y, x), y.shape[0], tol, spec=spec,
-                             curvature_probe=lambda x: _probe(model)(params, y, x))
+                             curvature_probe=lambda x: _probe(model)(params, y, x),
+                             transition=transition_of(model, params, y))
     return ExactRun(float(out.loglik), np.asarray(out.log_predictive), np.asarray(out.filtered_mean),
                     np.asarray(out.filtered_sd), float(out.error_bound), int(out.size), "grid filter", out.spec)
+
+
+def transition_of(model: Model, params, y):
+    """grid -> the model's per-period transition (a model whose transition uses the data), or None."""
+    if not model.transition_uses_data:
+        return None
+    return lambda grid: _transition(model)(params, jnp.asarray(y), grid)
+
+
+@functools.lru_cache(maxsize=None)
+def _transition(model: Model):
+    def run(params, y, grid):
+        return model.period_transition(params, model.prepare(params, y), grid)
+    return jax.jit(run)
 
 
 def _kalman_log_predictive(out):
@@ -145,7 +165,9 @@ def smoothed_band(model: Model, params, y, run: ExactRun, levels=(0.05, 0.95)):
         sd = np.sqrt(np.asarray(var))
         return np.asarray(mean), np.asarray(mean) + norm.ppf(levels[0]) * sd, np.asarray(mean) + norm.ppf(levels[-1]) * sd
     from smle.engine.exact_smoothing import smooth
-    out = smooth(model.latent(params), log_g_on(model, params, y, run.spec), run.spec, levels=tuple(levels))
+    moves = transition_of(model, params, y)
+    out = smooth(model.latent(params), log_g_on(model, params, y, run.spec), run.spec,
+                 None if moves is None else moves(run.spec.points()), levels=tuple(levels))
     return np.asarray(out.mean), np.asarray(out.lower), np.asarray(out.upper)
 
 
@@ -174,8 +196,10 @@ def moving_grid_loglik(model: Model, params, y, grid: MovingGrid) -> jax.Array:
     state = model.latent(params)
     mean, sd = state.init_mean, jnp.sqrt(state.init_var)
     spec = ExactGrid(mean + sd * grid.z_lower, mean + sd * grid.z_upper, grid.size, grid.band)
-    log_g = model.log_obs_density(params, model.prepare(params, y), jnp.broadcast_to(spec.points(), (y.shape[0], spec.size)))
-    return exact.loglik_on_grid(state, log_g, spec)
+    data = model.prepare(params, y)
+    log_g = model.log_obs_density(params, data, jnp.broadcast_to(spec.points(), (y.shape[0], spec.size)))
+    moves = model.period_transition(params, data, spec.points()) if model.transition_uses_data else None
+    return exact.loglik_on_grid(state, log_g, spec, moves)
 
 
 def kalman_loglik_of(model: Model, params, y) -> jax.Array:

@@ -184,6 +184,9 @@ def estimates_at(restriction, first, hessian, level):
 
 def convergence(first) -> tuple[bool, str]:
     """Whether the optimiser converged, and the message saying so or why not."""
+    if not math.isfinite(first["grad_norm"]):
+        return False, ("not converged: the gradient of the log-likelihood is not finite where the optimiser stopped "
+                       f"(after {first['steps']} steps); try other start values")
     if first["grad_norm"] <= first["gtol"]:
         return True, "converged: gradient below tolerance"
     if first["stalled"]:

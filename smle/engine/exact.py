@@ -145,9 +145,14 @@ def _log_normal(x, mean, var):
 
 
 def _dense_kernel(grid, mean, sd, spacing):
-    """K(i, j) proportional to N(x_i; mean_j, sd_j^2), columns summing to one: mass at x_j moved to x_i."""
-    kernel = jnp.exp(_log_normal(grid[:, None], mean[None, :], (sd**2)[None, ...] if jnp.ndim(sd) else sd**2))
-    return kernel / jnp.maximum(jnp.sum(kernel, axis=0, keepdims=True), 1e-300)
+    """K(i, j) proportional to N(x_i; mean_j, sd_j^2), columns summing to one: mass at x_j moved to x_i.
+
+    Normalised in logs (a column's log-sum-exp): a column whose mean lies far off the grid (a
+    leverage transition at the grid's edge) has every density underflow, and dividing by its tiny
+    sum gave a NaN gradient (its square underflows); in logs its mass goes to the nearest points,
+    where the filtered mass is negligible anyway (the edge-mass check watches it)."""
+    log_kernel = _log_normal(grid[:, None], mean[None, :], (sd**2)[None, ...] if jnp.ndim(sd) else sd**2)
+    return jnp.exp(log_kernel - jax.scipy.special.logsumexp(log_kernel, axis=0, keepdims=True))
 
 
 def _band_operator(grid, intercept, phi, sigma_eta, spacing, band):

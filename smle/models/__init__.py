@@ -57,6 +57,6 @@ def saved_model(name: str, options: dict | None) -> Model:
 
 
 from smle.models import ar1_noise, garch, garch_mix, realized_sv, sv, sv_t  # noqa: E402,F401  (registration)
-from smle.models import factor_sv, sv_2factor, var1_noise  # noqa: E402,F401  (registration)
+from smle.models import factor_sv, sv_2factor, sv_leverage, var1_noise  # noqa: E402,F401  (registration)
 
 __all__ = ["Model", "get_model", "model_names", "register"]

@@ -58,6 +58,8 @@ state-space methods ``loglik_closed_form(params, y)`` (the exact log-likelihood,
 ``log_predictive(params, y)`` and ``predictive_cdf(params, y)`` (per period, shape (T,)), and
 ``factor_path(params, y)``: the path a fit reports in place of a smoothed factor.
 * ``factor_display(params, x)``: the quantity figures show for the factor (default: x itself).
+* ``transition_uses_data`` with ``period_transition(params, data, grid)``: a transition that
+  depends on the data (leverage), for the exact method; EIS refuses such a model;
 * ``gaussian_measurement(params)``: for a linear Gaussian model, ``y_t = x_t + N(0, v)``, the
   variance ``v``; the exact method then runs the Kalman filter (default None: not linear Gaussian).
 
@@ -95,6 +97,10 @@ class Model:
     """What each observed series is, in column order (its first ``n_series`` entries label the
     goodness-of-fit tests and figures): ``("return",)``, ``("observation",)``,
     ``("return", "realized measure")``."""
+    transition_uses_data: ClassVar[bool] = False
+    """Whether the state's transition depends on the data (leverage): then :meth:`period_transition`
+    gives it, the exact method uses it, and EIS (whose sampler assumes :meth:`latent`'s AR(1)
+    transition) refuses the model."""
     state_dim: ClassVar[int] = 1
     """Dimension of the latent state: 1 for the AR(1) factor every model has today; 0 means no
     latent state (the likelihood in closed form); above 1 the state is the Gaussian VAR(1) of
@@ -128,6 +134,12 @@ class Model:
         raise NotImplementedError
 
     # -- optional hooks ----------------------------------------------------------------------
+    def period_transition(self, params: Mapping, data, grid: jax.Array):
+        """For a model whose transition uses the data: the law of x_{t+1} given x_t = grid[j] and the
+        data of period t, as :class:`smle.engine.exact.PeriodTransition` (means (T - 1, G), sds
+        (T - 1,) or (T - 1, G)); None (default): the AR(1) transition of :meth:`latent`."""
+        return None
+
     def gaussian_measurement(self, params: Mapping):
         """The measurement variance v of a linear Gaussian model y_t = x_t + N(0, v), or None."""
         return None
