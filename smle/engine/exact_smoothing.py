@@ -1,6 +1,8 @@
 """Smoothing and predictive PITs on the exact grid of :mod:`smle.engine.exact`: the backward
-pass (Kitagawa 1987, JASA 82) for smoothed moments and quantile bands, and one-step predictive
-probability integral transforms from the predicted masses."""
+pass (Kitagawa 1987, JASA 82) for smoothed moments and quantile bands, one-step predictive
+probability integral transforms from the predicted masses, quantile bands of the filtered law, and
+paths drawn from the smoothing distribution by backward simulation (Carter and Kohn 1994,
+Biometrika 81; Fruhwirth-Schnatter 1994, J. Time Series Analysis 15) on the same discrete chain."""
 
 from __future__ import annotations
 
@@ -77,11 +79,12 @@ def _quantiles(masses, grid, level):
 
 
 def smooth(state: LatentAR1, log_g: jax.Array, spec: ExactGrid, transition: PeriodTransition | None = None,
-           levels: tuple = (0.05, 0.95)) -> SmoothedOutput:
+           levels: tuple = (0.05, 0.95), masses: tuple | None = None) -> SmoothedOutput:
     """Smoothed law of x_t given y_1..y_T by the backward pass on the grid (Kitagawa 1987, sec. 2):
-    mean, sd and the ``levels`` quantiles (see :func:`_quantiles`)."""
+    mean, sd and the ``levels`` quantiles (see :func:`_quantiles`). ``masses``: the
+    ``(predicted, filtered)`` of :func:`predicted_masses` when already computed."""
     grid = spec.points()
-    predicted, filtered = predicted_masses(state, log_g, spec, transition)
+    predicted, filtered = masses if masses is not None else predicted_masses(state, log_g, spec, transition)
     masses = _smooth(grid, predicted, filtered, state, transition)
     mean = masses @ grid
     sd = jnp.sqrt(jnp.maximum(masses @ grid**2 - mean**2, 0.0))
@@ -90,14 +93,62 @@ def smooth(state: LatentAR1, log_g: jax.Array, spec: ExactGrid, transition: Peri
 
 
 def predictive_pit(state: LatentAR1, log_g: jax.Array, spec: ExactGrid, cdf_values: jax.Array,
-                   transition: PeriodTransition | None = None) -> jax.Array:
+                   transition: PeriodTransition | None = None, masses: tuple | None = None) -> jax.Array:
     """One-step predictive PITs ``u_t = sum_i p(x_i | y_1..y_{t-1}) F(y_t | x_i)``.
 
     ``cdf_values``: F(y_t | x_i) on ``spec.points()``, shape (T, G) or (T, G, n_series); the result
     has shape (T,) or (T, n_series). Under the model the u_t are i.i.d. uniform (Rosenblatt 1952).
+    ``masses``: the ``(predicted, filtered)`` of :func:`predicted_masses` when already computed.
     """
-    predicted, _ = predicted_masses(state, log_g, spec, transition)
+    predicted, _ = masses if masses is not None else predicted_masses(state, log_g, spec, transition)
     weights = predicted / jnp.sum(predicted, axis=1, keepdims=True)
     if cdf_values.ndim == 3:
         return jnp.einsum("tg,tgn->tn", weights, cdf_values)
     return jnp.sum(weights * cdf_values, axis=1)
+
+
+def quantile_band(masses: jax.Array, spec: ExactGrid, levels: tuple = (0.05, 0.95)) -> tuple:
+    """The ``levels`` quantiles of each row of ``masses`` (T, G) on ``spec.points()``, each (T,)
+    (for example the filtered band from the filtered masses; see :func:`_quantiles`)."""
+    grid = spec.points()
+    return tuple(_quantiles(masses, grid, q) for q in levels)
+
+
+@functools.partial(jax.jit, static_argnames=("n_paths",))
+def _backward_sample(key, grid, filtered, state, transition, n_paths):
+    keys = jax.random.split(key, filtered.shape[0])
+    log_filtered = jnp.log(jnp.maximum(filtered, 1e-300)) + jnp.where(filtered > 0, 0.0, -jnp.inf)
+    last = jax.random.categorical(keys[-1], log_filtered[-1], shape=(n_paths,))
+
+    def step(after, inputs):
+        log_filt, period_key, row = inputs
+        if row is None:
+            mean, sd = state.intercept + state.phi * grid, state.sigma_eta
+        else:
+            mean, sd = row
+        # log K(after, j): the chain's transition from x_j to x_after, columns normalised as in
+        # the forward pass (_dense_kernel), so that the draws follow the same discrete chain
+        log_column = jax.scipy.special.logsumexp(-0.5 * ((grid[:, None] - mean[None, :]) / sd) ** 2, axis=0)
+        log_k = -0.5 * ((grid[after][:, None] - mean[None, :]) / sd) ** 2 - log_column[None, :]
+        current = jax.random.categorical(period_key, log_filt[None, :] + log_k, axis=1)
+        return current, current
+
+    rows = None if transition is None else (transition.mean, transition.sd)
+    _, rest = jax.lax.scan(step, last, (log_filtered[:-1], keys[:-1], rows), reverse=True)
+    return grid[jnp.concatenate([rest, last[None]])]
+
+
+def backward_sample(key: jax.Array, state: LatentAR1, log_g: jax.Array, spec: ExactGrid, n_paths: int = 1,
+                    transition: PeriodTransition | None = None, masses: tuple | None = None) -> jax.Array:
+    """Paths of the state drawn from its smoothing distribution on the grid, shape (T, n_paths).
+
+    Forward filtering, backward sampling (Carter and Kohn 1994; Fruhwirth-Schnatter 1994): x_T is
+    drawn from the final filtered masses, then x_t given x_{t+1} = x_k from the masses
+    ``m_t(j) K_t(k, j)`` (filtered mass times the grid chain's transition from x_j to x_k), for
+    t = T-1..1. The draws are exact for the discrete chain whose filter gives the exact likelihood,
+    so their mean over paths converges to :func:`smooth`'s mean; they take grid values (choose a grid
+    whose spacing is small against the transition sd where the path's increments matter). All
+    randomness derives from ``key``. ``masses``: the output of :func:`predicted_masses` if at hand.
+    """
+    _, filtered = masses if masses is not None else predicted_masses(state, log_g, spec, transition)
+    return _backward_sample(key, spec.points(), filtered, state, transition, int(n_paths))
