@@ -12,7 +12,7 @@ from typing import NamedTuple
 import jax
 import jax.numpy as jnp
 
-from smle.engine.exact import ExactGrid, PeriodTransition, _dense_kernel, _run
+from smle.engine.exact import SIZES, ExactGrid, PeriodTransition, _dense_kernel, _grid_for, _run
 from smle.engine.latent import LatentAR1
 
 
@@ -120,16 +120,25 @@ def _backward_sample(key, grid, filtered, state, transition, n_paths):
     log_filtered = jnp.log(jnp.maximum(filtered, 1e-300)) + jnp.where(filtered > 0, 0.0, -jnp.inf)
     last = jax.random.categorical(keys[-1], log_filtered[-1], shape=(n_paths,))
 
+    def log_exponent(to, mean, sd):
+        return -0.5 * ((to[:, None] - mean[None, :]) / sd) ** 2
+
+    def log_columns(mean, sd):
+        # the forward pass normalises each column of its kernel to one (_dense_kernel); the draws
+        # use the same normalisation so that they follow the chain whose filter gave the masses
+        return jax.scipy.special.logsumexp(log_exponent(grid, mean, sd), axis=0)
+
+    fixed_mean = state.intercept + state.phi * grid
+    fixed_columns = log_columns(fixed_mean, state.sigma_eta) if transition is None else None
+
     def step(after, inputs):
         log_filt, period_key, row = inputs
         if row is None:
-            mean, sd = state.intercept + state.phi * grid, state.sigma_eta
+            mean, sd, columns = fixed_mean, state.sigma_eta, fixed_columns
         else:
             mean, sd = row
-        # log K(after, j): the chain's transition from x_j to x_after, columns normalised as in
-        # the forward pass (_dense_kernel), so that the draws follow the same discrete chain
-        log_column = jax.scipy.special.logsumexp(-0.5 * ((grid[:, None] - mean[None, :]) / sd) ** 2, axis=0)
-        log_k = -0.5 * ((grid[after][:, None] - mean[None, :]) / sd) ** 2 - log_column[None, :]
+            columns = log_columns(mean, sd)
+        log_k = log_exponent(grid[after], mean, sd) - columns[None, :]  # log K(after, j), (n_paths, G)
         current = jax.random.categorical(period_key, log_filt[None, :] + log_k, axis=1)
         return current, current
 
@@ -152,3 +161,38 @@ def backward_sample(key: jax.Array, state: LatentAR1, log_g: jax.Array, spec: Ex
     """
     _, filtered = masses if masses is not None else predicted_masses(state, log_g, spec, transition)
     return _backward_sample(key, spec.points(), filtered, state, transition, int(n_paths))
+
+
+def path_grid(spec: ExactGrid, state: LatentAR1, max_spacing: float, max_size: int = SIZES[-1]) -> ExactGrid:
+    """The range of ``spec`` with a spacing of at most ``max_spacing`` (where the size limit
+    allows), for drawing paths whose increments matter (:func:`backward_sample` draws grid values):
+    ``spec`` itself when it is already that fine. The transition is banded on large grids as in
+    :func:`smle.engine.exact.choose_grid`."""
+    if spec.spacing <= max_spacing:
+        return spec
+    return _grid_for(spec.lower, spec.upper, max_spacing, LatentAR1(*(float(v) for v in state)), max_size, False)
+
+
+@functools.partial(jax.jit, static_argnames=("n_paths",))
+def gaussian_backward_sample(key: jax.Array, filtered_mean, filtered_var, predicted_mean, predicted_var, state: LatentAR1,
+                             n_paths: int = 1) -> jax.Array:
+    """Paths drawn from the smoothing distribution of a linear Gaussian model, shape (T, n_paths),
+    from its Kalman filter's moments (arrays (T,) of :class:`smle.engine.kalman.KalmanOutput`).
+
+    Backward simulation (Fruhwirth-Schnatter 1994; Carter and Kohn 1994): x_T ~ N(m_T, P_T), then
+    x_t | x_{t+1} ~ N(m_t + J_t (x_{t+1} - a_{t+1}), P_t sigma_eta^2 / P_{t+1}^pred) with
+    J_t = phi P_t / P_{t+1}^pred (the variance ``P_t - J_t^2 P_{t+1}^pred`` in a form without
+    cancellation). All randomness derives from ``key``.
+    """
+    noise = jax.random.normal(key, (filtered_mean.shape[0], n_paths), dtype=filtered_mean.dtype)
+    last = filtered_mean[-1] + jnp.sqrt(filtered_var[-1]) * noise[-1]
+
+    def step(after, inputs):
+        mean, var, pred_mean, pred_var, z = inputs
+        gain = state.phi * var / pred_var
+        current = mean + gain * (after - pred_mean) + jnp.sqrt(var * state.sigma_eta**2 / pred_var) * z
+        return current, current
+
+    inputs = (filtered_mean[:-1], filtered_var[:-1], predicted_mean[1:], predicted_var[1:], noise[:-1])
+    _, rest = jax.lax.scan(step, last, inputs, reverse=True)
+    return jnp.concatenate([rest, last[None]])
