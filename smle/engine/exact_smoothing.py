@@ -114,11 +114,21 @@ def quantile_band(masses: jax.Array, spec: ExactGrid, levels: tuple = (0.05, 0.9
     return tuple(_quantiles(masses, grid, q) for q in levels)
 
 
+def _inverse_cdf_draw(key, log_weights):
+    """One index per row of ``log_weights`` (n, G), drawn with probability proportional to its
+    exponential, by inverting the cumulative weights at one uniform per row (cheaper than a Gumbel
+    draw per entry)."""
+    weights = jnp.exp(log_weights - jnp.max(log_weights, axis=1, keepdims=True))
+    cumulative = jnp.cumsum(weights, axis=1)
+    u = jax.random.uniform(key, (log_weights.shape[0], 1), dtype=weights.dtype) * cumulative[:, -1:]
+    return jnp.minimum(jnp.sum(cumulative <= u, axis=1), log_weights.shape[1] - 1)
+
+
 @functools.partial(jax.jit, static_argnames=("n_paths",))
 def _backward_sample(key, grid, filtered, state, transition, n_paths):
     keys = jax.random.split(key, filtered.shape[0])
     log_filtered = jnp.log(jnp.maximum(filtered, 1e-300)) + jnp.where(filtered > 0, 0.0, -jnp.inf)
-    last = jax.random.categorical(keys[-1], log_filtered[-1], shape=(n_paths,))
+    last = _inverse_cdf_draw(keys[-1], jnp.broadcast_to(log_filtered[-1], (n_paths, grid.shape[0])))
 
     def log_exponent(to, mean, sd):
         return -0.5 * ((to[:, None] - mean[None, :]) / sd) ** 2
@@ -139,7 +149,7 @@ def _backward_sample(key, grid, filtered, state, transition, n_paths):
             mean, sd = row
             columns = log_columns(mean, sd)
         log_k = log_exponent(grid[after], mean, sd) - columns[None, :]  # log K(after, j), (n_paths, G)
-        current = jax.random.categorical(period_key, log_filt[None, :] + log_k, axis=1)
+        current = _inverse_cdf_draw(period_key, log_filt[None, :] + log_k)
         return current, current
 
     rows = None if transition is None else (transition.mean, transition.sd)
