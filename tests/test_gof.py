@@ -234,9 +234,11 @@ def test_sv_fitted_to_student_t_data_is_rejected_by_the_tail_tests():
     """sv fitted by smle.fit to sv-t data with nu = 4 (T = 2000): the fitted sv absorbs part of
     the heavy tails into a larger sigma_eta, but the normal scores keep excess kurtosis. A
     sample counts as rejected when the Jarque-Bera test or the 1% two-tailed LR test has
-    p < 0.05. Measured power (26 other samples, seeds 100-105 and 300-319): 22 of 26 (0.85);
-    with that power, at least 3 of 5 samples are rejected with probability 0.97. Under the true
-    model the same rule rejects in 9.5% of samples (200 samples of T = 500; test_filtering.py)."""
+    p < 0.05. The fit and the diagnosis are exact (the defaults for sv). Measured power with the
+    exact PITs (26 other samples, seeds 100-105 and 300-319): 20 of 26 (0.77); with that power, at
+    least 3 of 5 samples are rejected with probability 0.92 (with the particle filter's PITs and
+    EIS fits: 22 of 26). Under the true model the same rule rejects in 9.0% of samples (200
+    samples of T = 500, exact PITs; test_filtering.py)."""
     design = {**PERCENT_DESIGN, "nu": 4.0}
     rejected = 0
     for sample in range(5):

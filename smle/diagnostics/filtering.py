@@ -229,7 +229,8 @@ class FilterResult:
       loglik: sum of the log one-step predictive densities (the filter's log-likelihood: exact to
         ``error_bound`` for the exact method, a simulated estimate for particles).
       filtered_mean, filtered_sd, filtered_lower, filtered_upper: mean, standard deviation and
-        5%/95% quantiles of x_t given y_1..y_t.
+        5%/95% quantiles of x_t given y_1..y_t (the fields added with the exact method, from
+        ``method`` on, have defaults so that older positional constructions still work).
       log_predictive: log p(y_t | y_1..y_{t-1}) per period.
       pit: PITs, shape (T, n_series), or None when the model has no conditional CDF.
       smoothed_mean, smoothed_sd, smoothed_lower, smoothed_upper: the same given y_1..y_T (exact
@@ -245,26 +246,26 @@ class FilterResult:
 
     model: str
     factor_name: str
-    method: str
-    engine: str
     loglik: float
     filtered_mean: np.ndarray
-    filtered_sd: np.ndarray
     filtered_lower: np.ndarray
     filtered_upper: np.ndarray
     log_predictive: np.ndarray
     pit: np.ndarray | None
+    ess: np.ndarray | None
+    resample_count: int | None
+    n_particles: int | None
+    seed: int | None
+    resample_threshold: float | None
+    method: str = "particles"
+    engine: str = "particle filter"
+    filtered_sd: np.ndarray | None = None
     smoothed_mean: np.ndarray | None = None
     smoothed_sd: np.ndarray | None = None
     smoothed_lower: np.ndarray | None = None
     smoothed_upper: np.ndarray | None = None
     grid_size: int | None = None
     error_bound: float | None = None
-    ess: np.ndarray | None = None
-    resample_count: int | None = None
-    n_particles: int | None = None
-    seed: int | None = None
-    resample_threshold: float | None = None
 
     @property
     def simulated(self) -> bool:
@@ -331,7 +332,8 @@ def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000
     key = as_key(seed)
     if method == "exact":
         out = exact_factor(model, jax_params(checked), y, check_exact_tol(exact_tol), has_obs_cdf(model))
-        return FilterResult(model=model.name, factor_name=model.factor_name, method="exact",
+        return FilterResult(model=model.name, factor_name=model.factor_name, method="exact", ess=None,
+                            resample_count=None, n_particles=None, seed=None, resample_threshold=None,
                             **out._asdict())
     return particle_result(model, checked, y, n_particles, seed, key, resample_threshold)
 

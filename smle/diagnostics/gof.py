@@ -124,7 +124,7 @@ class TestResult:
 
     @property
     def on_factor_path(self) -> bool:
-        return self.factor_path
+        return self.factor_path or self.level != SIGNIFICANCE
 
 
 @dataclasses.dataclass
@@ -220,14 +220,15 @@ class Diagnostics:
         if path:
             below_5 = sum(t.p_value is not None and t.p_value < SIGNIFICANCE for t in path)
             strong = [t for t in path if t.flagged]
+            counted = f"factor path: {below_5} of {sum(t.p_value is not None for t in path)} tests below {SIGNIFICANCE:g}"
+            named = ": " + "; ".join(f"{t.test} of {t.subject}" for t in strong) if strong else ""
             if path[0].level == EXACT_PATH_LEVEL:
-                why = "counted apart: another seed draws another path; drawn exactly, these tests hold their size"
+                lines.append(f"{counted} (counted apart: another seed draws another path; drawn exactly, these tests "
+                             f"hold their size){named}")
             else:
-                why = (f"counted apart: the path is an approximate posterior draw, which can make these reject more "
-                       f"often than {SIGNIFICANCE:.0%} under a correct model")
-            lines.append(f"factor path: {below_5} of {sum(t.p_value is not None for t in path)} tests below "
-                         f"{SIGNIFICANCE:g} ({why}); {len(strong)} flagged below {path[0].level:g}"
-                         + (": " + "; ".join(f"{t.test} of {t.subject}" for t in strong) if strong else ""))
+                lines.append(f"{counted} (counted apart: the path is an approximate posterior draw, which can make "
+                             f"these reject more often than {SIGNIFICANCE:.0%} under a correct model); {len(strong)} "
+                             f"below {path[0].level:g}{named}")
         lines += [
             "under a correct model the PITs are i.i.d. uniform and the scores i.i.d. N(0, 1): about 1 test in 20",
             "flags by chance; Durbin-Watson near 2 means no first-order autocorrelation",
