@@ -28,15 +28,10 @@ sys.path.insert(0, str(HERE))
 
 from machine import cpu_model  # noqa: E402  (experiments/machine.py)
 
+from bench_filter import CASES as PARTICLE_CASES  # noqa: E402  (the same three models and parameters)
+
 N_PERIODS = 2000
-SV = {"mu": -7.36 + 2 * 4.605170185988092, "phi": 0.95, "sigma_eta": 0.26}  # percent returns
-CASES = (
-    ("sv", {}, SV),
-    ("realized-sv", {}, {**SV, "xi": -0.3, "sigma_u": 0.4}),
-    ("garch-mix", {"link": "ig"}, {"mu": 0.03, "ar1": 0.05, "omega": 0.05, "alpha": 0.08, "beta": 0.9,
-                                   "gamma": -0.3, "lambda": 1.5, "rho": 0.8}),
-    ("ar1-noise", {}, {"mu": 0.5, "phi": 0.9, "sigma_eta": 0.4, "sigma_eps": 0.6}),
-)
+CASES = (*PARTICLE_CASES, ("ar1-noise", {}, {"mu": 0.5, "phi": 0.9, "sigma_eta": 0.4, "sigma_eps": 0.6}))
 
 
 def _timed(call, repeats):
