@@ -1,4 +1,5 @@
-"""The guided particle filter (smle.filter_factor) and the models' conditional CDFs.
+"""The guided particle filter (smle.filter_factor(method="particles")) and the models' conditional
+CDFs (the exact route of filter_factor is tested in test_filtering_exact.py).
 
 Outside references: the Kalman filter (Kalman 1960; smle.reference, itself checked against
 statsmodels on the Nile data) for ar1-noise; the deterministic grid filter (Kitagawa 1987) and
@@ -44,9 +45,10 @@ def test_every_registered_model_has_a_conditional_cdf():
         elif model.state_dim > 1:
             # the particle filter and the PITs are not yet available for a k-dimensional state;
             # filter_factor says so instead of failing inside the filter
-            with pytest.raises(smle.SmleInputError, match="not yet available for a .*dimensional state"):
-                data = np.random.default_rng(0).normal(size=(50, model.n_series)).squeeze()
-                smle.filter_factor(model, model.start_params(data), data)
+            data = np.random.default_rng(0).normal(size=(50, model.n_series)).squeeze()
+            for method in ("auto", "exact", "particles"):
+                with pytest.raises(smle.SmleInputError, match="not yet available for a .*dimensional state"):
+                    smle.filter_factor(model, model.start_params(data), data, method=method)
         else:
             assert has_obs_cdf(model), name
 
@@ -131,7 +133,8 @@ def test_filter_matches_the_kalman_filter_on_ar1_noise(ar1_data):
     the Kalman value (the downward bias of the log of an unbiased estimate, ~sd^2/2, plus noise).
     Tolerances: 4 sd for one run and for the mean of 6 runs."""
     y, kalman = ar1_data
-    runs = [smle.filter_factor("ar1-noise", AR1_NOISE, y, n_particles=2000, seed=s) for s in range(6)]
+    runs = [smle.filter_factor("ar1-noise", AR1_NOISE, y, n_particles=2000, seed=s, method="particles")
+            for s in range(6)]
     exact = float(kalman.loglik)
     assert abs(runs[0].loglik - exact) < 4 * 0.30
     assert abs(np.mean([r.loglik for r in runs]) - exact) < 4 * 0.30 / np.sqrt(6) + 0.05
@@ -169,7 +172,7 @@ def test_filter_loglik_agrees_with_eis_and_the_grid_filter(sv_data):
     own weights (smle.loglik, 0.057). Tolerance: 4
     combined standard errors of the difference of the means."""
     y, _ = sv_data
-    values = np.array([smle.filter_factor("sv", PERCENT_DESIGN, y, n_particles=2000, seed=s).loglik
+    values = np.array([smle.filter_factor("sv", PERCENT_DESIGN, y, n_particles=2000, seed=s, method="particles").loglik
                        for s in range(8)])
     pf_nse = values.std(ddof=1)
     assert 0 < pf_nse < 1.0
@@ -183,12 +186,12 @@ def test_filter_loglik_agrees_with_eis_and_the_grid_filter(sv_data):
 def test_filter_is_reproducible_and_causal(sv_data):
     """Same seed, same output; the output at t does not use observations after t."""
     y, x = sv_data
-    first = smle.filter_factor("sv", PERCENT_DESIGN, y, n_particles=2000, seed=3)
-    again = smle.filter_factor("sv", PERCENT_DESIGN, y, n_particles=2000, seed=3)
+    first = smle.filter_factor("sv", PERCENT_DESIGN, y, n_particles=2000, seed=3, method="particles")
+    again = smle.filter_factor("sv", PERCENT_DESIGN, y, n_particles=2000, seed=3, method="particles")
     np.testing.assert_array_equal(first.filtered_mean, again.filtered_mean)
     changed = y.copy()
     changed[300:] *= 3.0
-    other = smle.filter_factor("sv", PERCENT_DESIGN, changed, n_particles=2000, seed=3)
+    other = smle.filter_factor("sv", PERCENT_DESIGN, changed, n_particles=2000, seed=3, method="particles")
     np.testing.assert_array_equal(other.filtered_mean[:300], first.filtered_mean[:300])
     np.testing.assert_array_equal(other.pit[:300], first.pit[:300])
     assert not np.allclose(other.filtered_mean[300:], first.filtered_mean[300:])
@@ -198,21 +201,23 @@ def test_filter_is_reproducible_and_causal(sv_data):
 
 
 def test_pits_are_uniform_under_the_true_model():
-    """60 samples of sv (T = 500) filtered at the true parameters: the Kolmogorov-Smirnov,
-    Berkowitz and Ljung-Box tests (and the tail rule: Jarque-Bera or the 1% tails LR) reject at
-    5% about as often as they should. Rejection counts of a 5% test are Binomial(60, 0.05)
-    (mean 3); they stay below 8 with probability 0.990 (the Monte Carlo error of the PITs, sd
-    below 0.5 / sqrt(ESS) ~ 0.01, does not move them measurably). The tail rule has size at most
-    10%: Binomial(60, 0.10) stays below 13 with probability 0.995. Measured over 200 other
-    samples (seeds 5000-5199): KS 5.5%, Berkowitz 7.0%, Jarque-Bera 7.0%, 1% tails LR 4.5%,
-    tail rule 9.5%."""
+    """60 samples of sv (T = 500) filtered exactly (filter_factor's default route; the particle
+    filter's PITs are checked against these in test_filtering_exact.py) at the true parameters: the
+    Kolmogorov-Smirnov, Berkowitz and Ljung-Box tests (and the tail rule: Jarque-Bera or the 1%
+    tails LR) reject at 5% about as often as they should. Rejection counts of a 5% test are
+    Binomial(60, 0.05) (mean 3); they stay below 8 with probability 0.990. The tail rule has size
+    at most 10%: Binomial(60, 0.10) stays below 13 with probability 0.995. Measured over 200 other
+    samples (seeds 5000-5199), exact PITs: KS 5.5%, Berkowitz 7.0%, Jarque-Bera 6.5%, 1% tails LR
+    4.5%, tail rule 9.0%, Ljung-Box 3.5% (with the particle filter, when this test used it: 5.5%,
+    7.0%, 7.0%, 4.5%, 9.5%)."""
     from smle.diagnostics import gof
 
     model = smle.get_model("sv")
     counts = {"ks": 0, "berkowitz": 0, "tails": 0, "ljung-box": 0}
     for sample in range(60):
         y, _ = smle.simulate(model, PERCENT_DESIGN, 500, seed=1000 + sample)
-        result = smle.filter_factor(model, PERCENT_DESIGN, y, n_particles=2000, seed=sample)
+        result = smle.filter_factor(model, PERCENT_DESIGN, y)
+        assert result.method == "exact"
         pit = result.pit[:, 0]
         z = gof.normal_scores(pit)
         counts["ks"] += stats.kstest(pit, "uniform").pvalue < 0.05
@@ -225,16 +230,19 @@ def test_pits_are_uniform_under_the_true_model():
     assert counts["ks"] + counts["berkowitz"] + counts["ljung-box"] >= 3, counts
 
 
+@pytest.mark.parametrize("method", ["particles", "exact"])
 @pytest.mark.parametrize("name, options, params", [
     ("realized-sv", {}, {**PERCENT_DESIGN, "xi": -0.3, "sigma_u": 0.4}),
     ("garch-mix", {"link": "ig"}, dict(mu=0.03, ar1=0.05, omega=0.05, alpha=0.08, beta=0.9, gamma=-0.3,
                                        rho=0.8, **{"lambda": 1.5})),
 ])
-def test_multi_series_and_garch_mix_pits_are_uniform_under_the_true_model(name, options, params):
-    """PITs of every series at the true parameters pass the Kolmogorov-Smirnov test at 0.1%."""
+def test_multi_series_and_garch_mix_pits_are_uniform_under_the_true_model(name, options, params, method):
+    """PITs of every series at the true parameters pass the Kolmogorov-Smirnov test at 0.1%, by the
+    particle filter and by the exact grid filter (one PIT per series from the 3-d CDF on the grid)."""
     model = smle.get_model(name, **options)
     y, x = smle.simulate(model, params, 500, seed=21)
-    result = smle.filter_factor(model, params, y, n_particles=2000, seed=0)
+    result = smle.filter_factor(model, params, y, n_particles=2000, seed=0, method=method)
+    assert result.method == method
     assert result.pit.shape == (500, model.n_series)
     for k in range(model.n_series):
         assert stats.kstest(result.pit[:, k], "uniform").pvalue > 1e-3, k
@@ -258,6 +266,11 @@ def test_bad_input_to_the_filter(sv_data):
     with pytest.raises(smle.SmleInputError, match="non-finite"):
         smle.filter_factor("sv", PERCENT_DESIGN, np.where(np.arange(500) == 7, np.nan, y))
     assert isinstance(jax.random.PRNGKey(0), jax.Array)  # keys are accepted as seeds too
-    keyed = smle.filter_factor("sv", PERCENT_DESIGN, y, seed=jax.random.PRNGKey(3))
+    keyed = smle.filter_factor("sv", PERCENT_DESIGN, y, seed=jax.random.PRNGKey(3), method="particles")
     np.testing.assert_array_equal(keyed.filtered_mean,
-                                  smle.filter_factor("sv", PERCENT_DESIGN, y, seed=3).filtered_mean)
+                                  smle.filter_factor("sv", PERCENT_DESIGN, y, seed=3, method="particles").filtered_mean)
+    with pytest.raises(smle.SmleInputError, match="method = 'eis' is not accepted; accepted: 'auto', 'exact' or "
+                                                  "'particles'"):
+        smle.filter_factor("sv", PERCENT_DESIGN, y, method="eis")
+    with pytest.raises(smle.SmleInputError, match="exact_tol = 0 is not accepted"):
+        smle.filter_factor("sv", PERCENT_DESIGN, y, exact_tol=0)

@@ -121,7 +121,9 @@ def test_diagnose_report_and_its_json(sv_fit, tmp_path):
     result, y = sv_fit
     messages = []
     report = smle.diagnose(result, n_particles=2000, seed=1, progress=messages.append)
-    assert messages and "particles" in messages[0]
+    # an exact fit (smle.fit's default for sv) is diagnosed exactly
+    assert result.method == "exact" and messages and "exactly" in messages[0]
+    assert report.filter.method == "exact" and report.filter.engine == "grid filter"
     names = {(t.test, t.subject) for t in report.tests}
     for test in ("Ljung-Box", "ARCH-LM", "Durbin-Watson", "Kolmogorov-Smirnov", "Berkowitz LR", "Jarque-Bera"):
         assert any(n[0] == test for n in names), test
@@ -147,12 +149,43 @@ def test_diagnose_report_and_its_json(sv_fit, tmp_path):
     written = report.write(tmp_path)
     stored = json.loads((tmp_path / "diagnostics.json").read_text())
     assert len(stored["tests"]) == len(report.tests) and len(stored["pit"]) == len(y)
+    assert stored["filter_method"] == "exact" and stored["grid_size"] == report.filter.grid_size
     for path in written:
         assert path.stat().st_size > 1000, path
     # the same seed gives the same report
     again = smle.diagnose(result, y, n_particles=2000, seed=1)
     np.testing.assert_array_equal(again.pit, report.pit)
     np.testing.assert_array_equal(again.factor_path, report.factor_path)
+
+
+def test_diagnose_routes(sv_fit):
+    """method="auto" follows the fit (exact fit: exact filter and an exact path draw, flagged at 5%;
+    EIS fit: particle filter and an EIS-drawn path, flagged at 1%); "exact" and "particles" choose."""
+    result, y = sv_fit
+    exact_report = smle.diagnose(result, seed=2)
+    path_tests = [t for t in exact_report.tests if t.on_factor_path]
+    assert len(path_tests) == 7 and all(t.level == gof.EXACT_PATH_LEVEL == 0.05 for t in path_tests)
+    assert "backward simulation on a grid" in exact_report.path_source
+    text = exact_report.summary()
+    assert "Exact filter (no simulation noise)" in text and "grid filter" in text and "particles" not in text
+    # the smoothed band shown is the exact smoother's at the estimates (the fit's own, to its accuracy)
+    np.testing.assert_allclose(exact_report.smoothed_mean, result.smoothed_mean, atol=1e-6)
+    simulated = smle.diagnose(result, seed=2, method="particles")
+    assert simulated.filter.method == "particles" and simulated.filter.n_particles == 2000
+    assert all(t.level == gof.FACTOR_PATH_LEVEL for t in simulated.tests if t.on_factor_path)
+    assert "EIS scoring draws" in simulated.path_source and "Guided particle filter" in simulated.summary()
+    eis_fit = smle.fit("sv", y, n_draws=64, seed=0, method="eis")
+    assert eis_fit.simulated
+    assert smle.diagnose(eis_fit, seed=2).filter.method == "particles"
+    forced = smle.diagnose(eis_fit, seed=2, method="exact")
+    assert forced.filter.method == "exact" and "EIS" in forced.summary()  # the fit's line: EIS value and NSE
+    with pytest.raises(smle.SmleInputError, match="method = 'eis' is not accepted"):
+        smle.diagnose(result, y, method="eis")
+    # a linear Gaussian model: the Kalman filter, and a path by Gaussian backward simulation
+    ar1 = dict(mu=0.5, phi=0.9, sigma_eta=0.4, sigma_eps=0.6)
+    y_ar1, _ = smle.simulate("ar1-noise", ar1, 500, seed=3)
+    kalman_report = smle.diagnose(smle.fit("ar1-noise", y_ar1), seed=0)
+    assert kalman_report.filter.engine == "Kalman filter" and "Kalman filter" in kalman_report.path_source
 
 
 def test_fit_result_json_keeps_the_observations(sv_fit, tmp_path):
@@ -201,9 +234,11 @@ def test_sv_fitted_to_student_t_data_is_rejected_by_the_tail_tests():
     """sv fitted by smle.fit to sv-t data with nu = 4 (T = 2000): the fitted sv absorbs part of
     the heavy tails into a larger sigma_eta, but the normal scores keep excess kurtosis. A
     sample counts as rejected when the Jarque-Bera test or the 1% two-tailed LR test has
-    p < 0.05. Measured power (26 other samples, seeds 100-105 and 300-319): 22 of 26 (0.85);
-    with that power, at least 3 of 5 samples are rejected with probability 0.97. Under the true
-    model the same rule rejects in 9.5% of samples (200 samples of T = 500; test_filtering.py)."""
+    p < 0.05. The fit and the diagnosis are exact (the defaults for sv). Measured power with the
+    exact PITs (26 other samples, seeds 100-105 and 300-319): 20 of 26 (0.77); with that power, at
+    least 3 of 5 samples are rejected with probability 0.92 (with the particle filter's PITs and
+    EIS fits: 22 of 26). Under the true model the same rule rejects in 9.0% of samples (200
+    samples of T = 500, exact PITs; test_filtering.py)."""
     design = {**PERCENT_DESIGN, "nu": 4.0}
     rejected = 0
     for sample in range(5):

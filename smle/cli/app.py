@@ -48,7 +48,8 @@ def _diagnose(result, y, args):
     import smle
 
     progress = None if args.quiet else (lambda message: print(message, file=sys.stderr, flush=True))
-    diagnostics = smle.diagnose(result, y, n_particles=args.particles, seed=args.seed, progress=progress)
+    diagnostics = smle.diagnose(result, y, n_particles=args.particles, seed=args.seed, progress=progress,
+                                method=getattr(args, "filter_method", "auto"))
     print()
     print(diagnostics.summary())
     return diagnostics
@@ -248,8 +249,12 @@ def build_parser() -> argparse.ArgumentParser:
     diagnose.add_argument("result", help="result.json written by 'smle fit --report' (or FitResult.to_json)")
     diagnose.add_argument("--data", help="CSV of the observations (default: those stored in the result)")
     add_column_options(diagnose, "of --data ")
-    diagnose.add_argument("--particles", type=int, default=2000, help="particles of the filter (default 2000)")
-    diagnose.add_argument("--seed", type=int, default=0, help="seed of the filter (default 0)")
+    diagnose.add_argument("--method", dest="filter_method", choices=("auto", "exact", "particles"), default="auto",
+                          help="how to filter: 'exact' (no simulation; one-dimensional states), 'particles' (the "
+                               "particle filter and an EIS-drawn factor path); default 'auto': the fit's own route")
+    diagnose.add_argument("--particles", type=int, default=2000,
+                          help="particles of the particle filter (default 2000)")
+    diagnose.add_argument("--seed", type=int, default=0, help="seed of the particle filter and the factor path (default 0)")
     diagnose.add_argument("--report", help="folder for diagnostics.txt, diagnostics.json and the figures")
     diagnose.add_argument("--quiet", action="store_true", help="no progress output")
     diagnose.set_defaults(handler=_command_diagnose)

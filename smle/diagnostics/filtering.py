@@ -1,5 +1,10 @@
-"""A particle filter guided by per-period Gaussian proposals: filtered factor, one-step
-predictive densities and probability integral transforms (PITs).
+"""The filtered factor, one-step predictive densities and probability integral transforms (PITs):
+:func:`filter_factor`, exact for a one-dimensional state (``method="auto"`` or ``"exact"``: the
+Kalman filter or the grid filter with its backward pass, :mod:`smle.diagnostics.filtering_exact`),
+or by the guided particle filter below (``method="particles"``), which stays as the check on the
+exact route.
+
+The particle filter is guided by per-period Gaussian proposals.
 
 For a model with latent Gaussian AR(1) state ``x_t`` (transition ``p(x_t | x_{t-1})``, start
 ``N(init_mean, init_var)``) and observation density ``g_t(y_t | x_t)``, each period uses the
@@ -52,6 +57,8 @@ import numpy as np
 
 from smle.errors import SmleInputError
 from smle.engine.posterior import weighted_quantiles
+from smle.diagnostics.filtering_exact import exact_factor
+from smle.exact_likelihood import EXACT_TOL, check_exact_tol, resolve_method
 from smle.validation import as_key, check_integer, checked_inputs, jax_params, require_scalar_state
 from smle.models import Model
 
@@ -65,7 +72,7 @@ class FilterOutput(NamedTuple):
     """What the compiled filter returns (JAX arrays, leading dimension T).
 
     Attributes:
-      filtered_mean: E[x_t | y_1..y_t], shape (T,).
+      filtered_mean: E[x_t | y_1..y_t], shape (T,); filtered_sd: its standard deviation.
       filtered_quantiles: 5% and 95% quantiles of x_t given y_1..y_t, shape (2, T).
       log_predictive: log p(y_t | y_1..y_{t-1}), shape (T,).
       pit: PIT of each series under its one-step predictive law, shape (T, n_series)
@@ -75,6 +82,7 @@ class FilterOutput(NamedTuple):
     """
 
     filtered_mean: jax.Array
+    filtered_sd: jax.Array
     filtered_quantiles: jax.Array
     log_predictive: jax.Array
     pit: jax.Array
@@ -181,18 +189,19 @@ def guided_filter(model: Model, params: Mapping, y, key, n_particles: int,
         else:
             pit = jnp.zeros((n_series,), dtype=log_w.dtype)
         mean = weights @ current
+        sd = jnp.sqrt(weights @ (current - mean) ** 2)
         quantiles = weighted_quantiles(current, weights, QUANTILES)
         ess = 1.0 / jnp.sum(weights**2)
         resample = ess < threshold
         ancestors = systematic_ancestors(log_w, jax.random.uniform(period_keys[1], dtype=log_w.dtype))
         particles = jnp.where(resample, current[ancestors], current)
         log_w = jnp.where(resample, jnp.full_like(log_w, -log_n), log_w)
-        return (particles, log_w), (mean, quantiles, log_predictive, pit, ess, resample)
+        return (particles, log_w), (mean, sd, quantiles, log_predictive, pit, ess, resample)
 
     init = (jnp.zeros((n_particles,)), jnp.full((n_particles,), -log_n))
-    _, (mean, quantiles, log_predictive, pit, ess, resampled) = jax.lax.scan(
+    _, (mean, sd, quantiles, log_predictive, pit, ess, resampled) = jax.lax.scan(
         step, init, (jnp.arange(n_periods), b, c, keys))
-    return FilterOutput(mean, quantiles.T, log_predictive, pit, ess, resampled)
+    return FilterOutput(mean, sd, quantiles.T, log_predictive, pit, ess, resampled)
 
 
 @functools.lru_cache(maxsize=None)
@@ -205,20 +214,34 @@ def compiled_filter(model: Model, n_particles: int) -> Callable:
     return jax.jit(run)
 
 
+FILTER_METHODS = ("auto", "exact", "particles")
+
+
 @dataclasses.dataclass(frozen=True)
 class FilterResult:
-    """Filtered factor and one-step predictive quantities (NumPy arrays, leading dimension T).
+    """Filtered (and, for the exact method, smoothed) factor and one-step predictive quantities
+    (NumPy arrays, leading dimension T).
 
     Attributes:
       model: the model's registry name; factor_name: what the latent state is.
-      loglik: sum of the log one-step predictive densities (the filter's log-likelihood).
-      filtered_mean, filtered_lower, filtered_upper: mean and 5%/95% quantiles of x_t given
-        y_1..y_t.
+      method: "exact" (no simulation: the Kalman filter or the grid filter) or "particles" (the
+        guided particle filter); engine: "Kalman filter", "grid filter" or "particle filter".
+      loglik: sum of the log one-step predictive densities (the filter's log-likelihood: exact to
+        ``error_bound`` for the exact method, a simulated estimate for particles).
+      filtered_mean, filtered_sd, filtered_lower, filtered_upper: mean, standard deviation and
+        5%/95% quantiles of x_t given y_1..y_t (the fields added with the exact method, from
+        ``method`` on, have defaults so that older positional constructions still work).
       log_predictive: log p(y_t | y_1..y_{t-1}) per period.
       pit: PITs, shape (T, n_series), or None when the model has no conditional CDF.
-      ess: effective sample size after each period's observation; resample_count: periods
-        after which the particles were resampled.
-      n_particles, seed, resample_threshold: the settings used.
+      smoothed_mean, smoothed_sd, smoothed_lower, smoothed_upper: the same given y_1..y_T (exact
+        method; None for particles, which do not smooth).
+      grid_size: points of the grid (0 for the Kalman filter; None for particles).
+      error_bound: the exact method's accuracy estimate of ``loglik`` against a coarser grid (0 for
+        the Kalman filter, exact to rounding; None for particles).
+      ess: effective sample size after each period's observation; resample_count: periods after
+        which the particles were resampled; n_particles, seed, resample_threshold: the particle
+        filter's settings. All None for the exact method: there are no particles, every grid point
+        carries its exact mass, so no effective sample size applies.
     """
 
     model: str
@@ -229,11 +252,25 @@ class FilterResult:
     filtered_upper: np.ndarray
     log_predictive: np.ndarray
     pit: np.ndarray | None
-    ess: np.ndarray
-    resample_count: int
-    n_particles: int
-    seed: int
-    resample_threshold: float
+    ess: np.ndarray | None
+    resample_count: int | None
+    n_particles: int | None
+    seed: int | None
+    resample_threshold: float | None
+    method: str = "particles"
+    engine: str = "particle filter"
+    filtered_sd: np.ndarray | None = None
+    smoothed_mean: np.ndarray | None = None
+    smoothed_sd: np.ndarray | None = None
+    smoothed_lower: np.ndarray | None = None
+    smoothed_upper: np.ndarray | None = None
+    grid_size: int | None = None
+    error_bound: float | None = None
+
+    @property
+    def simulated(self) -> bool:
+        """Whether the quantities carry simulation noise (the particle filter)."""
+        return self.method == "particles"
 
 
 def check_filter_settings(n_particles, resample_threshold) -> tuple[int, float]:
@@ -248,32 +285,61 @@ def check_filter_settings(n_particles, resample_threshold) -> tuple[int, float]:
     return int(n_particles), float(resample_threshold)
 
 
+def resolve_filter_method(model: Model, method) -> str:
+    """"exact" or "particles": ``auto`` is exact for a one-dimensional state (no simulation noise)."""
+    if method not in FILTER_METHODS:
+        raise SmleInputError(f"method = {method!r} is not accepted; accepted: 'auto', 'exact' or 'particles' "
+                             "(the guided particle filter)")
+    if method == "particles":
+        return method
+    return resolve_method(model, method)
+
+
 def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000, seed=0,
-                  resample_threshold: float = 0.5) -> FilterResult:
-    """Filter the latent factor of ``model`` at ``params`` with a guided particle filter.
+                  resample_threshold: float = 0.5, method: str = "auto",
+                  exact_tol: float = EXACT_TOL) -> FilterResult:
+    """Filter the latent factor of ``model`` at ``params``: exactly, or with a guided particle filter.
 
     Args:
       model: a registered model name or a model instance.
       params: parameter values by name (natural parameterisation), e.g. a fit's ``params``.
       y: observations, shape (T,) or (T, n_series).
-      n_particles: number of particles (at least 100).
-      seed: non-negative integer or JAX PRNG key (the draws and resampling uniforms derive from it).
+      n_particles: number of particles (at least 100; particles only).
+      seed: non-negative integer or JAX PRNG key (the draws and resampling uniforms derive from it;
+        particles only, but checked for every method).
       resample_threshold: resample when the ESS falls below this fraction of the particles.
+      method: "auto" (default: "exact" for a one-dimensional state; a state of k > 1 dimensions is
+        refused for now by every method), "exact" (the Kalman filter for a linear Gaussian model, the checked grid
+        filter otherwise, and the backward smoothing pass: no simulation noise) or "particles"
+        (the guided particle filter, the independent check on the exact route).
+      exact_tol: accuracy of the exact method's log-likelihood (log-likelihood units).
 
     Returns:
-      A :class:`FilterResult`.
+      A :class:`FilterResult`; its ``method`` and ``engine`` say which filter ran.
 
     References:
-      Pitt and Shephard (1999), JASA 94 (guided and auxiliary particle filters); Kitagawa (1996),
-      J. Comput. Graph. Statist. 5 (systematic resampling); Diebold, Gunther and Tay (1998),
-      International Economic Review 39 (PITs of one-step predictive densities).
+      Kitagawa (1987), JASA 82 (grid filter and smoother); Pitt and Shephard (1999), JASA 94 (guided
+      and auxiliary particle filters); Kitagawa (1996), J. Comput. Graph. Statist. 5 (systematic
+      resampling); Diebold, Gunther and Tay (1998), International Economic Review 39 (PITs of
+      one-step predictive densities).
     """
     model, checked, y = checked_inputs(model, params, y)
     if model.state_dim == 0:
         raise SmleInputError(no_state_message(model))
     require_scalar_state(model, "smle.filter_factor")
+    method = resolve_filter_method(model, method)
     n_particles, resample_threshold = check_filter_settings(n_particles, resample_threshold)
     key = as_key(seed)
+    if method == "exact":
+        out = exact_factor(model, jax_params(checked), y, check_exact_tol(exact_tol), has_obs_cdf(model))
+        return FilterResult(model=model.name, factor_name=model.factor_name, method="exact", ess=None,
+                            resample_count=None, n_particles=None, seed=None, resample_threshold=None,
+                            **out._asdict())
+    return particle_result(model, checked, y, n_particles, seed, key, resample_threshold)
+
+
+def particle_result(model: Model, checked, y, n_particles: int, seed, key, resample_threshold: float) -> FilterResult:
+    """The guided particle filter's :class:`FilterResult` (inputs checked by :func:`filter_factor`)."""
     out = compiled_filter(model, n_particles)(jax_params(checked), jnp.asarray(y), key, resample_threshold)
     log_predictive = np.asarray(out.log_predictive)
     if not np.all(np.isfinite(log_predictive)):
@@ -286,8 +352,11 @@ def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000
     return FilterResult(
         model=model.name,
         factor_name=model.factor_name,
+        method="particles",
+        engine="particle filter",
         loglik=float(log_predictive.sum()),
         filtered_mean=np.asarray(out.filtered_mean),
+        filtered_sd=np.asarray(out.filtered_sd),
         filtered_lower=quantiles[0],
         filtered_upper=quantiles[1],
         log_predictive=log_predictive,

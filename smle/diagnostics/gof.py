@@ -1,7 +1,8 @@
 """Goodness of fit after a fit: PITs, normal scores, residual tests and a report.
 
-:func:`diagnose` runs the guided particle filter (:mod:`smle.diagnostics.filtering`) at a fit's estimates,
-turns each observation into its probability integral transform (PIT) under the one-step
+:func:`diagnose` filters the factor at a fit's estimates (:func:`smle.filter_factor`: exactly, by the
+Kalman filter or the grid filter, for the exact and closed-form routes; by the guided particle filter
+for an EIS fit or on request), turns each observation into its probability integral transform (PIT) under the one-step
 predictive law and into a normal score ``z_t = Phi^{-1}(PIT_t)``, and tests what a correct
 model implies: the PITs are i.i.d. uniform, so the scores are i.i.d. N(0, 1) (Rosenblatt 1952,
 Ann. Math. Statist. 23; Diebold, Gunther and Tay 1998, International Economic Review 39).
@@ -27,13 +28,15 @@ is common practice, not a property of the tests):
   tails heavier or lighter than the model's (our two-sided variant of Berkowitz's section 3);
 * on the latent factor: Ljung-Box of the standardised AR(1) innovations
   ``(x_t - mu - phi (x_{t-1} - mu)) / sigma_eta`` of one path drawn from the smoothing
-  distribution (importance resampling of the EIS scoring paths at the estimates), and of their
-  squares, and their Durbin-Watson statistic. Under a correct model a path drawn from the
-  posterior has the law of the true path, so its innovations are i.i.d. N(0, 1) (the idea of
-  realized discrepancies, Gelman, Meng and Stern 1996, Statistica Sinica 6); the innovations of
-  the smoothed *mean* are not (smoothing correlates them), so they are not tested. The path drawn
-  here is only approximately a posterior draw, so these tests are counted apart from the tests of
-  the observations and flagged at ``FACTOR_PATH_LEVEL`` (1%), not 5% (measured sizes there).
+  distribution at the estimates, and of their squares, and their Durbin-Watson statistic. Under a
+  correct model a path drawn from the posterior has the law of the true path, so its innovations
+  are i.i.d. N(0, 1) (the idea of realized discrepancies, Gelman, Meng and Stern 1996, Statistica
+  Sinica 6); the innovations of the smoothed *mean* are not (smoothing correlates them), so they
+  are not tested. The path is drawn exactly by backward simulation after the exact filter
+  (:mod:`smle.diagnostics.factor_path`), and these tests are flagged at 5% (``EXACT_PATH_LEVEL``);
+  on the particle route it is an EIS scoring path picked by importance weight, only approximately
+  a posterior draw, and they are flagged at ``FACTOR_PATH_LEVEL`` (1%). Either way they are counted
+  apart from the tests of the observations: another seed draws another path.
 """
 
 from __future__ import annotations
@@ -50,13 +53,17 @@ from smle.errors import SmleInputError, describe
 from smle.diagnostics.residual_tests import (  # noqa: F401 (public names of gof)
     PIT_CLIP, arch_lm, autocorrelations, check_lags, berkowitz_test, durbin_watson, ljung_box, normal_scores, tail_test,
 )
+from smle.diagnostics.factor_path import (  # noqa: F401 (public names of gof)
+    PATH_CANDIDATES, exact_posterior_path, factor_innovations, posterior_path,
+)
 from smle.diagnostics.filtering import (
     FilterResult, check_filter_settings, filter_factor, has_obs_cdf, no_state_message,
 )
+from smle.exact_likelihood import EXACT_TOL, check_exact_tol, resolve_method
 from smle.validation import check_observations, require_scalar_state
 from smle.models import saved_model
 from smle import report_text as layout
-from smle.results import CAUTION, FitResult, low_ess_warning
+from smle.results import CAUTION, FitResult, exact_engine_text, low_ess_warning
 
 SIGNIFICANCE = 0.05  # common practice
 
@@ -64,9 +71,6 @@ FILTER_LOW_ESS_FRACTION = 0.01
 """A period whose particle-filter ESS is below this fraction of the particles is flagged (common
 practice, a rule of thumb: fewer than 20 of 2000 particles then carry that period's PIT; dips to
 a few per cent after an outlier are ordinary for a filter that resamples at one half)."""
-
-PATH_CANDIDATES = 2000
-"""Scoring draws among which :func:`posterior_path` picks the factor path (by importance weight)."""
 
 FACTOR_PATH_LEVEL = 0.01
 """Flagging level of the tests on the drawn factor path. The path is one of the EIS scoring paths
@@ -81,6 +85,16 @@ p-values fell below 1% (exact draw: 1.2%). The size is then near nominal for sv,
 design (garch-mix was measured with 64 candidates only: 9 of 100 at lag 5, exact draw 3), so the
 path tests stay counted apart from the tests of the observations and are flagged below 1%."""
 
+EXACT_PATH_LEVEL = SIGNIFICANCE
+"""Flagging level of the factor-path tests when the path is drawn exactly (backward simulation after
+the exact filter): such a draw has the law of the true path under a correct model, so the tests have
+their nominal size. Measured in ``experiments/factor_path_size.py`` (the "ffbs" rows, an exact grid
+posterior draw): sv, 200 samples of T = 2000, lag-5/10/20 Ljung-Box of the innovations rejected at 5%
+in 7, 10 and 11 samples (3.5-5.5%), of their squares in 10, 9 and 8; garch-mix, 100 samples: 3, 1, 4
+and 3, 1, 3. The grid the path is drawn on is checked in ``experiments/factor_path_exact.py``."""
+
+DIAGNOSE_METHODS = ("auto", "exact", "particles")
+
 
 # ---------------------------------------------------------------------------------------------
 # The report
@@ -92,7 +106,8 @@ class TestResult:
 
     ``p_value`` is None for a statistic without one (Durbin-Watson); ``level`` is the p-value below
     which the test is flagged: ``SIGNIFICANCE`` (5%), or ``FACTOR_PATH_LEVEL`` for the tests on a
-    drawn factor path, whose size at 5% is distorted (see ``FACTOR_PATH_LEVEL``).
+    factor path drawn by EIS, whose size at 5% is distorted (see ``FACTOR_PATH_LEVEL``);
+    ``factor_path``: whether the test is on a drawn factor path (counted apart in the report).
     """
 
     test: str
@@ -101,6 +116,7 @@ class TestResult:
     df: int | None
     p_value: float | None
     level: float = SIGNIFICANCE
+    factor_path: bool = False
 
     @property
     def flagged(self) -> bool:
@@ -108,7 +124,7 @@ class TestResult:
 
     @property
     def on_factor_path(self) -> bool:
-        return self.level != SIGNIFICANCE
+        return self.factor_path or self.level != SIGNIFICANCE
 
 
 @dataclasses.dataclass
@@ -121,8 +137,11 @@ class Diagnostics:
       pit, scores: PITs and normal scores, shape (T, n_series).
       factor_path: one path of the factor drawn from the smoothing distribution, shape (T,);
       factor_innovations: its standardised AR(1) innovations, shape (T - 1,).
-      smoothed_mean, smoothed_lower, smoothed_upper: the fit's smoothed factor (for figures).
-      tests: the :class:`TestResult` list; fit_loglik, fit_nse: the EIS log-likelihood and NSE.
+      smoothed_mean, smoothed_lower, smoothed_upper: the smoothed factor (for figures): the exact
+        smoother's at the estimates on the exact route, the fit's own on the particle route.
+      tests: the :class:`TestResult` list; fit_loglik, fit_nse: the fit's log-likelihood and its NSE
+        (0 for an exact or closed-form fit); fit_method: how the fit computed it ("EIS", "exact").
+      path_source: how the factor path was drawn, in words.
       params, model_options: the fit's estimates and model options (the figures show the factor as
         the model displays it, ``Model.factor_display``).
       dates: the date of each period (from the fit), or None; the figures' time axis.
@@ -144,6 +163,8 @@ class Diagnostics:
     params: dict | None = None
     model_options: dict | None = None
     dates: list | None = None
+    fit_method: str = "EIS"
+    path_source: str = ""
 
     @property
     def flagged(self) -> list:
@@ -153,28 +174,43 @@ class Diagnostics:
     def summary(self) -> str:
         """Plain text in smle's report layout (:mod:`smle.report_text`); flagged tests end in ``<- flagged``."""
         f = self.filter
+        observed = [t for t in self.tests if not t.on_factor_path]
+        path = [t for t in self.tests if t.on_factor_path]
+        path_level = path[0].level if path else SIGNIFICANCE
+        path_note = "an exact posterior draw" if path_level == EXACT_PATH_LEVEL else "an approximate posterior draw"
+        return layout.render(
+            layout.title("goodness of fit", f"model {self.model}", f"{f.filtered_mean.shape[0]} periods"),
+            [self._filter_block(),
+             layout.block(f"Tests of the observations (flagged below p = {SIGNIFICANCE:g})",
+                          [_test_line(t) for t in observed]),
+             layout.block(f"Tests of a drawn factor path (flagged below p = {path_level:g}: the path is "
+                          f"{path_note})", ([self.path_source] if self.path_source else [])
+                          + [_test_line(t) for t in path]),
+             layout.block("Reading", self._reading(observed, path))],
+            CAUTION)
+
+    def _fit_text(self) -> str:
+        if self.fit_method == "EIS":
+            return f"EIS {self.fit_loglik:.3f} (NSE {self.fit_nse:.3f})"
+        return f"fit ({self.fit_method}) {self.fit_loglik:.3f}"
+
+    def _filter_block(self) -> list[str]:
+        f = self.filter
+        if not f.simulated:
+            return layout.block("Exact filter (no simulation noise)", [
+                layout.field("filter", exact_engine_text({"grid_size": f.grid_size, "error_bound": f.error_bound})),
+                layout.field("log-likelihood", f"filter {f.loglik:.3f}, {self._fit_text()}"),
+            ])
         lowest = int(np.argmin(f.ess))
         low_periods = int(np.sum(f.ess < FILTER_LOW_ESS_FRACTION * f.n_particles))
-        filter_lines = [
+        return layout.block("Guided particle filter", [
             layout.field("particles", f"{f.n_particles}, seed {f.seed}, resampled after {f.resample_count} periods"),
             layout.field("lowest ESS", f"{f.ess[lowest]:.0f} of {f.n_particles} particles (period {lowest}); "
                                        f"{low_periods} period{'' if low_periods == 1 else 's'} below {FILTER_LOW_ESS_FRACTION:.0%}"),
             *low_ess_warning(float(f.ess[lowest]), f.n_particles, "particles", f" in period {lowest}",
                              FILTER_LOW_ESS_FRACTION),
-            layout.field("log-likelihood", f"filter {f.loglik:.3f}, EIS {self.fit_loglik:.3f} "
-                                           f"(NSE {self.fit_nse:.3f})"),
-        ]
-        observed = [t for t in self.tests if not t.on_factor_path]
-        path = [t for t in self.tests if t.on_factor_path]
-        return layout.render(
-            layout.title("goodness of fit", f"model {self.model}", f"{f.filtered_mean.shape[0]} periods"),
-            [layout.block("Guided particle filter", filter_lines),
-             layout.block(f"Tests of the observations (flagged below p = {SIGNIFICANCE:g})",
-                          [_test_line(t) for t in observed]),
-             layout.block(f"Tests of a drawn factor path (flagged below p = {FACTOR_PATH_LEVEL:g}: the path is "
-                          "an approximate posterior draw)", [_test_line(t) for t in path]),
-             layout.block("Reading", self._reading(observed, path))],
-            CAUTION)
+            layout.field("log-likelihood", f"filter {f.loglik:.3f}, {self._fit_text()}"),
+        ])
 
     def _reading(self, observed, path) -> list[str]:
         flagged = [t for t in observed if t.flagged]
@@ -184,12 +220,15 @@ class Diagnostics:
         if path:
             below_5 = sum(t.p_value is not None and t.p_value < SIGNIFICANCE for t in path)
             strong = [t for t in path if t.flagged]
-            lines.append(f"factor path: {below_5} of {sum(t.p_value is not None for t in path)} tests below "
-                         f"{SIGNIFICANCE:g} (counted apart: the path is an approximate posterior draw, which can "
-                         f"make these reject more often than {SIGNIFICANCE:.0%} under a correct model); "
-                         f"{len(strong)} below "
-                         f"{FACTOR_PATH_LEVEL:g}" + (": " + "; ".join(f"{t.test} of {t.subject}" for t in strong)
-                                                      if strong else ""))
+            counted = f"factor path: {below_5} of {sum(t.p_value is not None for t in path)} tests below {SIGNIFICANCE:g}"
+            named = ": " + "; ".join(f"{t.test} of {t.subject}" for t in strong) if strong else ""
+            if path[0].level == EXACT_PATH_LEVEL:
+                lines.append(f"{counted} (counted apart: another seed draws another path; drawn exactly, these tests "
+                             f"hold their size){named}")
+            else:
+                lines.append(f"{counted} (counted apart: the path is an approximate posterior draw, which can make "
+                             f"these reject more often than {SIGNIFICANCE:.0%} under a correct model); {len(strong)} "
+                             f"below {path[0].level:g}{named}")
         lines += [
             "under a correct model the PITs are i.i.d. uniform and the scores i.i.d. N(0, 1): about 1 test in 20",
             "flags by chance; Durbin-Watson near 2 means no first-order autocorrelation",
@@ -205,9 +244,15 @@ class Diagnostics:
             "format": "smle.diagnostics/1",
             "model": self.model,
             "series": list(self.series),
+            "filter_method": self.filter.method,
+            "filter_engine": self.filter.engine,
+            "grid_size": self.filter.grid_size,
+            "error_bound": self.filter.error_bound,
             "n_particles": self.filter.n_particles,
             "seed": self.filter.seed,
             "filter_loglik": self.filter.loglik,
+            "fit_method": self.fit_method,
+            "factor_path_source": self.path_source,
             "fit_loglik": self.fit_loglik,
             "fit_nse": self.fit_nse,
             "tests": [dict(dataclasses.asdict(t), flagged=t.flagged) for t in self.tests],
@@ -249,16 +294,25 @@ def diagnose(
     arch_lags: int = 5,
     tail_probability: float = 0.01,
     progress: Callable[[str], None] | None = None,
+    method: str = "auto",
+    exact_tol: float = EXACT_TOL,
 ) -> Diagnostics:
     """Goodness of fit of a fitted model: filter, PITs, normal scores and residual tests.
 
     Args:
       fit_result: a :class:`~smle.results.FitResult`.
       y: the observations the model was fitted to (default: ``fit_result.observations``).
-      n_particles, seed: settings of the guided particle filter (:func:`smle.filter_factor`).
+      n_particles: particles of the guided particle filter (``method="particles"`` route).
+      seed: non-negative integer; seeds the particle filter and the draw of the factor path.
       lags: Ljung-Box lags; arch_lags: lags of the ARCH-LM regression.
       tail_probability: probability of each tail in the censored tail test.
       progress: optional callback receiving short progress messages.
+      method: "auto" (default: the route of the fit: exact for an exact fit, which ``smle.fit``
+        makes by default for a one-dimensional state, particles for an EIS fit), "exact" (the
+        exact filter's PITs and predictive densities and a path drawn exactly from the smoothing
+        distribution, whatever the fit) or "particles" (the guided particle filter's PITs and a
+        path picked among EIS scoring draws: the simulated routes).
+      exact_tol: accuracy of the exact filter's log-likelihood (log-likelihood units).
 
     Returns:
       A :class:`Diagnostics` report.
@@ -269,6 +323,47 @@ def diagnose(
     result = _check_fit_result(fit_result)
     model = saved_model(result.model, result.model_options)
     require_scalar_state(model, "smle.diagnose")
+    y = _checked_observations(model, result, y)
+    if model.state_dim == 0:
+        raise SmleInputError(no_state_message(model))
+    if not has_obs_cdf(model):
+        raise SmleInputError(f"model '{model.name}' has no conditional CDF (obs_cdf), so no PITs can be formed")
+    route = _diagnose_route(model, result, method)
+    check_filter_settings(n_particles, 0.5)
+    exact_tol = check_exact_tol(exact_tol)
+    lags = check_lags(lags, y.shape[0])
+    check_lags(arch_lags, y.shape[0] - 1)
+    if progress:
+        progress(f"filtering {y.shape[0]} periods " + ("exactly" if route == "exact" else f"with {n_particles} "
+                 "particles") + " (the first call compiles)")
+    filtered = filter_factor(model, result.params, y, n_particles=n_particles, seed=seed, method=route,
+                             exact_tol=exact_tol)
+    pit = filtered.pit
+    scores = normal_scores(pit)
+    series = list(model.series_labels[:model.n_series])
+    if progress:
+        progress("residual tests")
+    tests = []
+    for k, label in enumerate(series):
+        tests += _series_tests(label, scores[:, k], pit[:, k], lags, arch_lags, tail_probability)
+    if progress:
+        progress("drawing a factor path from the smoothing distribution "
+                 + ("(backward simulation after the exact filter)" if route == "exact" else "(EIS at the estimates)"))
+    path, path_source, level = _factor_path(model, result, y, seed, route, exact_tol)
+    innovations = factor_innovations(model, result.params, path)
+    tests += _factor_tests(innovations, lags, level)
+    smoothed = filtered if route == "exact" else result
+    return Diagnostics(
+        model=model.name, series=series, filter=filtered, pit=pit, scores=scores,
+        factor_innovations=innovations, factor_path=path,
+        smoothed_mean=np.asarray(smoothed.smoothed_mean), smoothed_lower=np.asarray(smoothed.smoothed_lower),
+        smoothed_upper=np.asarray(smoothed.smoothed_upper), tests=tests, fit_loglik=result.loglik,
+        fit_nse=result.nse, params=dict(result.params), model_options=dict(result.model_options or {}),
+        dates=getattr(result, "dates", None), fit_method=result.method, path_source=path_source,
+    )
+
+
+def _checked_observations(model, result: FitResult, y) -> np.ndarray:
     if y is None:
         y = result.observations
         if y is None:
@@ -281,37 +376,28 @@ def diagnose(
             f"y has {y.shape[0]} periods but the fit of model '{result.model}' used {result.n_obs}; "
             "accepted: the observations the model was fitted to"
         )
-    if model.state_dim == 0:
-        raise SmleInputError(no_state_message(model))
-    if not has_obs_cdf(model):
-        raise SmleInputError(f"model '{model.name}' has no conditional CDF (obs_cdf), so no PITs can be formed")
-    check_filter_settings(n_particles, 0.5)
-    lags = check_lags(lags, y.shape[0])
-    check_lags(arch_lags, y.shape[0] - 1)
-    if progress:
-        progress(f"filtering {y.shape[0]} periods with {n_particles} particles (the first call compiles)")
-    filtered = filter_factor(model, result.params, y, n_particles=n_particles, seed=seed)
-    pit = filtered.pit
-    scores = normal_scores(pit)
-    series = list(model.series_labels[:model.n_series])
-    if progress:
-        progress("residual tests")
-    tests = []
-    for k, label in enumerate(series):
-        tests += _series_tests(label, scores[:, k], pit[:, k], lags, arch_lags, tail_probability)
-    if progress:
-        progress("drawing a factor path from the smoothing distribution (EIS at the estimates)")
-    path = posterior_path(model, result, y, seed)
-    innovations = factor_innovations(model, result.params, path)
-    tests += _factor_tests(innovations, lags)
-    return Diagnostics(
-        model=model.name, series=series, filter=filtered, pit=pit, scores=scores,
-        factor_innovations=innovations, factor_path=path,
-        smoothed_mean=np.asarray(result.smoothed_mean), smoothed_lower=np.asarray(result.smoothed_lower),
-        smoothed_upper=np.asarray(result.smoothed_upper), tests=tests, fit_loglik=result.loglik,
-        fit_nse=result.nse, params=dict(result.params), model_options=dict(result.model_options or {}),
-        dates=getattr(result, "dates", None),
-    )
+    return y
+
+
+def _diagnose_route(model, result: FitResult, method) -> str:
+    """"exact" or "particles" (see :func:`diagnose`'s ``method``)."""
+    if method not in DIAGNOSE_METHODS:
+        raise SmleInputError(f"method = {method!r} is not accepted; accepted: 'auto' (the fit's route), 'exact' or "
+                             "'particles' (the particle filter and an EIS-drawn factor path)")
+    if method == "particles" or (method == "auto" and result.simulated):
+        return "particles"
+    return resolve_method(model, "exact")
+
+
+def _factor_path(model, result: FitResult, y, seed, route: str, exact_tol: float):
+    """``(path, how it was drawn in words, flagging level of its tests)``."""
+    if route == "exact":
+        path, size = exact_posterior_path(model, result.params, y, seed, exact_tol)
+        where = "the Kalman filter's Gaussian laws" if size == 0 else f"a grid of {size} points"
+        return path, f"path: backward simulation on {where}, seed {seed}", EXACT_PATH_LEVEL
+    return (posterior_path(model, result, y, seed),
+            f"path: one of {PATH_CANDIDATES} EIS scoring draws picked by importance weight, seed {seed}",
+            FACTOR_PATH_LEVEL)
 
 
 def _test_line(t: TestResult) -> str:
@@ -345,38 +431,10 @@ def _series_tests(label: str, z, pit, lags, arch_lags: int, tail_probability: fl
     return tests
 
 
-def _factor_tests(innovations, lags) -> list[TestResult]:
-    """The tests of the standardised innovations of a factor path drawn from the smoother."""
-    return (_ljung_box_tests(innovations, lags, "factor innovations", FACTOR_PATH_LEVEL)
-            + _ljung_box_tests(innovations**2, lags, "squared factor innovations", FACTOR_PATH_LEVEL)
-            + [TestResult("Durbin-Watson", "factor innovations", durbin_watson(innovations), None, None,
-                          FACTOR_PATH_LEVEL)])
-
-
-def posterior_path(model, result: FitResult, y, seed) -> np.ndarray:
-    """One path of the factor drawn from its smoothing distribution at the fit's estimates.
-
-    ``PATH_CANDIDATES`` EIS scoring paths of :func:`smle.loglik` with the fit's estimator settings,
-    one of them chosen with probability proportional to its importance weight (sampling importance
-    resampling; Rubin 1988, Bayesian Statistics 3), the choice seeded by ``seed``. Picking among
-    the 64 fitting draws alone made the path tests over-reject (see ``FACTOR_PATH_LEVEL``).
-    """
-    from smle.likelihood import loglik
-
-    eis = result.eis  # an exact fit has no EIS settings: the defaults of smle.fit's EIS
-    n_draws = int(eis.get("n_draws", 64))
-    lik = loglik(model, result.params, y, n_draws=n_draws, seed=int(eis.get("seed", 0)),
-                 antithetic=bool(eis.get("antithetic", True)), tol=float(eis.get("tol", 1e-8)), max_iter=100,
-                 n_score_draws=max(PATH_CANDIDATES, n_draws), method="eis")
-    weights = np.exp(lik.log_weights - lik.log_weights.max())
-    index = np.random.default_rng(seed).choice(weights.shape[0], p=weights / weights.sum())
-    return np.asarray(lik.paths[:, index], float)
-
-
-def factor_innovations(model, params, path) -> np.ndarray:
-    """Standardised AR(1) innovations of a factor path, ``(x_t - a - phi x_{t-1}) / sigma_eta``."""
-    import jax.numpy as jnp
-
-    state = model.latent({k: jnp.asarray(v, float) for k, v in params.items()})
-    x = np.asarray(path, float)
-    return (x[1:] - float(state.intercept) - float(state.phi) * x[:-1]) / float(state.sigma_eta)
+def _factor_tests(innovations, lags, level: float = FACTOR_PATH_LEVEL) -> list[TestResult]:
+    """The tests of the standardised innovations of a factor path drawn from the smoother, flagged below
+    ``level`` and marked as tests on the path."""
+    tests = (_ljung_box_tests(innovations, lags, "factor innovations", level)
+             + _ljung_box_tests(innovations**2, lags, "squared factor innovations", level)
+             + [TestResult("Durbin-Watson", "factor innovations", durbin_watson(innovations), None, None, level)])
+    return [dataclasses.replace(t, factor_path=True) for t in tests]

@@ -198,7 +198,8 @@ def _factor_filtered_smoothed(d) -> Figure:
     axis.plot(t, smoothed, color="#8c3b1e", lw=0.8, label="at the smoothed mean (all data)")
     time_axis(axis, len(t), d.dates)
     axis.set_ylabel(name)
-    axis.set_title(f"Filtered and smoothed factor ({d.model}, {f.n_particles} particles)")
+    how = f"{f.n_particles} particles" if f.simulated else f"exact, {f.engine}"
+    axis.set_title(f"Filtered and smoothed factor ({d.model}, {how})")
     _figure_legend_below(axis, 3)
     axis.grid(alpha=0.3)
     return figure
