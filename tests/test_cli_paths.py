@@ -172,7 +172,7 @@ def test_compilation_is_announced_before_the_first_evaluation(tmp_path, capsys, 
     monkeypatch.setattr(sys.modules["smle.optimizer"], "COMPILED_SHAPES", set())
     path, _, _ = _model_file(tmp_path, "local-level")
     assert cli.main(["fit", str(path), "--model", "local-level", "--draws", str(DRAWS), "--max-steps", "1",
-                     "--particles", "0"]) in (0, 3)
+                     "--particles", "0", "--method", "eis"]) in (0, 3)
     err = capsys.readouterr().err
     announced = err.index(f"compiling the likelihood for local-level, T = {T}, {DRAWS} draws")
     assert announced < err.index("compiled and evaluated in") < err.index("step   1")

@@ -291,6 +291,10 @@ def resolve_filter_method(model: Model, method) -> str:
         raise SmleInputError(f"method = {method!r} is not accepted; accepted: 'auto', 'exact' or 'particles' "
                              "(the guided particle filter)")
     if method == "particles":
+        if model.transition_uses_data:
+            raise SmleInputError(f"method = 'particles' is not available for model '{model.name}': its state's "
+                                 "transition depends on the data (leverage), which the guided particle filter does "
+                                 "not model; accepted for this model: 'exact' or 'auto'")
         return method
     return resolve_method(model, method)
 

