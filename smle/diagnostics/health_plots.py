@@ -14,7 +14,7 @@ from matplotlib.ticker import MaxNLocator
 
 from smle.diagnostics.plots import time_axis
 
-_INK, _ACCENT, _BAND = "#33506e", "#8c3b1e", "#e3a857"
+_INK, _ACCENT, _BAND, _EXACT = "#33506e", "#8c3b1e", "#e3a857", "#2e7d4f"
 FILES = ("loglik_seeds.png", "weight_tail.png", "nse_scaling.png", "period_contributions.png")
 
 
@@ -38,20 +38,24 @@ def _save(figure, path) -> Path | Figure:
 
 
 def loglik_across_seeds(report, path) -> Path:
-    """log L_hat per seed with its single-run NSE, the mean and the band mean +- one spread sd."""
+    """log L_hat per seed with its single-run NSE, the mean and the band mean +- one spread sd, and
+    the exact log-likelihood as a line where there is one (the errors are the distances to it)."""
     figure = _figure((8, 4.6))
     axis = figure.subplots()
     seeds = np.asarray(report.seeds)
     axis.axhspan(report.loglik_mean - report.loglik_sd, report.loglik_mean + report.loglik_sd, color=_BAND,
                  alpha=0.35, label=f"mean +- sd over seeds ({report.loglik_sd:.3f})")
     axis.axhline(report.loglik_mean, color=_ACCENT, lw=1.0, label=f"mean {report.loglik_mean:.3f}")
+    if report.exact is not None:
+        axis.axhline(report.exact.loglik, color=_EXACT, lw=1.4, ls="--",
+                     label=f"exact {report.exact.loglik:.3f} (RMSE {report.exact.rmse:.3f})")
     axis.errorbar(seeds, report.values, yerr=report.single_nse, fmt="o", ms=4, color=_INK, capsize=2,
                   label="one run +- its own NSE")
     axis.xaxis.set_major_locator(MaxNLocator(integer=True))  # seeds are integers
     axis.set_xlabel("seed")
     axis.set_ylabel("log-likelihood estimate (natural log)")
     axis.set_title(f"EIS log-likelihood across {report.n_seeds} seeds ({report.model}, {report.n_draws} draws)")
-    _legend_below(axis, 3)
+    _legend_below(axis, 2 if report.exact is not None else 3)
     axis.grid(alpha=0.3)
     return _save(figure, path)
 
