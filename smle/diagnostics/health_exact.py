@@ -69,6 +69,8 @@ class ExactComparison(NamedTuple):
       honest_range: the ``1 - AGREEMENT_LEVEL`` interval of ``ratio`` and ``z_rms`` under an honest
         NSE, ``sqrt(chi2_R quantiles / R)``.
       corrected_error: error of the bias-corrected mean (``mean + sd^2 / 2`` minus the exact value).
+      beyond_two_nse: runs whose error exceeds twice their own reported NSE (about 5% of the runs
+        for an honest, normal error).
     """
 
     loglik: float
@@ -85,6 +87,7 @@ class ExactComparison(NamedTuple):
     z_rms: float
     honest_range: tuple
     corrected_error: float
+    beyond_two_nse: int
 
     @property
     def understated(self) -> bool:
@@ -141,4 +144,4 @@ def compare(values: np.ndarray, single_nse: np.ndarray, exact, note: str) -> Exa
         bias=bias, bias_se=bias_se, bias_t=float(bias_t), bias_critical=float(stats.t.ppf(1 - AGREEMENT_LEVEL / 2,
                                                                                           n_seeds - 1)),
         rmse=rmse, nse=nse, ratio=float(ratio), z_rms=float(np.sqrt(np.mean(z**2))),
-        honest_range=honest_range(n_seeds), corrected_error=corrected)
+        honest_range=honest_range(n_seeds), corrected_error=corrected, beyond_two_nse=int(np.sum(np.abs(z) > 2.0)))

@@ -15,7 +15,7 @@ import numpy as np
 from scipy import stats
 
 from smle.diagnostics.health_report import (
-    AGREEMENT_LEVEL, FULL_TAIL_DRAWS, NSE_LIMIT, SCALING_MIN_SEEDS, scaling_statement,
+    AGREEMENT_LEVEL, FULL_TAIL_DRAWS, NSE_LIMIT, SCALING_MIN_SEEDS, log_units, scaling_statement,
 )
 from smle.diagnostics.health_exact import EXACT_SAMPLER_ERROR, ExactComparison
 from smle.diagnostics.weight_tail import TailVerdict
@@ -113,17 +113,17 @@ def exact_error_finding(e: Evidence) -> list[Finding]:
         return [Finding(f"EIS equals the exact log-likelihood ({e.reference}) to {worst:.1e} at every seed")]
     low, high = x.honest_range
     text = (f"actual error against the exact log-likelihood ({e.reference}): RMSE {x.rmse:.4f} against the "
-            f"reported NSE {x.nse:.4f} (ratio {x.ratio:.2f}), standardised errors error / NSE with root mean "
-            f"square {x.z_rms:.2f}; {1 - AGREEMENT_LEVEL:.0%} range for an honest NSE over {e.n_seeds} seeds "
+            f"reported NSE {log_units(x.nse)} (ratio {x.ratio:.2f}), errors over their own NSE: root mean square "
+            f"{x.z_rms:.2f}; {1 - AGREEMENT_LEVEL:.0%} range for an honest NSE over {e.n_seeds} seeds "
             f"{low:.2f}-{high:.2f}")
     if x.understated:
         return [Finding(text, "unreliable", f"the reported NSE understates the actual error against the exact "
-                                            f"value: RMSE {x.rmse:.3f} against NSE {x.nse:.3f} (ratio {x.ratio:.2f}, "
+                                            f"value: RMSE {x.rmse:.3f} against NSE {log_units(x.nse)} (ratio {x.ratio:.2f}, "
                                             f"above the {high:.2f} that {e.n_seeds} seeds explain)")]
     if x.runs_understated:
         return [Finding(text, "doubtful", f"single runs' NSEs understate their own errors against the exact value "
                                           f"(error / NSE root mean square {x.z_rms:.2f}, above the {high:.2f} that "
-                                          f"{e.n_seeds} seeds explain), though pooled they hold (ratio {x.ratio:.2f})")]
+                                          f"{e.n_seeds} seeds explain), which the pooled ratio {x.ratio:.2f} does not show")]
     if max(x.ratio, x.z_rms) < low:
         text += "; the reported NSE overstates the error (conservative)"
     return [Finding(text)]

@@ -296,8 +296,11 @@ class HealthReport:
             lines += [
                 layout.field("bias (mean error)", f"{x.bias:+.4f} (se {x.bias_se:.4f}, t {x.bias_t:.2f}; "
                                                   f"{1 - AGREEMENT_LEVEL:.0%} critical value {x.bias_critical:.2f})"),
-                layout.field("RMSE", f"{x.rmse:.4f} against the reported NSE {x.nse:.4f}: ratio {x.ratio:.2f}"),
-                layout.field("error / own NSE", f"root mean square {x.z_rms:.2f} over the runs"),
+                layout.field("RMSE", f"{x.rmse:.4f} against the reported NSE {log_units(x.nse)}: ratio "
+                                     f"{x.ratio:.2f}"),
+                layout.field("error / own NSE", f"root mean square {x.z_rms:.2f} over the runs; {x.beyond_two_nse} "
+                                                f"of {self.n_seeds} errors beyond twice their own NSE (honest: "
+                                                "about 5%)"),
                 f"  (an honest NSE keeps both within {low:.2f} to {high:.2f} over {self.n_seeds} seeds)",
                 layout.field("bias-corrected mean", f"off by {x.corrected_error:+.4f}")]
         return layout.block("Against the exact log-likelihood", lines)
@@ -372,6 +375,11 @@ class HealthReport:
         if self.dates is not None:
             return f"{self.dates[index]}"
         return f"{index}"
+
+
+def log_units(value: float) -> str:
+    """A log-likelihood error in log units: 4 decimals, or 3 significant digits when it is huge."""
+    return f"{value:.4f}" if abs(value) < 1e4 else f"{value:.3g}"
 
 
 def _plain(value):
