@@ -258,7 +258,10 @@ def check(
       progress: called with one line of text at each stage.
 
     Returns:
-      A :class:`HealthReport`.
+      A :class:`HealthReport`. Where the state is one-dimensional it carries the seed runs
+      measured against the exact log-likelihood (``report.exact``, computed once to
+      ``health_exact.REFERENCE_TOL``), and the verdict uses them (see
+      :mod:`smle.diagnostics.health_exact`).
 
     References:
       Durbin and Koopman (1997), Biometrika 84; Koopman, Shephard and Creal (2009),

@@ -59,7 +59,8 @@ class ExactComparison(NamedTuple):
     """The EIS estimates of the seed runs against the exact log-likelihood.
 
     Attributes:
-      loglik: the exact log-likelihood; engine: how it was computed; error_bound: its error bound.
+      loglik: the exact log-likelihood; reference: how it was computed (engine and accuracy);
+        error_bound: its error bound (0: exact to rounding).
       errors: ``log L_hat_r - log L`` per seed, shape (R,).
       bias: mean error; bias_se: ``sd(errors) / sqrt(R)``; bias_t: ``bias / bias_se``;
         bias_critical: the two-sided ``AGREEMENT_LEVEL`` critical value of t with R - 1 dof.
@@ -74,7 +75,7 @@ class ExactComparison(NamedTuple):
     """
 
     loglik: float
-    engine: str
+    reference: str
     error_bound: float
     errors: np.ndarray
     bias: float
@@ -140,7 +141,7 @@ def compare(values: np.ndarray, single_nse: np.ndarray, exact, note: str) -> Exa
         z = np.where(single_nse > 0, errors / single_nse, np.where(errors == 0, 1.0, math.inf))
     corrected = float(values.mean() + 0.5 * sd**2 - exact.value)
     return ExactComparison(
-        loglik=float(exact.value), engine=note, error_bound=float(exact.error_bound or 0.0), errors=errors,
+        loglik=float(exact.value), reference=note, error_bound=float(exact.error_bound or 0.0), errors=errors,
         bias=bias, bias_se=bias_se, bias_t=float(bias_t), bias_critical=float(stats.t.ppf(1 - AGREEMENT_LEVEL / 2,
                                                                                           n_seeds - 1)),
         rmse=rmse, nse=nse, ratio=float(ratio), z_rms=float(np.sqrt(np.mean(z**2))),
