@@ -111,6 +111,15 @@ def test_infinite_variance_sampler_is_not_healthy():
     # understates the error; it is still far outside the healthy range
     assert not report.nse_ratio_range[0] <= report.nse_ratio <= report.nse_ratio_range[1]
     assert "variance" in report.reason
+    # the exact value sizes what the spread cannot: every seed below it (measured mean error -6.0, t -5.8)
+    assert report.exact.biased and np.all(report.exact.errors < 0)
+    # the seeds figure keeps the points readable: NSE bars of ~1e13 are cut at the axes, and it says so
+    from smle.diagnostics import health_plots
+
+    axis = health_plots.loglik_across_seeds(report, None).axes[0]
+    low, high = axis.get_ylim()
+    assert high - low < 100 and low < report.values.min() and high > report.exact.loglik
+    assert any("bars cut at the axes" in text.get_text() for text in axis.get_legend().get_texts())
 
 
 def test_control_variates_report_the_measured_reduction(sv_data):
