@@ -1,14 +1,18 @@
 """The likelihood health check (smle.check, smle check).
 
 Outside sources: the deterministic grid filter (Kitagawa 1987) and the Kalman filter as exact
-likelihoods; scipy.stats for the chi-square and F laws; the exact second moment of Gaussian
+likelihoods; scipy.stats for the chi-square, F and Student t laws (the ranges of an honest NSE and
+of a zero bias against the exact value); the exact second moment of Gaussian
 importance weights derived in the docstring of the infinite-variance test; the Jacquier, Polson
 and Rossi (1994, JBES) sampling design. Shapes reuse tests/conftest.py: T in {40, 500}, S in
-{32, 64} plus the health check's own 128, 256 and 2000.
+{4, 32, 64} plus the health check's own 128, 256 and 2000. The check's errors against the exact
+value are compared with a direct computation: ``smle.loglik(method="eis")`` at the same seeds
+minus ``smle.loglik(method="exact")``.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import json
 
 import numpy as np
@@ -18,7 +22,7 @@ from scipy import stats
 
 import smle
 from smle import cli
-from smle.diagnostics import health
+from smle.diagnostics import health, health_exact, health_findings
 from smle.errors import SmleInputError
 from smle.cli.check import EXIT_CODES
 from smle.reference import grid_loglik, kalman_loglik
@@ -56,7 +60,7 @@ def test_well_specified_sv_is_healthy(healthy_report, sv_data):
     exact = grid_loglik("sv", PARAMS, sv_data.to_numpy(), n_grid=1000)
     assert abs(report.loglik_bias_corrected - exact) < 4 * report.nse_of_mean
     # the seed runs are smle.loglik at seeds 0..9, untouched
-    again = smle.loglik("sv", PARAMS, sv_data.to_numpy(), n_draws=64, seed=3)
+    again = smle.loglik("sv", PARAMS, sv_data.to_numpy(), n_draws=64, seed=3, method="eis")
     assert report.values[3] == again.value and report.single_nse[3] == again.nse
     assert report.loglik_sd == pytest.approx(np.std(report.values, ddof=1), rel=1e-12)
     # the agreement range of single-run NSE / spread is the chi-square law of a sample sd
@@ -71,7 +75,7 @@ def test_well_specified_sv_is_healthy(healthy_report, sv_data):
 
 def test_period_terms_rebuild_the_engine_weights(sv_data):
     y = sv_data.to_numpy()
-    result = smle.loglik("sv", PARAMS, y, n_draws=64, seed=5)
+    result = smle.loglik("sv", PARAMS, y, n_draws=64, seed=5, method="eis")
     terms = health.period_terms("sv", PARAMS, y, result)
     total = terms.sum(axis=0)
     # log w = log chi_1 + sum_t term_t: the terms differ from the engine's weights by one constant
@@ -96,7 +100,7 @@ def test_infinite_variance_sampler_is_not_healthy():
     """
     params = dict(mu=0.0, phi=0.0, sigma_eta=2.0)
     y, _ = smle.simulate("sv", params, 500, seed=3)
-    tail_run = smle.loglik("sv", params, y, n_draws=64, n_score_draws=2000, seed=0,  # the check's tail run
+    tail_run = smle.loglik("sv", params, y, n_draws=64, n_score_draws=2000, seed=0, method="eis",  # the check's tail run
                            on_breakdown="return")  # loglik itself refuses this run (EISBreakdownError)
     assert tail_run.c_obs.max() * params["sigma_eta"] ** 2 >= 1.0  # infinite variance by the derivation above
     report = smle.check("sv", params, y, n_draws=64, n_seeds=N_SEEDS, seed=0, tail_draws=2000, draws_grid=None)
@@ -107,6 +111,15 @@ def test_infinite_variance_sampler_is_not_healthy():
     # understates the error; it is still far outside the healthy range
     assert not report.nse_ratio_range[0] <= report.nse_ratio <= report.nse_ratio_range[1]
     assert "variance" in report.reason
+    # the exact value sizes what the spread cannot: every seed below it (measured mean error -6.0, t -5.8)
+    assert report.exact.biased and np.all(report.exact.errors < 0)
+    # the seeds figure keeps the points readable: NSE bars of ~1e13 are cut at the axes, and it says so
+    from smle.diagnostics import health_plots
+
+    axis = health_plots.loglik_across_seeds(report, None).axes[0]
+    low, high = axis.get_ylim()
+    assert high - low < 100 and low < report.values.min() and high > report.exact.loglik
+    assert any("bars cut at the axes" in text.get_text() for text in axis.get_legend().get_texts())
 
 
 def test_control_variates_report_the_measured_reduction(sv_data):
@@ -114,9 +127,9 @@ def test_control_variates_report_the_measured_reduction(sv_data):
     report = smle.check("sv", PARAMS, y, n_draws=64, n_seeds=N_SEEDS, tail_draws=200, draws_grid=None,
                         control_variates="both")
     # the uncorrected values are the plain estimator at the same seeds (seed runs of healthy_report)
-    plain = np.array([smle.loglik("sv", PARAMS, y, n_draws=64, seed=s).value for s in range(N_SEEDS)])
+    plain = np.array([smle.loglik("sv", PARAMS, y, n_draws=64, seed=s, method="eis").value for s in range(N_SEEDS)])
     np.testing.assert_allclose(report.values_uncorrected, plain, rtol=0, atol=1e-9)
-    corrected = smle.loglik("sv", PARAMS, y, n_draws=64, seed=4, control_variates="both")
+    corrected = smle.loglik("sv", PARAMS, y, n_draws=64, seed=4, control_variates="both", method="eis")
     assert report.values[4] == corrected.value
     factor = np.var(plain, ddof=1) / np.var(report.values, ddof=1)
     assert report.variance_reduction == pytest.approx(factor, rel=1e-9)
@@ -138,6 +151,9 @@ def test_exact_linear_gaussian_weights_are_degenerate_and_healthy():
     exact = float(kalman_loglik(y, model.latent(params), params["sigma_eps"] ** 2))
     assert report.loglik_mean == pytest.approx(exact, abs=1e-8)
     assert "exact" in report.summary() and np.all(report.period_shares == 0)
+    # against the Kalman filter (the exact reference here): rounding only, judged as such
+    assert report.reference == "Kalman filter, exact to rounding" and np.max(np.abs(report.exact.errors)) < 1e-8
+    assert any(f.startswith("EIS equals the exact log-likelihood (Kalman filter") for f in report.findings)
 
 
 def test_report_text_json_and_figures(healthy_report, tmp_path):
@@ -150,6 +166,8 @@ def test_report_text_json_and_figures(healthy_report, tmp_path):
     assert stored["verdict"] == "healthy" and stored["values"] == report.values.tolist()
     assert stored["tail"]["k_hat"]["k_hat"] == report.k_hat and stored["caution"] == CAUTION
     assert len(stored["scaling"]) == 4 and stored["scaling"][0]["n_draws"] == 32
+    assert stored["exact"]["errors"] == report.exact.errors.tolist() and stored["exact"]["rmse"] == report.exact.rmse
+    assert stored["reference"].startswith("grid filter") and "Against the exact log-likelihood" in text
     for name in ("loglik_seeds.png", "weight_tail.png", "nse_scaling.png", "period_contributions.png"):
         assert (tmp_path / "check" / name) in written
         assert (tmp_path / "check" / name).stat().st_size > 10_000
@@ -165,6 +183,9 @@ def test_figures_are_readable(healthy_report):
     for name, figure in figures.items():
         assert_readable(figure, name)
     seed_ticks = figures["loglik_seeds.png"].axes[0].get_xticks()
+    exact_lines = [line for line in figures["loglik_seeds.png"].axes[0].get_lines()
+                   if line.get_label().startswith("exact")]
+    assert len(exact_lines) == 1 and exact_lines[0].get_ydata()[0] == healthy_report.exact.loglik
     assert np.all(seed_ticks == np.round(seed_ticks))
     dates = [t.get_text() for t in figures["period_contributions.png"].axes[1].get_xticklabels()]
     assert len(dates) == 6 and all(d.startswith("2031-") or d.startswith("2032-") for d in dates)
@@ -276,3 +297,123 @@ def test_command_line(returns_csv, tmp_path, capsys):
                        (["--from-fit", str(tmp_path / "none.json")], "does not exist")):
         assert cli.main(["check", str(returns_csv), *argv, "--quiet"]) == 2
         assert word in capsys.readouterr().err
+
+
+# ---------------------------------------------------------------------------------------------
+# against the exact log-likelihood (smle.diagnostics.health_exact)
+
+GARCH = dict(mu=0.03, ar1=0.05, omega=0.05, alpha=0.06, beta=0.90, gamma=-0.4, rho=0.5, **{"lambda": 1.5})
+
+
+@pytest.fixture(scope="module")
+def garch_data():
+    return smle.simulate("garch-mix", GARCH, 500, seed=1)[0]
+
+
+def _direct_errors(model, params, y, n_draws, n_seeds):
+    """EIS at seeds 0..R-1 minus the exact value, computed without the check."""
+    exact = smle.loglik(model, params, y, method="exact", exact_tol=health_exact.REFERENCE_TOL).value
+    runs = [smle.loglik(model, params, y, n_draws=n_draws, seed=s, method="eis", on_breakdown="return")
+            for s in range(n_seeds)]
+    return np.array([r.value for r in runs]) - exact, np.array([r.nse for r in runs])
+
+
+def _assert_measured_as_directly(report, errors, nses):
+    x = report.exact
+    # the same computations in the same order: agreement to rounding (1e-9 log units)
+    np.testing.assert_allclose(x.errors, errors, rtol=0, atol=1e-9)
+    n = errors.size
+    assert x.bias == pytest.approx(errors.mean(), abs=1e-9)
+    assert x.rmse == pytest.approx(np.sqrt(np.mean(errors**2)), abs=1e-9)
+    assert x.ratio == pytest.approx(x.rmse / np.sqrt(np.mean(nses**2)), rel=1e-9)
+    assert x.z_rms == pytest.approx(np.sqrt(np.mean((errors / nses) ** 2)), rel=1e-9)
+    assert x.bias_se == pytest.approx(errors.std(ddof=1) / np.sqrt(n), rel=1e-9)
+    # the bias-corrected mean's error: mean + sd^2 / 2 minus the exact value (Durbin and Koopman 1997)
+    assert x.corrected_error == pytest.approx(errors.mean() + 0.5 * errors.var(ddof=1), abs=1e-9)
+    # the ranges: sqrt(chi2_R quantiles / R) for an honest NSE, t_{R-1} for a zero bias (scipy.stats)
+    assert x.honest_range[1] == pytest.approx(np.sqrt(stats.chi2.ppf(0.995, n) / n), rel=1e-12)
+    assert x.honest_range[0] == pytest.approx(np.sqrt(stats.chi2.ppf(0.005, n) / n), rel=1e-12)
+    assert x.bias_critical == pytest.approx(stats.t.ppf(0.995, n - 1), rel=1e-12)
+
+
+def test_sv_errors_are_those_of_a_direct_computation_and_healthy(healthy_report, sv_data):
+    report = healthy_report
+    errors, nses = _direct_errors("sv", PARAMS, sv_data.to_numpy(), 64, N_SEEDS)
+    _assert_measured_as_directly(report, errors, nses)
+    # a healthy case: measured ratio 0.98, error / NSE rms 1.20 (three blocks of 10 seeds: 0.92-1.20), bias
+    # t = -1.4, against the honest limits 1.59 and 3.25
+    x = report.exact
+    assert not x.understated and not x.runs_understated and not x.biased
+    assert report.verdict == "healthy", report.reason
+    assert "matches the reported NSE" in report.reason
+    # the exact reference is independent of the EIS runs: the NumPy point-mass filter of smle.reference
+    # (Kitagawa 1987, 1000 nodes) gives the same value to 1e-6
+    assert x.loglik == pytest.approx(grid_loglik("sv", PARAMS, sv_data.to_numpy(), n_grid=1000), abs=1e-6)
+
+
+def test_garch_mix_errors_are_those_of_a_direct_computation(garch_data):
+    report = smle.check("garch-mix", GARCH, garch_data, n_draws=64, n_seeds=5, tail_draws=200, draws_grid=None)
+    errors, nses = _direct_errors("garch-mix", GARCH, garch_data, 64, 5)
+    _assert_measured_as_directly(report, errors, nses)
+    assert report.reference.startswith("grid filter")
+    assert any(f.startswith("actual error against the exact log-likelihood") for f in report.findings)
+
+
+def test_understated_nse_is_found(garch_data):
+    """garch-mix with 4 draws: the runs that miss the largest weights report a small NSE and carry
+    the largest errors. Measured over seeds 0-29 in blocks of 10: error / own NSE root mean square
+    41, 64 and 15 (honest limit 1.59), pooled RMSE / NSE 1.68, 1.37, 1.66 (limit 1.59), bias t
+    -2.8 over 30 seeds."""
+    report = smle.check("garch-mix", GARCH, garch_data, n_draws=4, n_seeds=N_SEEDS, tail_draws=200, draws_grid=None)
+    x = report.exact
+    assert x.runs_understated and x.z_rms > 5 * x.honest_range[1]
+    assert report.verdict != "healthy"
+    assert "understate" in report.reason and "against the exact value" in report.reason
+
+
+def test_no_exact_reference_for_a_k_dimensional_state(healthy_report):
+    model = smle.get_model("sv-2factor")
+    exact, note = health_exact.reference(model, {}, np.zeros(3))
+    assert exact is None and note == "no exact reference: 2-dimensional state"
+    # the report without a reference says so and judges the spread only (today's behaviour)
+    plain = dataclasses.replace(healthy_report, exact=None, reference=note)
+    text = plain.summary()
+    assert "no exact reference: 2-dimensional state: the error is judged from the spread over seeds" in text
+    assert "error per seed" not in text
+    evidence_finding = health_findings.exact_error_finding(_evidence(plain, note))
+    assert evidence_finding[0].severity is None and note in evidence_finding[0].text
+    assert health_findings.exact_bias_finding(_evidence(plain, note)) == []
+
+
+def _evidence(report, note):
+    return health_findings.Evidence(
+        n_seeds=report.n_seeds, n_draws=report.n_draws, main=[], sd=report.loglik_sd, nse_single=report.nse_single,
+        ratio=report.nse_ratio, ratio_range=report.nse_ratio_range, degenerate=False, tail=report.tail,
+        tail_draws=report.tail_draws, scaling=[], slope=float("nan"), slope_se=float("nan"), holds_from=None,
+        exact=None, reference=note)
+
+
+def test_the_honesty_and_bias_rules_have_their_stated_levels():
+    """Synthetic errors with a known law: the rules of health_exact reject an honest, unbiased NSE
+    at their stated rates (0.5% one-sided for RMSE / NSE, chi-square with R dof; 1% two-sided for
+    the bias, Student's t with R - 1 dof; scipy.stats), and catch an NSE that understates the
+    error by half at the rate the chi-square law gives. Tolerance: 4 binomial sd of the rate
+    over the replications (measured with this seed: 0.0054, 0.0124 and 0.787)."""
+    import types
+
+    rng = np.random.default_rng(0)
+    n_seeds, replications, nse = 10, 5000, np.full(10, 0.3)
+    exact = types.SimpleNamespace(value=0.0, error_bound=0.0)
+
+    def rates(sd):
+        runs = [health_exact.compare(rng.normal(0.0, sd, n_seeds), nse, exact, "") for _ in range(replications)]
+        return (np.mean([r.understated for r in runs]), np.mean([r.runs_understated for r in runs]),
+                np.mean([r.biased for r in runs]))
+
+    def within(rate, expected):
+        return abs(rate - expected) <= 4 * np.sqrt(expected * (1 - expected) / replications)
+
+    understated, runs_understated, biased = rates(0.3)
+    assert within(understated, 0.005) and within(runs_understated, 0.005) and within(biased, 0.01)
+    power = 1 - stats.chi2.cdf(stats.chi2.ppf(0.995, n_seeds) / 4, n_seeds)  # RMSE twice the NSE
+    assert within(rates(0.6)[0], power)

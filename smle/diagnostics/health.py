@@ -11,6 +11,10 @@ reports, in a :class:`HealthReport`:
   set: generalised Pareto shape with the Wald and likelihood-ratio tests of H0: xi <= 1/2
   (finite variance) of Koopman, Shephard and Creal (2009) at several thresholds, and the
   Pareto-smoothed k-hat with the sample-size threshold of Vehtari et al. (2024);
+* where the state is one-dimensional, each seed's actual error against the exact log-likelihood
+  (computed once, :mod:`smle.diagnostics.health_exact`): bias, RMSE, the ratio of the RMSE to
+  the reported NSE and the standardised errors, with chi-square and t tests of an honest,
+  unbiased NSE; for a k-dimensional state the report says that there is no exact reference;
 * EIS convergence (iterations, last change, regression R^2 per period) and the periods whose
   log-weight terms drive the variance of the total log weight;
 * the NSE against the number of draws S: under a finite weight variance the NSE falls as
@@ -42,7 +46,7 @@ import jax.numpy as jnp
 import numpy as np
 from scipy import stats
 
-from smle.diagnostics import health_findings, weight_tail
+from smle.diagnostics import health_exact, health_findings, weight_tail
 from smle.diagnostics.health_report import (  # noqa: F401 (the report's names are the check's too)
     AGREEMENT_LEVEL, DEGENERATE_SPREAD, FULL_TAIL_DRAWS, MIN_SEEDS, MIN_TAIL_DRAWS, NSE_LIMIT, SCALING_MIN_SEEDS,
     TOP_PERIODS, HealthReport, Period, ScalingRow,
@@ -254,7 +258,10 @@ def check(
       progress: called with one line of text at each stage.
 
     Returns:
-      A :class:`HealthReport`.
+      A :class:`HealthReport`. Where the state is one-dimensional it carries the seed runs
+      measured against the exact log-likelihood (``report.exact``, computed once to
+      ``health_exact.REFERENCE_TOL``), and the verdict uses them (see
+      :mod:`smle.diagnostics.health_exact`).
 
     References:
       Durbin and Koopman (1997), Biometrika 84; Koopman, Shephard and Creal (2009),
@@ -276,6 +283,8 @@ def check(
     say(f"seed runs: {n_seeds} seeds at {settings.n_draws} draws"
         + (f", control variates {control_variates!r}" if control_variates else ""))
     main = seed_runs(settings.n_draws)
+    say("exact reference: the log-likelihood without simulation (one-dimensional state)")
+    reference = health_exact.reference(resolved, checked, y_array)
     say(f"tail run: {tail_draws} scoring draws")
     tail_result = _evaluate(resolved, checked, y_array, settings.n_draws, seed, settings, n_score_draws=tail_draws)
     scaling_runs = {}
@@ -285,7 +294,7 @@ def check(
     say("assembling the report")
     r_squared = runs[settings.n_draws, seed][1]
     return _report(resolved, checked, y_array, settings, seeds, main, r_squared, tail_result, tail_draws,
-                   scaling_runs, labels, level, control_variates)
+                   scaling_runs, labels, level, control_variates, reference)
 
 
 def _control_variate_summary(main: list, n_seeds: int) -> dict:
@@ -308,7 +317,7 @@ def _control_variate_summary(main: list, n_seeds: int) -> dict:
 
 
 def _report(model, checked, y, settings, seeds, main, r_squared, tail_result, tail_draws, scaling_runs, labels,
-            level, control_variates) -> HealthReport:
+            level, control_variates, reference) -> HealthReport:
     """Assemble the measurements into the evidence, judge it (:mod:`~smle.diagnostics.health_findings`)
     and fill in the report."""
     n_seeds = len(seeds)
@@ -335,10 +344,12 @@ def _report(model, checked, y, settings, seeds, main, r_squared, tail_result, ta
     top = [Period(int(i), labels[i] if labels else "", float(shares[i]), float(tail_r2[i])) for i in order]
 
     scaling, slope, slope_se, holds_from = _scaling(scaling_runs, n_seeds)
+    exact_result, note = reference
+    exact = None if exact_result is None else health_exact.compare(values, single, exact_result, note)
     findings, verdict, reason = health_findings.judge(health_findings.Evidence(
         n_seeds=n_seeds, n_draws=settings.n_draws, main=main, sd=sd, nse_single=nse_single, ratio=ratio,
         ratio_range=ratio_range, degenerate=degenerate, tail=tail, tail_draws=tail_draws, scaling=scaling,
-        slope=slope, slope_se=slope_se, holds_from=holds_from))
+        slope=slope, slope_se=slope_se, holds_from=holds_from, exact=exact, reference=note))
     return HealthReport(
         model=model.name, model_options=model_options(model),
         params=dict(checked), n_periods=int(y.shape[0]), n_draws=settings.n_draws,
@@ -355,7 +366,7 @@ def _report(model, checked, y, settings, seeds, main, r_squared, tail_result, ta
         tail_ess=float(tail_result.ess), tail_log_weights=lw, degenerate=degenerate, tail=tail,
         period_shares=shares, top_periods=top, dates=labels, scaling=scaling, scaling_slope=slope,
         scaling_slope_se=slope_se, scaling_holds_from=holds_from, findings=findings, verdict=verdict,
-        reason=reason,
+        reason=reason, exact=exact, reference=note,
     )
 
 

@@ -11,11 +11,13 @@ from __future__ import annotations
 
 from typing import NamedTuple
 
+import numpy as np
 from scipy import stats
 
 from smle.diagnostics.health_report import (
-    AGREEMENT_LEVEL, FULL_TAIL_DRAWS, NSE_LIMIT, SCALING_MIN_SEEDS, scaling_statement,
+    AGREEMENT_LEVEL, FULL_TAIL_DRAWS, NSE_LIMIT, SCALING_MIN_SEEDS, log_units, scaling_statement,
 )
+from smle.diagnostics.health_exact import EXACT_SAMPLER_ERROR, ExactComparison
 from smle.diagnostics.weight_tail import TailVerdict
 
 
@@ -31,6 +33,8 @@ class Evidence(NamedTuple):
         degenerate); tail_draws: scoring draws of the tail run.
       scaling: rows of the NSE-against-S table (empty when not measured); slope, slope_se: the
         log-log slope and its se; holds_from: smallest S from which the scaling holds.
+      exact: the seed runs against the exact log-likelihood (None: no exact reference);
+        reference: how that reference was computed, or why there is none.
     """
 
     n_seeds: int
@@ -47,6 +51,8 @@ class Evidence(NamedTuple):
     slope: float
     slope_se: float
     holds_from: int | None
+    exact: ExactComparison | None = None
+    reference: str = ""
 
     @property
     def scaling_judged(self) -> bool:
@@ -78,11 +84,63 @@ def weight_tail_finding(e: Evidence) -> list[Finding]:
 
 
 def nse_level_finding(e: Evidence) -> list[Finding]:
-    """The size of the NSE of one run against ``NSE_LIMIT`` (common practice)."""
-    text = (f"NSE of one run from the spread over seeds is {e.sd:.3f} log units"
-            f" ({'above' if e.sd > NSE_LIMIT else 'below'} {NSE_LIMIT:g}; common practice: above {NSE_LIMIT:g}, "
-            "likelihood-ratio comparisons are mostly simulation noise)")
-    return [Finding(text, "unreliable", text) if e.sd > NSE_LIMIT else Finding(text)]
+    """The error of one run against ``NSE_LIMIT`` (common practice): its actual error (RMSE against
+    the exact value) where there is an exact reference, else the spread over seeds."""
+    if e.exact is not None:
+        size, what = e.exact.rmse, "actual error of one run (RMSE against the exact value)"
+    else:
+        size, what = e.sd, "NSE of one run from the spread over seeds"
+    text = (f"{what} is {size:.3f} log units ({'above' if size > NSE_LIMIT else 'below'} {NSE_LIMIT:g}; common "
+            f"practice: above {NSE_LIMIT:g}, likelihood-ratio comparisons are mostly simulation noise)")
+    return [Finding(text, "unreliable", text) if size > NSE_LIMIT else Finding(text)]
+
+
+def exact_error_finding(e: Evidence) -> list[Finding]:
+    """Is the reported NSE honest? The actual errors against the exact value, judged by the
+    chi-square intervals of :mod:`smle.diagnostics.health_exact`: the pooled ratio RMSE / NSE above
+    its range is 'unreliable' (on average the runs' error bars understate their errors); the
+    standardised errors alone above it is 'doubtful' (single runs' error bars cannot be trusted,
+    though pooled they hold). An exact sampler must match the reference to ``EXACT_SAMPLER_ERROR``."""
+    x = e.exact
+    if x is None:
+        return [Finding(f"{e.reference}; the error is judged from the spread over seeds only")]
+    if e.degenerate:
+        worst = float(np.max(np.abs(x.errors)))
+        if worst > EXACT_SAMPLER_ERROR:
+            text = (f"the weights are equal (exact sampler) but EIS differs from the exact log-likelihood "
+                    f"({e.reference}) by up to {worst:.3g}")
+            return [Finding(text, "unreliable", text)]
+        return [Finding(f"EIS equals the exact log-likelihood ({e.reference}) to {worst:.1e} at every seed")]
+    low, high = x.honest_range
+    text = (f"actual error against the exact log-likelihood ({e.reference}): RMSE {x.rmse:.4f} against the "
+            f"reported NSE {log_units(x.nse)} (ratio {x.ratio:.2f}), errors over their own NSE: root mean square "
+            f"{x.z_rms:.2f}; {1 - AGREEMENT_LEVEL:.0%} range for an honest NSE over {e.n_seeds} seeds "
+            f"{low:.2f}-{high:.2f}")
+    if x.understated:
+        return [Finding(text, "unreliable", f"the reported NSE understates the actual error against the exact "
+                                            f"value: RMSE {x.rmse:.3f} against NSE {log_units(x.nse)} (ratio {x.ratio:.2f}, "
+                                            f"above the {high:.2f} that {e.n_seeds} seeds explain)")]
+    if x.runs_understated:
+        return [Finding(text, "doubtful", f"single runs' NSEs understate their own errors against the exact value "
+                                          f"(error / NSE root mean square {x.z_rms:.2f}, above the {high:.2f} that "
+                                          f"{e.n_seeds} seeds explain), which the pooled ratio {x.ratio:.2f} does not show")]
+    if max(x.ratio, x.z_rms) < low:
+        text += "; the reported NSE overstates the error (conservative)"
+    return [Finding(text)]
+
+
+def exact_bias_finding(e: Evidence) -> list[Finding]:
+    """The mean error against the exact value, by Student's t with R - 1 dof (two-sided
+    ``AGREEMENT_LEVEL``); a significant bias is 'doubtful'."""
+    x = e.exact
+    if x is None or e.degenerate:
+        return []
+    text = (f"bias against the exact value {x.bias:+.4f} (se {x.bias_se:.4f}, t {x.bias_t:.2f}; critical "
+            f"{x.bias_critical:.2f}); the bias-corrected mean (+ sd^2 / 2) is off by {x.corrected_error:+.4f}")
+    if not x.biased:
+        return [Finding(text)]
+    return [Finding(text, "doubtful", f"EIS is biased against the exact value: mean error {x.bias:+.3f} over "
+                                      f"{e.n_seeds} seeds (t = {x.bias_t:.1f})")]
 
 
 def nse_agreement_finding(e: Evidence) -> list[Finding]:
@@ -130,7 +188,8 @@ def scaling_finding(e: Evidence) -> list[Finding]:
     return [Finding(text)]
 
 
-FINDINGS = (weight_tail_finding, nse_level_finding, nse_agreement_finding, convergence_finding, scaling_finding)
+FINDINGS = (weight_tail_finding, nse_level_finding, nse_agreement_finding, exact_error_finding, exact_bias_finding,
+            convergence_finding, scaling_finding)
 """The findings, in the order the report lists them."""
 
 
@@ -148,6 +207,9 @@ def judge(e: Evidence) -> tuple[list[str], str, str]:
         reason = ("the weights are equal (exact sampler)" if e.degenerate else
                   f"no sign of an infinite weight variance, NSE {e.sd:.3f} from {e.n_seeds} seeds agrees with the "
                   "single-run NSE, EIS converged")
+        if e.exact is not None and not e.degenerate:
+            reason += (f", the actual error against the exact value (RMSE {e.exact.rmse:.3f}) matches the reported "
+                       "NSE and shows no bias")
         if e.scaling_judged:
             reason += f", and NSE sqrt(S) is flat from S = {e.holds_from}, which includes the {e.n_draws} draws checked"
     return [f.text for f in findings], verdict, reason

@@ -14,7 +14,7 @@ from matplotlib.ticker import MaxNLocator
 
 from smle.diagnostics.plots import time_axis
 
-_INK, _ACCENT, _BAND = "#33506e", "#8c3b1e", "#e3a857"
+_INK, _ACCENT, _BAND, _EXACT = "#33506e", "#8c3b1e", "#e3a857", "#2e7d4f"
 FILES = ("loglik_seeds.png", "weight_tail.png", "nse_scaling.png", "period_contributions.png")
 
 
@@ -38,22 +38,44 @@ def _save(figure, path) -> Path | Figure:
 
 
 def loglik_across_seeds(report, path) -> Path:
-    """log L_hat per seed with its single-run NSE, the mean and the band mean +- one spread sd."""
+    """log L_hat per seed with its single-run NSE, the mean and the band mean +- one spread sd, and
+    the exact log-likelihood as a line where there is one (the errors are the distances to it)."""
     figure = _figure((8, 4.6))
     axis = figure.subplots()
     seeds = np.asarray(report.seeds)
     axis.axhspan(report.loglik_mean - report.loglik_sd, report.loglik_mean + report.loglik_sd, color=_BAND,
                  alpha=0.35, label=f"mean +- sd over seeds ({report.loglik_sd:.3f})")
     axis.axhline(report.loglik_mean, color=_ACCENT, lw=1.0, label=f"mean {report.loglik_mean:.3f}")
+    if report.exact is not None:
+        axis.axhline(report.exact.loglik, color=_EXACT, lw=1.4, ls="--",
+                     label=f"exact {report.exact.loglik:.3f} (RMSE {report.exact.rmse:.3f})")
+    low, high, cut = _seed_axis_range(report)
     axis.errorbar(seeds, report.values, yerr=report.single_nse, fmt="o", ms=4, color=_INK, capsize=2,
-                  label="one run +- its own NSE")
+                  label="one run +- its own NSE" + (f" (bars cut at the axes; largest {cut:.3g})" if cut else ""))
+    axis.set_ylim(low, high)
     axis.xaxis.set_major_locator(MaxNLocator(integer=True))  # seeds are integers
     axis.set_xlabel("seed")
     axis.set_ylabel("log-likelihood estimate (natural log)")
     axis.set_title(f"EIS log-likelihood across {report.n_seeds} seeds ({report.model}, {report.n_draws} draws)")
-    _legend_below(axis, 3)
+    _legend_below(axis, 2 if report.exact is not None else 3)
     axis.grid(alpha=0.3)
     return _save(figure, path)
+
+
+def _seed_axis_range(report) -> tuple[float, float, float]:
+    """``(low, high, cut)``: y limits that show the points, the band, the exact value and the error
+    bars, with bars longer than twice that span cut at the axes (``cut``: the largest NSE, when
+    any is cut, else 0) so that one absurd NSE does not flatten every point onto a line."""
+    values = np.asarray(report.values)
+    marks = [values.min(), values.max(), report.loglik_mean - report.loglik_sd, report.loglik_mean + report.loglik_sd]
+    if report.exact is not None:
+        marks.append(report.exact.loglik)
+    span = max(max(marks) - min(marks), 1e-12)
+    nse = np.asarray(report.single_nse)
+    shown = np.minimum(nse, 2.0 * span)
+    low, high = min(min(marks), float((values - shown).min())), max(max(marks), float((values + shown).max()))
+    pad = 0.05 * (high - low)
+    return low - pad, high + pad, float(nse.max()) if np.any(nse > 2.0 * span) else 0.0
 
 
 def weight_tail(report, path) -> Path:

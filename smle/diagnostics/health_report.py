@@ -153,6 +153,11 @@ class HealthReport:
         cv_coefficient_across_seeds: with the independent control, the coefficient minimising the
         spread across seeds, cov(plain, error) / var(error), and variance_reduction_at_best the
         factor it gives on the same seeds (optimistic: fitted and judged on the same runs).
+      exact: the seed runs against the exact log-likelihood, a
+        :class:`~smle.diagnostics.health_exact.ExactComparison` (errors per seed, bias, RMSE, RMSE /
+        reported NSE, standardised errors, the bias-corrected mean's error); None where there is no
+        exact reference. reference: how the exact value was computed, or why there is none (e.g.
+        "no exact reference: 2-dimensional state").
     """
 
     model: str
@@ -203,6 +208,8 @@ class HealthReport:
     variance_reduction_range: tuple = (math.nan, math.nan)
     cv_coefficient_across_seeds: float = math.nan
     variance_reduction_at_best: float = math.nan
+    exact: NamedTuple | None = None
+    reference: str = ""
 
     # -- conveniences ----------------------------------------------------------------------------
     @property
@@ -250,7 +257,8 @@ class HealthReport:
         params = ", ".join(f"{k}={v:.6g}" for k, v in self.params.items())
         return layout.render(
             layout.title("check", f"model {self.model}", f"{self.n_periods} periods", f"verdict: {self.verdict}"),
-            [layout.block("Parameters checked", [params]), self._spread_block(), self._tail_block(),
+            [layout.block("Parameters checked", [params]), self._spread_block(), self._exact_block(),
+             self._tail_block(),
              self._convergence_block(), self._scaling_block(),
              layout.block("Findings", [f"- {f}" for f in self.findings]),
              layout.block("Verdict", [f"verdict: {self.verdict} -- {self.reason}"])],
@@ -273,6 +281,29 @@ class HealthReport:
             *low_ess_warning(float(self.ess.min()), self.n_draws, "draws", " (lowest run)"),
             *self._control_variate_lines(),
         ])
+
+    def _exact_block(self) -> list[str]:
+        x = self.exact
+        if x is None:
+            return layout.block("Against the exact log-likelihood", [f"{self.reference}: the error is judged from "
+                                                                     "the spread over seeds"])
+        errors = [f"{e:+.4f}" for e in x.errors]
+        low, high = x.honest_range
+        lines = [layout.field("exact value", f"{x.loglik:.4f} ({self.reference})"),
+                 "error per seed: " + ", ".join(errors[:10]), *(["  " + ", ".join(errors[i:i + 10])
+                                                                for i in range(10, len(errors), 10)])]
+        if not self.degenerate:
+            lines += [
+                layout.field("bias (mean error)", f"{x.bias:+.4f} (se {x.bias_se:.4f}, t {x.bias_t:.2f}; "
+                                                  f"{1 - AGREEMENT_LEVEL:.0%} critical value {x.bias_critical:.2f})"),
+                layout.field("RMSE", f"{x.rmse:.4f} against the reported NSE {log_units(x.nse)}: ratio "
+                                     f"{x.ratio:.2f}"),
+                layout.field("error / own NSE", f"root mean square {x.z_rms:.2f} over the runs; {x.beyond_two_nse} "
+                                                f"of {self.n_seeds} errors beyond twice their own NSE (honest: "
+                                                "about 5%)"),
+                f"  (an honest NSE keeps both within {low:.2f} to {high:.2f} over {self.n_seeds} seeds)",
+                layout.field("bias-corrected mean", f"off by {x.corrected_error:+.4f}")]
+        return layout.block("Against the exact log-likelihood", lines)
 
     def _tail_block(self) -> list[str]:
         heading = f"Weight tail ({self.tail_draws} scoring draws, {self.tail_scoring}; ESS {self.tail_ess:.1f})"
@@ -344,6 +375,11 @@ class HealthReport:
         if self.dates is not None:
             return f"{self.dates[index]}"
         return f"{index}"
+
+
+def log_units(value: float) -> str:
+    """A log-likelihood error in log units: 4 decimals, or 3 significant digits when it is huge."""
+    return f"{value:.4f}" if abs(value) < 1e4 else f"{value:.3g}"
 
 
 def _plain(value):
