@@ -83,9 +83,14 @@ def estimate_distributions(store, path, title: str = "study") -> Path:
             ax.set_title(f"{design}: {parameter} (n = {values.size})", fontsize="small")
             ax.set_xlabel(f"estimate of {parameter}")
             ax.set_ylabel("replications")
+    return _finish(plt, fig, axes, f"{title}: distribution of the estimates (red line: true value)", 0.97, path)
+
+
+def _finish(plt, fig, axes, heading: str, top: float, path) -> Path:
+    """Legend of the first panel, the heading, the layout; saved to ``path`` and closed."""
     axes[0, 0].legend(fontsize="small")
-    fig.suptitle(f"{title}: distribution of the estimates (red line: true value)")
-    fig.tight_layout(rect=(0, 0, 1, 0.97))
+    fig.suptitle(heading)
+    fig.tight_layout(rect=(0, 0, 1, top))
     path = Path(path)
     fig.savefig(path, dpi=100)
     plt.close(fig)
@@ -117,10 +122,5 @@ def paired_estimates_figure(estimates, path, title: str = "study") -> Path:
             ax.set_title(f"{parameter} (n = {len(e)})", fontsize="small")
             ax.set_xlabel(f"exact: {exact}", fontsize="small")
             ax.set_ylabel(f"EIS: {eis}", fontsize="small")
-    axes[0, 0].legend(fontsize="small")
-    fig.suptitle(f"{title}: EIS against exact estimates of the same series (grey: truth)")
-    fig.tight_layout(rect=(0, 0, 1, 0.95))
-    path = Path(path)
-    fig.savefig(path, dpi=100)
-    plt.close(fig)
-    return path
+    return _finish(plt, fig, axes, f"{title}: EIS against exact estimates of the same series (grey: truth)", 0.95,
+                   path)
