@@ -149,6 +149,8 @@ def test_summary_files_and_figures(finished_store, tmp_path):
     assert {"bias", "bias_mcse", "rmse", "coverage", "coverage_mcse", "se_ratio", "convergence_rate"} <= set(header)
     for key in ("bias_rmse", "distributions"):
         assert written[key].stat().st_size > 10_000
+    # no designs sharing their data: no paired outputs (tests/test_study_paired.py has them)
+    assert set(written) == {"csv", "markdown", "bias_rmse", "distributions"} and "Simulation error" not in text
 
 
 def test_status_of_a_stopped_study(tmp_path):

@@ -84,7 +84,7 @@ def _command_export(args) -> int:
 
 
 def _command_example(args) -> int:
-    from smle.study.spec import write_example
+    from smle.study.example import write_example
 
     path = write_example(args.path)
     print(f"example study written to {path}; try: smle study run {path} --max-replications 3")

@@ -17,6 +17,7 @@ import importlib
 # so that reading a study file (``smle study --help`` included) does not import pandas or JAX
 _PUBLIC = {
     "run_replication": "replication",
+    **dict.fromkeys(("design_pairs", "paired_differences"), "paired"),
     **dict.fromkeys(("RunReport", "pending_replications", "run_study"), "runner"),
     **dict.fromkeys(("Design", "Estimator", "Study", "check_study", "load_study", "replication_seeds",
                      "study_from_mapping"), "spec"),

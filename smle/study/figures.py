@@ -83,10 +83,44 @@ def estimate_distributions(store, path, title: str = "study") -> Path:
             ax.set_title(f"{design}: {parameter} (n = {values.size})", fontsize="small")
             ax.set_xlabel(f"estimate of {parameter}")
             ax.set_ylabel("replications")
+    return _finish(plt, fig, axes, f"{title}: distribution of the estimates (red line: true value)", 0.97, path)
+
+
+def _finish(plt, fig, axes, heading: str, top: float, path) -> Path:
+    """Legend of the first panel, the heading, the layout; saved to ``path`` and closed."""
     axes[0, 0].legend(fontsize="small")
-    fig.suptitle(f"{title}: distribution of the estimates (red line: true value)")
-    fig.tight_layout(rect=(0, 0, 1, 0.97))
+    fig.suptitle(heading)
+    fig.tight_layout(rect=(0, 0, 1, top))
     path = Path(path)
     fig.savefig(path, dpi=100)
     plt.close(fig)
     return path
+
+
+def paired_estimates_figure(estimates, path, title: str = "study") -> Path:
+    """EIS estimates against exact maximum likelihood estimates of the same series, one row per
+    pair of designs sharing their data and one column per parameter (the diagonal: no simulation
+    error; the grey lines: the truth). ``estimates`` as from :func:`smle.study.paired.paired_estimates`."""
+    plt = _pyplot()
+    pairs = list(dict.fromkeys(zip(estimates["eis_design"], estimates["exact_design"])))
+    parameters = list(dict.fromkeys(estimates["parameter"]))
+    fig, axes = plt.subplots(len(pairs), len(parameters), figsize=(3.6 * len(parameters), 3.4 * len(pairs)),
+                             squeeze=False)
+    for i, (eis, exact) in enumerate(pairs):
+        for j, parameter in enumerate(parameters):
+            ax = axes[i, j]
+            e = estimates[(estimates["eis_design"] == eis) & (estimates["exact_design"] == exact)
+                          & (estimates["parameter"] == parameter)]
+            x, y = e["exact"].to_numpy(float), e["eis"].to_numpy(float)
+            ax.scatter(x, y, s=12, color="#4c72b0", alpha=0.8)
+            if len(e):
+                truth = float(e["truth"].iloc[0])
+                ends = np.nanmin(np.r_[x, y]), np.nanmax(np.r_[x, y])
+                ax.plot(ends, ends, color="#c44e52", lw=1, label="EIS = exact")
+                ax.axvline(truth, color="grey", lw=0.8)
+                ax.axhline(truth, color="grey", lw=0.8)
+            ax.set_title(f"{parameter} (n = {len(e)})", fontsize="small")
+            ax.set_xlabel(f"exact: {exact}", fontsize="small")
+            ax.set_ylabel(f"EIS: {eis}", fontsize="small")
+    return _finish(plt, fig, axes, f"{title}: EIS against exact estimates of the same series (grey: truth)", 0.95,
+                   path)

@@ -38,7 +38,8 @@ def run_replication(design: Design | dict, master_seed: int, replication: int) -
 
     Returns:
       A dict with the key (``design``, ``replication``), the seeds, ``status`` (``"ok"`` or
-      ``"failed"``), fit facts (loglik, nse, converged, iterations, ...), per-parameter
+      ``"failed"``), fit facts (loglik, nse, converged, iterations, ..., exact_loglik: the
+      exact log-likelihood at the estimate where the state is one-dimensional), per-parameter
       ``estimates`` (truth, estimate, std_error, lower, upper, simulation_std_error), timing
       and the software version. Non-finite numbers are ``None``.
     """
@@ -72,6 +73,8 @@ def run_replication(design: Design | dict, master_seed: int, replication: int) -
             n_evaluations=int(result.n_evaluations), grad_norm=_finite_or_none(result.grad_norm),
             eis_iterations=_int_or_none(result.eis.get("iterations")), eis_converged=result.eis.get("converged"),
             ess=_finite_or_none(result.eis.get("ess")), level=float(result.level),
+            exact_loglik=_finite_or_none(result.loglik if result.method == "exact"
+                                         else result.eis.get("exact_loglik_at_estimate")),
             fit_seconds=float(result.elapsed_seconds), elapsed_seconds=time.perf_counter() - started,
             estimates=[
                 {"parameter": name, "truth": float(design.params[name]),

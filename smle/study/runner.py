@@ -122,8 +122,10 @@ class Progress:
         self.shape_of[design["name"]] = shape
         if not known:
             e = design["estimator"]
+            method = e.get("method", "eis")  # the stored identity names the method only when not "eis"
+            likelihood = f"{e['n_draws']} draws" if method == "eis" else f"method {method}"
             self.write(f"study {self.name}: compiling the estimator for design '{design['name']}' ({design['model']}, "
-                       f"T = {design['n_periods']}, {e['n_draws']} draws) on each worker that takes it; "
+                       f"T = {design['n_periods']}, {likelihood}) on each worker that takes it; "
                        "the first results come after that ...")
 
     def update(self, row: dict) -> None:

@@ -6,7 +6,9 @@ data and its common random numbers from ``SeedSequence([master_seed, design_key(
 alone (:func:`replication_seeds`), so any row can be recomputed on its own and no result
 depends on the order or place in which replications run. The design key is derived from the
 design's *name* (not its position), so designs may be reordered or added to a file without
-changing the numbers of the others.
+changing the numbers of the others. A design with ``data_from`` takes its data seeds from
+the design it names (the same simulated series, replication by replication) and keeps its own
+estimator seeds: two estimators measured on identical data.
 
 Study file format
 =================
@@ -37,6 +39,12 @@ Unknown keys are refused with the list of accepted ones.
   n_periods     integer >= 2, required. T, the length of each simulated series.
   replications  integer >= 1, required. May grow later; the store keeps what is done.
   model_options table, default {}: keyword arguments of the model (e.g. garch-mix link).
+  data_from     string, default none: the name of another design of the study whose
+                simulated series this design estimates (replication r of both sees the
+                same data; the estimator's own seeds stay this design's). Both need the
+                same model, model_options, params and n_periods; the named design may not
+                itself have data_from. With one design "exact" and the other "eis", the
+                summary measures the simulation part of the EIS estimator's error.
   Estimator settings (passed to smle.fit):
   n_draws       integer >= 4, even with antithetic draws; default 64.
                 EIS draws per set.
@@ -55,6 +63,7 @@ Unknown keys are refused with the list of accepted ones.
   method        "eis" (default: a study measures the simulated estimator), "exact" (the
                 exact likelihood of a one-dimensional state: exact maximum likelihood, the
                 reference the simulated estimator is measured against) or "auto".
+                The same data fitted both ways: two designs joined by data_from.
 
 A design's numbers depend on everything above except replications; changing any of it
 for a design that already has stored results is refused (rename the design or use a new
@@ -90,16 +99,17 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
-import math
 import tomllib
 from pathlib import Path
 from typing import Mapping
 
 import numpy as np
 
-from smle.errors import SmleInputError, describe
+from smle.errors import SmleInputError
+from smle.study.checks import check_design, check_study
 
-_START_CHOICES = ("data", "truth")
+__all__ = ["Design", "Estimator", "Study", "canonical_json", "check_design", "check_study", "design_key",
+           "format_text", "load_study", "replication_seeds", "study_from_mapping"]
 
 
 @dataclasses.dataclass(frozen=True)
@@ -151,6 +161,8 @@ class Design:
       n_periods: T, the length of each simulated series.
       replications: how many series to simulate and estimate.
       estimator: :class:`Estimator` settings.
+      data_from: name of another design of the study whose simulated data this design uses
+        (same model, options, parameters and length); ``None``: its own.
     """
 
     name: str
@@ -160,10 +172,12 @@ class Design:
     replications: int
     estimator: Estimator = Estimator()
     model_options: Mapping[str, object] = dataclasses.field(default_factory=dict)
+    data_from: str | None = None
 
     def identity(self) -> dict:
-        """Everything that determines the numbers of a replication (all but the count)."""
-        return {
+        """Everything that determines the numbers of a replication (all but the count);
+        ``data_from`` only when set, so that stores written before it existed keep their identity."""
+        identity = {
             "name": self.name,
             "model": self.model,
             "model_options": dict(self.model_options),
@@ -171,6 +185,9 @@ class Design:
             "n_periods": self.n_periods,
             "estimator": _estimator_identity(self.estimator),
         }
+        if self.data_from is not None:
+            identity["data_from"] = self.data_from
+        return identity
 
     def to_dict(self) -> dict:
         return {**self.identity(), "replications": self.replications}
@@ -224,91 +241,24 @@ def design_key(name: str) -> int:
     return int.from_bytes(hashlib.sha256(name.encode("utf-8")).digest()[:4], "little")
 
 
+def _seed_words(master_seed: int, name: str, replication: int) -> np.ndarray:
+    return np.random.SeedSequence([int(master_seed), design_key(name), int(replication)]).generate_state(2, np.uint32)
+
+
 def replication_seeds(master_seed: int, design: Design | str, replication: int) -> tuple[int, int]:
     """``(data_seed, eis_seed)`` of a replication, from the master seed, design name and index.
 
     ``numpy.random.SeedSequence([master_seed, design_key(name), replication])`` gives two
     32-bit words: the first seeds :func:`smle.simulate`, the second (plus the estimator's
-    ``seed_offset``) seeds :func:`smle.fit`.
+    ``seed_offset``) seeds :func:`smle.fit`. A design with ``data_from`` takes the first word
+    from the sequence of the design it names (the same data) and the second from its own.
     """
     name = design if isinstance(design, str) else design.name
-    words = np.random.SeedSequence([int(master_seed), design_key(name), int(replication)]).generate_state(2, np.uint32)
+    words = _seed_words(master_seed, name, replication)
+    data_from = None if isinstance(design, str) else design.data_from
+    data_seed = words[0] if data_from is None else _seed_words(master_seed, data_from, replication)[0]
     offset = 0 if isinstance(design, str) else design.estimator.seed_offset
-    return int(words[0]), int(words[1]) + int(offset)
-
-
-# ---------------------------------------------------------------------------------------------
-# validation
-
-
-def _is_int(value) -> bool:
-    return isinstance(value, (int, np.integer)) and not isinstance(value, bool)
-
-
-def _check_int(where: str, name: str, value, minimum: int) -> int:
-    from smle.validation import check_integer
-
-    try:
-        return check_integer(name, value, minimum)
-    except SmleInputError as error:
-        raise SmleInputError(f"{where}: {error}") from None
-
-
-def check_design(design: Design) -> Design:
-    """Validate a design against the model registry and the estimator's rules; return it normalised."""
-    from smle.validation import check_settings
-    from smle.models import get_model
-    from smle.params import check_params
-
-    if not isinstance(design.name, str) or not design.name.strip():
-        raise SmleInputError(f"design name = {describe(design.name)} is not accepted; accepted: a non-empty string")
-    where = f"design '{design.name}'"
-    try:
-        model = get_model(design.model, **dict(design.model_options))
-    except SmleInputError as error:
-        raise SmleInputError(f"{where}: {error}") from None
-    try:
-        params = check_params(model.name, model.constraints(), design.params)
-    except SmleInputError as error:
-        raise SmleInputError(f"{where}: {error}") from None
-    n_periods = _check_int(where, "n_periods", design.n_periods, 2)
-    replications = _check_int(where, "replications", design.replications, 1)
-    e = design.estimator
-    try:
-        check_settings(e.n_draws, e.antithetic, e.tol, e.max_iter)
-    except SmleInputError as error:
-        raise SmleInputError(f"{where}: {error}") from None
-    _check_int(where, "n_seeds", e.n_seeds, 1)
-    _check_int(where, "seed_offset", e.seed_offset, 0)
-    _check_int(where, "max_steps", e.max_steps, 1)
-    if e.method not in ("eis", "exact", "auto"):
-        raise SmleInputError(f"{where}: method = {describe(e.method)} is not accepted; accepted: eis, exact, auto")
-    if e.start not in _START_CHOICES:
-        raise SmleInputError(f"{where}: start = {describe(e.start)} is not accepted; accepted: {', '.join(_START_CHOICES)}")
-    for name in ("gtol", "tol"):
-        value = getattr(e, name)
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not (math.isfinite(value) and value > 0):
-            raise SmleInputError(f"{where}: {name} = {describe(value)} is not accepted; accepted: a positive number")
-    if isinstance(e.level, bool) or not isinstance(e.level, float) or not 0.5 <= e.level < 1:
-        raise SmleInputError(f"{where}: level = {describe(e.level)} is not accepted; accepted: a number in [0.5, 1)")
-    estimator = dataclasses.replace(e, gtol=float(e.gtol), tol=float(e.tol), antithetic=bool(e.antithetic))
-    return dataclasses.replace(design, model=model.name, params=params, n_periods=n_periods,
-                               replications=replications, estimator=estimator,
-                               model_options=dict(design.model_options))
-
-
-def check_study(study: Study) -> Study:
-    """Validate every design, the master seed and the design names; return the study normalised."""
-    if not _is_int(study.master_seed) or study.master_seed < 0:
-        raise SmleInputError(f"master_seed = {describe(study.master_seed)} is not accepted; accepted: a non-negative integer")
-    if not study.designs:
-        raise SmleInputError(f"study '{study.name}' has no designs; accepted: at least one [[design]] table")
-    designs = tuple(check_design(d) for d in study.designs)
-    names = [d.name for d in designs]
-    repeated = sorted({n for n in names if names.count(n) > 1})
-    if repeated:
-        raise SmleInputError(f"design names must be unique; repeated: {', '.join(repeated)}")
-    return dataclasses.replace(study, designs=designs, master_seed=int(study.master_seed))
+    return int(data_seed), int(words[1]) + int(offset)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -317,7 +267,7 @@ def check_study(study: Study) -> Study:
 _STUDY_KEYS = {"name", "master_seed", "description"}
 _OUTPUT_KEYS = {"store", "folder"}
 _ESTIMATOR_KEYS = {f.name for f in dataclasses.fields(Estimator)}
-_DESIGN_KEYS = {"name", "model", "model_options", "params", "n_periods", "replications"} | _ESTIMATOR_KEYS
+_DESIGN_KEYS = {"name", "model", "model_options", "params", "n_periods", "replications", "data_from"} | _ESTIMATOR_KEYS
 
 
 def _unknown(where: str, table: Mapping, accepted: set) -> None:
@@ -353,7 +303,8 @@ def study_from_mapping(data: Mapping, base: Path | None = None) -> Study:
         estimator = Estimator(**{k: merged[k] for k in _ESTIMATOR_KEYS if k in merged})
         designs.append(Design(name=merged["name"], model=merged["model"], params=dict(merged["params"]),
                               n_periods=merged["n_periods"], replications=merged["replications"],
-                              estimator=estimator, model_options=dict(merged.get("model_options", {}))))
+                              estimator=estimator, model_options=dict(merged.get("model_options", {})),
+                              data_from=merged.get("data_from")))
 
     def resolve(path):
         if path is None:
@@ -387,9 +338,9 @@ def load_study(path) -> Study:
         name = "phi=0.95"
         params = { mu = -7.36, phi = 0.95, sigma_eta = 0.26 }
 
-    Design keys: name, model, model_options, params, n_periods, replications and the
-    :class:`Estimator` fields (n_draws, antithetic, n_seeds, seed_offset, start, max_steps,
-    gtol, tol, max_iter, level).
+    Design keys: name, model, model_options, params, n_periods, replications, data_from and
+    the :class:`Estimator` fields (n_draws, antithetic, n_seeds, seed_offset, start, max_steps,
+    gtol, tol, max_iter, level, method).
     """
     path = Path(path)
     try:
@@ -412,53 +363,3 @@ def format_text() -> str:
     """The "Study file format" section of this module's docstring (for ``smle study --help``)."""
     text = __doc__[__doc__.index("Study file format"):]
     return text.replace("Example::", "Example:")
-
-
-EXAMPLE_STUDY = """\
-# An smle Monte Carlo study (TOML). Run:      smle study run THIS_FILE
-# Watch it from another terminal:             smle study status THIS_FILE
-# Tables and figures when done (or at any time): smle study summary THIS_FILE
-# Every key is described by `smle study --help`.
-
-[study]
-name = "example"
-master_seed = 2024            # root of every replication's seeds (integer >= 0)
-description = "sv at two sample lengths and two persistences; invented settings for a first look"
-
-[outputs]                     # paths relative to this file
-store = "example.sqlite"      # results, one committed row per replication; a rerun resumes
-folder = "example-summary"    # summary.csv, summary.md, figures
-
-[defaults]                    # applied to every [[design]] below, which may override them
-model = "sv"
-replications = 20             # raise it later: stored replications are kept
-n_draws = 16                  # EIS draws per set (antithetic by default)
-start = "data"                # or "truth": start the optimiser at the true parameters
-
-[[design]]
-name = "phi=0.95, T=200"      # the name is part of the seeds: keep it once results exist
-params = { mu = -7.36, phi = 0.95, sigma_eta = 0.26 }
-n_periods = 200
-
-[[design]]
-name = "phi=0.95, T=800"
-params = { mu = -7.36, phi = 0.95, sigma_eta = 0.26 }
-n_periods = 800
-
-[[design]]
-name = "phi=0.90, T=200"
-params = { mu = -7.36, phi = 0.90, sigma_eta = 0.363 }
-n_periods = 200
-"""
-
-
-def write_example(path) -> Path:
-    """Write :data:`EXAMPLE_STUDY` to ``path`` (refusing to overwrite a file); return the path."""
-    path = Path(path)
-    if path.suffix.lower() != ".toml":
-        raise SmleInputError(f"path = {str(path)!r} is not accepted; accepted: a file name ending in .toml")
-    if path.exists():
-        raise SmleInputError(f"path = {str(path)!r} already exists; accepted: a new file (nothing was written)")
-    path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text(EXAMPLE_STUDY)
-    return path

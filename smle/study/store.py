@@ -11,7 +11,10 @@ Tables (schema version :data:`SCHEMA_VERSION`):
     one row per finished replication, key (design, replication): seeds, status ("ok" or
     "failed"), error, loglik, nse, converged, message, iterations, n_evaluations, grad_norm,
     eis_iterations, eis_converged, ess, level, fit_seconds, elapsed_seconds, worker,
-    finished_at, smle_version, attempts.
+    finished_at, smle_version, attempts, exact_loglik (the exact log-likelihood at the estimate
+    where the state is one-dimensional: the fit's own for the exact method, the exact reference
+    for EIS; a column added within schema 1, added to older stores when a runner opens them
+    and read as missing from stores that lack it).
 ``estimates(design, replication, parameter, truth, estimate, std_error, lower, upper, simulation_std_error)``
     one row per parameter of each successful replication.
 
@@ -41,7 +44,7 @@ TIMING_COLUMNS = ("fit_seconds", "elapsed_seconds", "worker", "finished_at", "at
 REPLICATION_COLUMNS = (
     "design", "replication", "status", "data_seed", "eis_seed", "error", "loglik", "nse", "converged", "message",
     "iterations", "n_evaluations", "grad_norm", "eis_iterations", "eis_converged", "ess", "level",
-    "fit_seconds", "elapsed_seconds", "worker", "finished_at", "smle_version", "attempts",
+    "fit_seconds", "elapsed_seconds", "worker", "finished_at", "smle_version", "attempts", "exact_loglik",
 )
 ESTIMATE_COLUMNS = ("design", "replication", "parameter", "truth", "estimate", "std_error", "lower", "upper",
                     "simulation_std_error")
@@ -57,7 +60,7 @@ CREATE TABLE IF NOT EXISTS replications (
     loglik REAL, nse REAL, converged INTEGER, message TEXT, iterations INTEGER, n_evaluations INTEGER,
     grad_norm REAL, eis_iterations INTEGER, eis_converged INTEGER, ess REAL, level REAL,
     fit_seconds REAL, elapsed_seconds REAL, worker TEXT, finished_at TEXT, smle_version TEXT NOT NULL,
-    attempts INTEGER NOT NULL DEFAULT 1,
+    attempts INTEGER NOT NULL DEFAULT 1, exact_loglik REAL,
     PRIMARY KEY (design, replication));
 CREATE TABLE IF NOT EXISTS estimates (
     design TEXT NOT NULL, replication INTEGER NOT NULL, parameter TEXT NOT NULL,
@@ -209,6 +212,9 @@ def _write_definition(c: sqlite3.Connection, study: Study) -> None:
     import smle
 
     c.executescript(_SCHEMA)
+    columns = {r[1] for r in c.execute("PRAGMA table_info(replications)")}
+    if "exact_loglik" not in columns:  # a store written before the column existed (same schema otherwise)
+        c.execute("ALTER TABLE replications ADD COLUMN exact_loglik REAL")
     with _Transaction(c):
         c.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
         c.execute("INSERT OR IGNORE INTO meta VALUES ('smle_version', ?)", (smle.__version__,))

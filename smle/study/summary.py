@@ -37,8 +37,10 @@ import numpy as np
 import pandas as pd
 
 from smle.study import store as store_module
+from smle.study.paired import paired_differences, paired_estimates, paired_markdown
 from smle.study.runner import format_duration
 from smle.study.tables import read_results
+from smle.study.tables import value_text as _cell
 
 STATISTICS = ("mean", "bias", "median", "sd", "rmse", "mean_se", "se_ratio", "coverage", "convergence_rate")
 
@@ -146,13 +148,6 @@ def summarize(store, converged_only: bool = False) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def _cell(value, mcse, digits=4) -> str:
-    if value is None or not math.isfinite(value):
-        return "–"
-    text = f"{value:.{digits}g}"
-    return text + (f" ± {mcse:.2g}" if mcse is not None and math.isfinite(mcse) else "")
-
-
 def _share(value, lower, upper) -> str:
     """A proportion with its Wilson interval: "0.75 [0.3, 0.95]"."""
     if value is None or not math.isfinite(value):
@@ -186,7 +181,11 @@ def markdown_tables(summary: pd.DataFrame, title: str = "study") -> str:
 
 
 def write_summary(store, folder, figures: bool = True, converged_only: bool = False, title: str | None = None) -> dict:
-    """Write ``summary.csv``, ``summary.md`` (and figures) into ``folder``; return the paths written."""
+    """Write ``summary.csv``, ``summary.md`` (and figures) into ``folder``; return the paths written.
+
+    For designs sharing their data, EIS against exact (:mod:`smle.study.paired`), also
+    ``paired.csv``, a section of ``summary.md`` per pair and ``paired.png``.
+    """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     summary = summarize(store, converged_only)
@@ -194,12 +193,21 @@ def write_summary(store, folder, figures: bool = True, converged_only: bool = Fa
     title = title or meta.get("study_name", Path(store).stem)
     written = {"csv": folder / "summary.csv", "markdown": folder / "summary.md"}
     summary.to_csv(written["csv"], index=False, float_format="%.10g")
-    written["markdown"].write_text(markdown_tables(summary, title) + "\n")
+    markdown = markdown_tables(summary, title)
+    paired = paired_differences(store, converged_only)
+    if len(paired):  # designs sharing their data, EIS against exact: the simulation part of the error
+        written["paired_csv"] = folder / "paired.csv"
+        paired.to_csv(written["paired_csv"], index=False, float_format="%.10g")
+        markdown += "\n" + paired_markdown(paired)
+    written["markdown"].write_text(markdown + "\n")
     if figures and len(summary):
         from smle.study import figures as fig
 
         written["bias_rmse"] = fig.bias_rmse_against_length(summary, folder / "bias_rmse.png", title)
         written["distributions"] = fig.estimate_distributions(store, folder / "distributions.png", title)
+        if len(paired):
+            written["paired"] = fig.paired_estimates_figure(paired_estimates(store, converged_only)[0],
+                                                            folder / "paired.png", title)
     return written
 
 

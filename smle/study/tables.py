@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 
 import pandas as pd
 
@@ -27,3 +28,11 @@ def read_results(store) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
     designs["n_periods"] = designs["definition"].map(lambda d: d["n_periods"])
     designs["model"] = designs["definition"].map(lambda d: d["model"])
     return designs, replications, estimates
+
+
+def value_text(value, mcse=None, digits=4) -> str:
+    """A table cell: "value ± MCSE" (the MCSE left out when not finite; "–" for a missing value)."""
+    if value is None or not math.isfinite(value):
+        return "–"
+    text = f"{value:.{digits}g}"
+    return text + (f" ± {mcse:.2g}" if mcse is not None and math.isfinite(mcse) else "")
