@@ -32,6 +32,7 @@ PARAMS = {
                       xi=-0.3, sigma_u=0.4),
     "garch": dict(mu=0.03, ar1=0.05, omega=0.05, alpha=0.06, beta=0.90),
     "sv-2factor": dict(mu=0.0, phi1=0.97, sigma_eta1=0.2, phi2=0.5, sigma_eta2=0.4),
+    "sv-leverage": dict(mu=0.0, phi=0.95, sigma_eta=0.26, delta=-0.4),
 }
 # The k-dimensional models with several observed series share sv-2factor's path through the
 # command line (the multivariate EIS dispatch) and the multi-column reading that realized-sv and
