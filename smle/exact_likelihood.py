@@ -103,10 +103,13 @@ def _kalman(model: Model):
 
 
 @functools.lru_cache(maxsize=None)
-def _log_g(model: Model):
-    """``(params, y, x) -> log g_t(y_t | x)`` for states x of shape (T, S), compiled per shape."""
+def on_states(model: Model, hook: str = "log_obs_density"):
+    """``(params, y, x) -> model.<hook>(params, prepared data, x)`` for states x of shape (T, S),
+    compiled per shape: ``log_obs_density`` (log g_t) or ``obs_cdf`` (F(y_t | x))."""
+    method = getattr(model, hook)
+
     def run(params, y, x):
-        return model.log_obs_density(params, model.prepare(params, y), x)
+        return method(params, model.prepare(params, y), x)
     return jax.jit(run)
 
 
@@ -125,7 +128,7 @@ def exact_run(model: Model, params, y, tol: float = EXACT_TOL, spec: ExactGrid |
         out = _kalman(model)(params, y)
         return ExactRun(float(out.loglik), np.asarray(_kalman_log_predictive(out)), np.asarray(out.filtered_mean),
                         np.sqrt(np.asarray(out.filtered_var)), 0.0, 0, "Kalman filter", None)
-    log_g = _log_g(model)
+    log_g = on_states(model)
     out = exact.exact_filter(model.latent(params), lambda x: log_g(params, y, x), y.shape[0], tol, spec=spec,
                              curvature_probe=lambda x: _probe(model)(params, y, x),
                              transition=transition_of(model, params, y))
@@ -154,7 +157,7 @@ def _kalman_log_predictive(out):
 def log_g_on(model: Model, params, y, spec: ExactGrid) -> jax.Array:
     """log g_t(y_t | x_i) on the grid of ``spec``, shape (T, G)."""
     y = jnp.asarray(y)
-    return _log_g(model)(params, y, jnp.broadcast_to(spec.points(), (y.shape[0], spec.size)))
+    return on_states(model)(params, y, jnp.broadcast_to(spec.points(), (y.shape[0], spec.size)))
 
 
 def smoothed_band(model: Model, params, y, run: ExactRun, levels=(0.05, 0.95)):

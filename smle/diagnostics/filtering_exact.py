@@ -27,7 +27,7 @@ from scipy.stats import norm
 
 from smle.engine.exact_smoothing import predicted_masses, predictive_pit, quantile_band, smooth
 from smle.engine.kalman import kalman_filter, kalman_smoother
-from smle.exact_likelihood import ExactRun, exact_run, is_linear_gaussian, log_g_on
+from smle.exact_likelihood import ExactRun, exact_run, is_linear_gaussian, log_g_on, on_states
 from smle.models import Model
 
 LEVELS = (0.05, 0.95)
@@ -72,14 +72,6 @@ def _kalman_parts(model: Model):
     return jax.jit(run)
 
 
-@functools.lru_cache(maxsize=None)
-def _cdf_on(model: Model):
-    """``(params, y, x) -> F(y_t | x)`` at states x of shape (T, G), compiled per shape."""
-    def run(params, y, x):
-        return model.obs_cdf(params, model.prepare(params, y), x)
-    return jax.jit(run)
-
-
 def _gaussian_band(mean, sd):
     return tuple(mean + norm.ppf(level) * sd for level in LEVELS)
 
@@ -109,7 +101,7 @@ def grid_factor(model: Model, params, y, run: ExactRun, with_cdf: bool) -> Exact
     smoothed = smooth(state, log_g, spec, levels=LEVELS, masses=masses)
     pit = None
     if with_cdf:
-        cdf = _cdf_on(model)(params, y, jnp.broadcast_to(spec.points(), log_g.shape))
+        cdf = on_states(model, "obs_cdf")(params, y, jnp.broadcast_to(spec.points(), log_g.shape))
         pit = np.asarray(predictive_pit(state, log_g, spec, cdf.reshape(*log_g.shape, model.n_series),
                                         masses=masses))
     return ExactFactor(
