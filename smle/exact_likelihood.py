@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import functools
 import math
+import warnings
 from typing import NamedTuple
 
 import jax
@@ -58,6 +59,20 @@ def resolve_method(model: Model, method) -> str:
             f"{model.state_dim}-dimensional state, which no grid filter covers; accepted for this model: "
             "'eis' or 'auto'")
     return method
+
+
+def warn_unused_settings(model: Model, resolved: str, given: dict, defaults: dict) -> None:
+    """Say (a UserWarning) which EIS settings a call set that its method does not use: ``auto``
+    runs the exact method for a one-dimensional state, and a user who asked for 64 draws or a seed
+    should not learn by accident that they were ignored."""
+    if resolved == "eis":
+        return
+    changed = [name for name, value in given.items() if value != defaults[name]]
+    if changed:
+        warnings.warn(f"{', '.join(changed)} {'is' if len(changed) == 1 else 'are'} not used: model '{model.name}' "
+                      f"is computed by the {resolved} method (method='auto' chooses it for a one-dimensional "
+                      "state); pass method='eis' for the simulated likelihood with these settings",
+                      UserWarning, stacklevel=3)
 
 
 def check_exact_tol(exact_tol) -> float:

@@ -155,5 +155,5 @@ def exact_reference(restriction: Restriction, y: np.ndarray, params: dict, fitte
         "exact_max_loglik": best_run.loglik,
         "exact_estimates": best_params,
         "loss_against_exact": best_run.loglik - run.loglik,
-        "exact_engine": run.engine if not run.grid_size else f"grid filter ({run.grid_size} points)",
+        "exact_engine": run.engine if not run.grid_size else f"grid filter, {run.grid_size} points",
     }

@@ -19,7 +19,7 @@ import numpy as np
 from smle.engine.control import control_facts
 from smle.engine.methods import compiled_closed_form, eis_entry
 from smle.errors import EISBreakdownError, SmleInputError
-from smle.exact_likelihood import EXACT_TOL, check_exact_tol, exact_run, resolve_method
+from smle.exact_likelihood import EXACT_TOL, check_exact_tol, exact_run, resolve_method, warn_unused_settings
 from smle.models import get_model
 from smle.validation import (
     as_key, check_control, check_integer, check_settings, check_state_settings, checked_inputs, checked_params,
@@ -206,6 +206,9 @@ def loglik(
     """
     model, checked, y = checked_inputs(model, params, y)
     resolved = resolve_method(model, method)
+    warn_unused_settings(model, resolved, dict(n_draws=n_draws, seed=seed, antithetic=antithetic, tol=tol,
+                                               max_iter=max_iter, n_score_draws=n_score_draws,
+                                               control_variates=control_variates), _EIS_DEFAULTS)
     if resolved == "closed form":
         return _closed_form_loglik(model, checked, y)
     if resolved == "exact":
@@ -250,6 +253,9 @@ def loglik(
         damping_step=float(getattr(out.info, "step", 1.0)),
     )
 
+
+_EIS_DEFAULTS = dict(n_draws=64, seed=0, antithetic=True, tol=1e-6, max_iter=50, n_score_draws=None,
+                     control_variates=None)
 
 NSE_METHOD = "largest of delta, lognormal, batches"
 """How :attr:`LoglikResult.nse` is computed without control variates (see :func:`honest_nse`)."""

@@ -145,3 +145,15 @@ def test_exact_loglik_result_says_how_it_was_computed(sp500_returns):
     assert "method='exact'" in repr(result)
     with pytest.raises(SmleInputError, match="has no simulated paths"):
         result.smoothed_mean()
+
+
+def test_eis_settings_unused_by_the_exact_method_are_said():
+    params = dict(mu=-0.4, phi=0.98, sigma_eta=0.15)
+    y, _ = smle.simulate("sv", params, 100, seed=2)
+    with pytest.warns(UserWarning, match=r"n_draws, seed are not used: model 'sv' is computed by the exact method"):
+        smle.loglik("sv", params, y, n_draws=32, seed=4)
+    import warnings
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # defaults, or method="eis", say nothing
+        smle.loglik("sv", params, y)
+        smle.loglik("sv", params, y, n_draws=32, seed=4, method="eis")
