@@ -7,7 +7,10 @@ what is accepted.
 
 from __future__ import annotations
 
+import json
 import math
+import os
+from pathlib import Path
 from typing import Mapping
 
 import jax
@@ -21,6 +24,17 @@ from smle.models import Model, get_model
 from smle.params import check_params
 
 MIN_DRAWS = 4
+MAX_SEED = 2**63 - 1
+"""The largest seed: ``jax.random.PRNGKey`` takes a signed 64-bit integer in float64 mode."""
+
+# Peak memory per stored value, bytes, measured with the peak resident set size (ru_maxrss) of
+# a fresh process against a smaller run (sv at T = 200 and 800, S = 4096 to 65536; sv-2factor
+# at T = 200 and 800, S = 8192): loglik 35-38 per period, path and state dimension of each draw
+# set, fit 80 (the gradient keeps the EIS iterations' arrays), simulate 24 per period and series
+# or state component. Rounded up.
+BYTES_PER_VALUE = {"loglik": 40, "fit": 85, "simulate": 28}
+FALLBACK_MEMORY = 8 * 2**30
+"""Memory assumed available when the system does not say (no /proc/meminfo, no sysconf)."""
 
 
 def check_integer(name: str, value, minimum: int, note: str = "", even: bool = False) -> int:
@@ -37,14 +51,9 @@ def check_integer(name: str, value, minimum: int, note: str = "", even: bool = F
 
 
 def check_observations(model: Model, y) -> np.ndarray:
-    """Validate observations for ``model``: numeric, finite, right shape, long enough."""
-    try:
-        array = np.asarray(y, dtype=float)
-    except (TypeError, ValueError):
-        raise SmleInputError(
-            f"y must be numeric observations (an array of shape (T,) for model '{model.name}'); "
-            f"got {describe(y)}"
-        ) from None
+    """Validate observations for ``model``: real numbers (not text, not complex), finite, right
+    shape, long enough, and returns rather than prices where the model expects returns."""
+    array = _real_array(model, y)
     expected = "(T,)" if model.n_series == 1 else f"(T, {model.n_series})"
     if model.n_series == 1 and array.ndim == 2 and array.shape[1] == 1:
         array = array[:, 0]
@@ -66,14 +75,78 @@ def check_observations(model: Model, y) -> np.ndarray:
             f"y has {rows.size} non-finite value(s) (NaN or inf) at row(s) {shown}; "
             "accepted: finite numbers only (drop or fill those rows first)"
         )
+    check_not_prices(model, array)
     return model.check_data(array)
 
 
-def check_settings(n_draws, antithetic, tol, max_iter, n_score_draws=None) -> eis.EISSettings:
-    """Validate estimator settings and return them as :class:`~smle.engine.eis.EISSettings`."""
+def _real_array(model: Model, y) -> np.ndarray:
+    """``y`` as a float array, refusing what a float conversion would silently accept or crash on:
+    text (even text that reads as numbers: a column read as strings), complex numbers (whose
+    imaginary parts the conversion drops) and other objects."""
+    accepted = (f"accepted: real numbers, an array of shape (T,) for model '{model.name}'" if model.n_series == 1
+                else f"accepted: real numbers, an array of shape (T, {model.n_series}) for model '{model.name}'")
+    try:
+        raw = np.asarray(y)
+    except (TypeError, ValueError):
+        raw = None
+    if raw is not None and raw.dtype.kind in "OUSc":
+        bad = [(i, v) for i, v in enumerate(raw.ravel()) if v is not None and not _is_real_number(v)]  # None: NaN
+        if bad:
+            unreadable = [(i, v) for i, v in bad if not _reads_as_number(v)]
+            position, value = (unreadable or bad)[0]
+            kind = ("text" if isinstance(value, (str, bytes)) else "complex numbers"
+                    if isinstance(value, (complex, np.complexfloating)) else type(value).__name__)
+            raise SmleInputError(
+                f"y must be numeric observations, not {kind}: {describe(value)} at position {position} ({len(bad)} "
+                f"value(s) of this kind, {len(unreadable)} not readable as a number); {accepted}"
+                + (" (convert text with pandas.to_numeric or float first)" if kind == "text" else ""))
+    try:
+        return np.asarray(y, dtype=float)
+    except (TypeError, ValueError):
+        raise SmleInputError(f"y must be numeric observations; got {describe(y)}; {accepted}") from None
+
+
+def _is_real_number(value) -> bool:
+    """A value that is not text or complex and converts to float (a Python or NumPy number, Decimal, ...)."""
+    return not isinstance(value, (str, bytes, complex, np.complexfloating)) and _reads_as_number(value)
+
+
+def _reads_as_number(value) -> bool:
+    try:
+        float(value)
+    except (TypeError, ValueError):
+        return False
+    return True
+
+
+def check_not_prices(model: Model, array: np.ndarray) -> None:
+    """Refuse prices given to a one-series model that expects returns: all values positive with a
+    lag-1 autocorrelation above 0.9 (a price level wanders; a return series is centred near 0)."""
+    if not (model.expects_returns and model.n_series == 1 and array.shape[0] > 2 and np.all(array > 0)):
+        return
+    lag_one = np.corrcoef(array[1:], array[:-1])[0, 1]
+    if lag_one > 0.9:
+        raise SmleInputError(
+            f"y looks like prices, not returns (all positive, lag-1 autocorrelation {lag_one:.3f}); "
+            f"model '{model.name}' expects returns: convert with smle.data.log_returns (or "
+            "--prices on the command line)"
+        )
+
+
+def check_settings(n_draws, antithetic, tol, max_iter, n_score_draws=None, model: Model | None = None,
+                   n_periods: int | None = None, purpose: str = "loglik") -> eis.EISSettings:
+    """Validate estimator settings and return them as :class:`~smle.engine.eis.EISSettings`.
+
+    With ``model`` and ``n_periods`` the run's memory is estimated (``purpose`` "loglik" or
+    "fit", :func:`memory_needed`) and a run that would not fit in memory is refused."""
     check_integer("n_draws", n_draws, MIN_DRAWS, even=antithetic)
     if n_score_draws is not None:
         check_integer("n_score_draws", n_score_draws, MIN_DRAWS, even=antithetic)
+    if model is not None and n_periods is not None and model.state_dim > 0:
+        scoring = int(n_draws if n_score_draws is None else n_score_draws)
+        check_memory(purpose, memory_needed(purpose, n_periods, int(n_draws) + scoring, model.state_dim),
+                     f"T = {n_periods} periods x ({int(n_draws)} fitting + {scoring} scoring draws) x "
+                     f"{model.state_dim} state dimension(s)", "n_draws", int(n_draws))
     if not (isinstance(tol, (int, float)) and math.isfinite(tol) and tol > 0):
         raise SmleInputError(f"tol = {tol!r} is not accepted; accepted: a positive number such as 1e-6")
     check_integer("max_iter", max_iter, 1)
@@ -162,10 +235,111 @@ def jax_params(checked: Mapping[str, float]) -> dict:
     return {k: jnp.asarray(v, float) for k, v in checked.items()}
 
 
-def as_key(seed) -> jax.Array:
-    """A JAX PRNG key from an integer seed (or a key, returned as it is)."""
+def check_seed(seed, count: int = 1) -> int:
+    """``seed`` as an int if it is an integer in [0, MAX_SEED]; ``count`` seeds ``seed .. seed +
+    count - 1`` are used (several fits or runs), so the last must be a seed too."""
+    accepted = f"accepted: an integer from 0 to 2**63 - 1 = {MAX_SEED}, or a JAX PRNG key"
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or not 0 <= seed <= MAX_SEED:
+        raise SmleInputError(f"seed = {describe(seed)} is not accepted; {accepted}")
+    if seed > MAX_SEED - (count - 1):
+        raise SmleInputError(f"seed = {seed} is not accepted: seeds {seed} to {seed} + {count - 1} are used (one per "
+                             f"run) and the last must be a seed too; accepted: an integer from 0 to "
+                             f"{MAX_SEED - (count - 1)}")
+    return int(seed)
+
+
+def as_key(seed, count: int = 1) -> jax.Array:
+    """A JAX PRNG key from an integer seed (or a key, returned as it is); see :func:`check_seed`."""
     if isinstance(seed, (jax.Array, np.ndarray)) and jnp.issubdtype(jnp.asarray(seed).dtype, jnp.unsignedinteger):
         return jnp.asarray(seed)
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise SmleInputError(f"seed = {seed!r} is not accepted; accepted: a non-negative integer or a JAX PRNG key")
-    return jax.random.PRNGKey(int(seed))
+    return jax.random.PRNGKey(check_seed(seed, count))
+
+
+def check_periods(model: Model, n_periods) -> int:
+    """The number of periods to simulate from ``model``: an integer >= 1 whose arrays fit in memory."""
+    n_periods = check_integer("n_periods", n_periods, 1)
+    values = model.n_series + max(model.state_dim, 1)
+    check_memory("simulate", memory_needed("simulate", n_periods, 1, values), f"{n_periods} periods", "n_periods", n_periods)
+    return n_periods
+
+
+def memory_needed(purpose: str, n_periods: int, n_paths: int, width: int) -> int:
+    """Estimated peak memory in bytes of a run: ``BYTES_PER_VALUE[purpose]`` per period, path
+    and value per path (the state dimension; for ``simulate``, series plus state components)."""
+    return BYTES_PER_VALUE[purpose] * int(n_periods) * int(n_paths) * int(width)
+
+
+def available_memory() -> tuple[int, str]:
+    """Memory this process can still use, in bytes, and where the figure comes from: the least of
+    MemAvailable (/proc/meminfo) and a cgroup limit less its usage; else free physical pages
+    (sysconf); else :data:`FALLBACK_MEMORY`."""
+    found = []
+    try:
+        with open("/proc/meminfo") as meminfo:
+            for line in meminfo:
+                if line.startswith("MemAvailable:"):
+                    found.append((int(line.split()[1]) * 1024, "MemAvailable in /proc/meminfo"))
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        with open("/sys/fs/cgroup/memory.max") as limit, open("/sys/fs/cgroup/memory.current") as usage:
+            found.append((int(limit.read()) - int(usage.read()), "the cgroup memory limit less its usage"))
+    except (OSError, ValueError):  # no cgroup v2, or no limit ("max")
+        pass
+    if not found:
+        try:
+            found.append((os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"), "free physical pages"))
+        except (OSError, ValueError, AttributeError):
+            found.append((FALLBACK_MEMORY, "a fixed cap (the system does not report its free memory)"))
+    return min(found)
+
+
+def check_memory(purpose: str, needed: int, sizes: str, argument: str, value: int) -> None:
+    """Refuse a run whose estimated memory ``needed`` (bytes) exceeds what is available, before
+    anything is allocated; the message gives both figures and the sizes that drive it."""
+    available, source = available_memory()
+    if needed > available:
+        raise SmleInputError(
+            f"{argument} = {value} is too large: {purpose} with {sizes} needs about {_gib(needed)} of memory and {_gib(available)} is "
+            f"available ({source}); accepted: a smaller {argument}"
+            f"{'' if purpose == 'simulate' else ' or shorter data'} whose memory fits "
+            f"(about {BYTES_PER_VALUE[purpose]} bytes {_MEMORY_UNITS.get(purpose, _MEMORY_UNITS['loglik'])})")
+
+
+_MEMORY_UNITS = {"loglik": "per period, path and state dimension", "simulate": "per period and simulated value"}
+
+
+def load_saved(build, text_or_path, expected: str):
+    """``build(data)`` for the JSON object in ``text_or_path`` (JSON text, or the path of a file
+    holding it). Anything that stops it (no such file, a folder, binary or truncated content, JSON
+    of another kind) is a :class:`SmleInputError` naming the file and saying what ``expected`` is."""
+    text = str(text_or_path)
+    is_text = text.lstrip().startswith("{")
+    subject = "the JSON text given" if is_text else f"file {text!r}"
+    try:
+        if not is_text:
+            text = Path(text_or_path).read_text(encoding="utf-8")
+        data = json.loads(text)
+    except FileNotFoundError:
+        raise SmleInputError(f"{subject} does not exist; accepted: {expected}") from None
+    except IsADirectoryError:
+        raise SmleInputError(f"{subject} is a folder; accepted: {expected}") from None
+    except UnicodeDecodeError:
+        raise SmleInputError(f"{subject} is not text (binary content); accepted: {expected}") from None
+    except json.JSONDecodeError as error:
+        raise SmleInputError(f"{subject} is not complete JSON ({error.msg} at line {error.lineno} column "
+                             f"{error.colno}: truncated or damaged?); accepted: {expected}") from None
+    except OSError as error:
+        raise SmleInputError(f"{subject} cannot be read ({error.strerror}); accepted: {expected}") from None
+    try:
+        if not isinstance(data, dict):
+            raise TypeError(f"it holds a JSON {type(data).__name__}, not an object")
+        return build(data)
+    except KeyError as error:
+        raise SmleInputError(f"{subject} is not {expected}: the entry {error} is missing") from None
+    except (TypeError, ValueError, AttributeError) as error:
+        raise SmleInputError(f"{subject} is not {expected}: {error}") from None
+
+
+def _gib(n_bytes: int) -> str:
+    return f"{n_bytes / 2**30:.3g} GiB"
