@@ -107,11 +107,14 @@ def _real_array(model: Model, y) -> np.ndarray:
 
 
 def _is_real_number(value) -> bool:
-    """A value that is not text or complex and converts to float (a Python or NumPy number, Decimal, ...)."""
-    return not isinstance(value, (str, bytes, complex, np.complexfloating)) and _reads_as_number(value)
+    """A value that is not text and converts to float (a Python or NumPy number, Decimal, ...)."""
+    return not isinstance(value, (str, bytes)) and _reads_as_number(value)
 
 
 def _reads_as_number(value) -> bool:
+    """Whether ``float(value)`` works; never for a complex number (NumPy's would drop its imaginary part)."""
+    if isinstance(value, (complex, np.complexfloating)):
+        return False
     try:
         float(value)
     except (TypeError, ValueError):
@@ -300,7 +303,7 @@ def check_memory(purpose: str, needed: int, sizes: str, argument: str, value: in
     available, source = available_memory()
     if needed > available:
         raise SmleInputError(
-            f"{argument} = {value} is too large: {purpose} with {sizes} needs about {_gib(needed)} of memory and {_gib(available)} is "
+            f"{argument} = {value} is too large: {purpose} with {sizes} needs about {_bytes_text(needed)} of memory and {_bytes_text(available)} is "
             f"available ({source}); accepted: a smaller {argument}"
             f"{'' if purpose == 'simulate' else ' or shorter data'} whose memory fits "
             f"(about {BYTES_PER_VALUE[purpose]} bytes {_MEMORY_UNITS.get(purpose, _MEMORY_UNITS['loglik'])})")
@@ -341,5 +344,5 @@ def load_saved(build, text_or_path, expected: str):
         raise SmleInputError(f"{subject} is not {expected}: {error}") from None
 
 
-def _gib(n_bytes: int) -> str:
-    return f"{n_bytes / 2**30:.3g} GiB"
+def _bytes_text(n_bytes: int) -> str:
+    return f"{n_bytes / 2**30:.3g} GiB" if n_bytes >= 2**30 else f"{n_bytes / 2**20:.3g} MiB"
