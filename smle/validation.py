@@ -125,7 +125,8 @@ def _reads_as_number(value) -> bool:
 def check_not_prices(model: Model, array: np.ndarray) -> None:
     """Refuse prices given to a one-series model that expects returns: all values positive with a
     lag-1 autocorrelation above 0.9 (a price level wanders; a return series is centred near 0)."""
-    if not (model.expects_returns and model.n_series == 1 and array.shape[0] > 2 and np.all(array > 0)):
+    if not (model.expects_returns and model.n_series == 1 and array.shape[0] > 2 and np.all(array > 0)
+            and np.ptp(array) > 0):  # a constant series has no autocorrelation (smle.fit refuses it as constant)
         return
     lag_one = np.corrcoef(array[1:], array[:-1])[0, 1]
     if lag_one > 0.9:
