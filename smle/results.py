@@ -10,8 +10,7 @@ from pathlib import Path
 import numpy as np
 
 from smle import report_text as layout
-from smle.errors import SmleInputError
-from smle.validation import load_saved
+from smle.errors import SmleInputError, load_saved
 
 CAUTION = (
     "Model estimates are statistical output, not investment advice; users remain responsible "

@@ -7,10 +7,8 @@ what is accepted.
 
 from __future__ import annotations
 
-import json
 import math
 import os
-from pathlib import Path
 from typing import Mapping
 
 import jax
@@ -311,38 +309,6 @@ def check_memory(purpose: str, needed: int, sizes: str, argument: str, value: in
 
 
 _MEMORY_UNITS = {"loglik": "per period, path and state dimension", "simulate": "per period and simulated value"}
-
-
-def load_saved(build, text_or_path, expected: str):
-    """``build(data)`` for the JSON object in ``text_or_path`` (JSON text, or the path of a file
-    holding it). Anything that stops it (no such file, a folder, binary or truncated content, JSON
-    of another kind) is a :class:`SmleInputError` naming the file and saying what ``expected`` is."""
-    text = str(text_or_path)
-    is_text = text.lstrip().startswith("{")
-    subject = "the JSON text given" if is_text else f"file {text!r}"
-    try:
-        if not is_text:
-            text = Path(text_or_path).read_text(encoding="utf-8")
-        data = json.loads(text)
-    except FileNotFoundError:
-        raise SmleInputError(f"{subject} does not exist; accepted: {expected}") from None
-    except IsADirectoryError:
-        raise SmleInputError(f"{subject} is a folder; accepted: {expected}") from None
-    except UnicodeDecodeError:
-        raise SmleInputError(f"{subject} is not text (binary content); accepted: {expected}") from None
-    except json.JSONDecodeError as error:
-        raise SmleInputError(f"{subject} is not complete JSON ({error.msg} at line {error.lineno} column "
-                             f"{error.colno}: truncated or damaged?); accepted: {expected}") from None
-    except OSError as error:
-        raise SmleInputError(f"{subject} cannot be read ({error.strerror}); accepted: {expected}") from None
-    try:
-        if not isinstance(data, dict):
-            raise TypeError(f"it holds a JSON {type(data).__name__}, not an object")
-        return build(data)
-    except KeyError as error:
-        raise SmleInputError(f"{subject} is not {expected}: the entry {error} is missing") from None
-    except (TypeError, ValueError, AttributeError) as error:
-        raise SmleInputError(f"{subject} is not {expected}: {error}") from None
 
 
 def _bytes_text(n_bytes: int) -> str:
