@@ -29,8 +29,9 @@ MAX_SEED = 2**63 - 1
 # a fresh process against a smaller run (sv at T = 200 and 800, S = 4096 to 65536; sv-2factor
 # at T = 200 and 800, S = 8192): loglik 35-38 per period, path and state dimension of each draw
 # set, fit 80 (the gradient keeps the EIS iterations' arrays), simulate 24 per period and series
-# or state component. Rounded up.
-BYTES_PER_VALUE = {"loglik": 40, "fit": 85, "simulate": 28}
+# or state component; the particle filter 54-74 per particle at N = 1e6 and 1e7 (T = 200 and 800:
+# its scan keeps one period's particles, so T hardly matters). Rounded up.
+BYTES_PER_VALUE = {"loglik": 40, "fit": 85, "simulate": 28, "filter": 80}
 FALLBACK_MEMORY = 8 * 2**30
 """Memory assumed available when the system does not say (no /proc/meminfo, no sysconf)."""
 
@@ -267,7 +268,8 @@ def check_periods(model: Model, n_periods) -> int:
 
 def memory_needed(purpose: str, n_periods: int, n_paths: int, width: int) -> int:
     """Estimated peak memory in bytes of a run: ``BYTES_PER_VALUE[purpose]`` per period, path
-    and value per path (the state dimension; for ``simulate``, series plus state components)."""
+    and value per path (the state dimension; for ``simulate``, series plus state components; for
+    ``filter``, per particle, with ``n_periods`` and ``width`` 1)."""
     return BYTES_PER_VALUE[purpose] * int(n_periods) * int(n_paths) * int(width)
 
 
@@ -304,11 +306,12 @@ def check_memory(purpose: str, needed: int, sizes: str, argument: str, value: in
         raise SmleInputError(
             f"{argument} = {value} is too large: {purpose} with {sizes} needs about {_bytes_text(needed)} of memory and {_bytes_text(available)} is "
             f"available ({source}); accepted: a smaller {argument}"
-            f"{'' if purpose == 'simulate' else ' or shorter data'} whose memory fits "
+            f"{' or shorter data' if purpose in ('loglik', 'fit') else ''} whose memory fits "
             f"(about {BYTES_PER_VALUE[purpose]} bytes {_MEMORY_UNITS.get(purpose, _MEMORY_UNITS['loglik'])})")
 
 
-_MEMORY_UNITS = {"loglik": "per period, path and state dimension", "simulate": "per period and simulated value"}
+_MEMORY_UNITS = {"loglik": "per period, path and state dimension", "simulate": "per period and simulated value",
+                 "filter": "per particle"}
 
 
 def _bytes_text(n_bytes: int) -> str:

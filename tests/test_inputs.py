@@ -158,8 +158,9 @@ def no_engine(monkeypatch):
     def reached(*args, **kwargs):
         raise AssertionError("the run reached the engine: its size was not refused")
 
+    filtering = importlib.import_module("smle.diagnostics.filtering")
     for module, name in ((likelihood, "eis_entry"), (likelihood, "_simulate_jit"), (fit, "_fit_one"),
-                         (health, "_seed_run")):
+                         (health, "_seed_run"), (filtering, "compiled_filter")):
         monkeypatch.setattr(module, name, reached)
 
 
@@ -177,6 +178,16 @@ def test_sizes_beyond_the_machine_are_refused_before_allocating(returns, no_engi
     long = np.tile(returns, 25_000)  # T = 10**6 periods: 10**4 draws of it need about 745 GiB
     with pytest.raises(SmleInputError, match=r"T = 1000000 periods x \(10000 fitting \+ 10000 scoring draws\)"):
         smle.loglik("sv", SV, long, n_draws=10**4)
+
+
+def test_particles_and_study_designs_beyond_the_machine_are_refused(returns, no_engine):
+    from smle.study.spec import Design, Estimator, check_design
+
+    with pytest.raises(SmleInputError, match=r"n_particles = 100000000000 is too large: filter with 100000000000 "
+                                             r"particles needs about .* GiB"):
+        smle.filter_factor("sv", SV, returns, n_particles=10**11)
+    with pytest.raises(SmleInputError, match=r"design 'huge': n_draws = 1000000000 is too large: fit with T = 2000"):
+        check_design(Design("huge", "sv", SV, 2000, 1, Estimator(n_draws=10**9)))
 
 
 @pytest.mark.parametrize("n_draws, needed", [(10**4, "30.5 MiB"), (10**7, "29.8 GiB")])
