@@ -275,8 +275,8 @@ def memory_needed(purpose: str, n_periods: int, n_paths: int, width: int) -> int
 
 def available_memory() -> tuple[int, str]:
     """Memory this process can still use, in bytes, and where the figure comes from: the least of
-    MemAvailable (/proc/meminfo) and a cgroup limit less its usage; else free physical pages
-    (sysconf); else :data:`FALLBACK_MEMORY`."""
+    MemAvailable (/proc/meminfo) and a cgroup (v2) memory limit; else free, or else total,
+    physical pages (sysconf); else :data:`FALLBACK_MEMORY`."""
     found = []
     try:
         with open("/proc/meminfo") as meminfo:
@@ -285,17 +285,19 @@ def available_memory() -> tuple[int, str]:
                     found.append((int(line.split()[1]) * 1024, "MemAvailable in /proc/meminfo"))
     except (OSError, ValueError, IndexError):
         pass
-    try:
-        with open("/sys/fs/cgroup/memory.max") as limit, open("/sys/fs/cgroup/memory.current") as usage:
-            found.append((int(limit.read()) - int(usage.read()), "the cgroup memory limit less its usage"))
+    try:  # the container's limit (its usage is not subtracted: it counts page cache that can be freed)
+        with open("/sys/fs/cgroup/memory.max") as limit:
+            found.append((int(limit.read()), "the cgroup memory limit"))
     except (OSError, ValueError):  # no cgroup v2, or no limit ("max")
         pass
-    if not found:
+    for pages, source in (("SC_AVPHYS_PAGES", "free physical pages"), ("SC_PHYS_PAGES", "total physical memory")):
+        if found:
+            break
         try:
-            found.append((os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"), "free physical pages"))
-        except (OSError, ValueError, AttributeError):
-            found.append((FALLBACK_MEMORY, "a fixed cap (the system does not report its free memory)"))
-    return min(found)
+            found.append((os.sysconf(pages) * os.sysconf("SC_PAGE_SIZE"), source))
+        except (OSError, ValueError, AttributeError):  # not every system has both names
+            pass
+    return min(found) if found else (FALLBACK_MEMORY, "a fixed cap (the system does not report its free memory)")
 
 
 def check_memory(purpose: str, needed: int, sizes: str, argument: str, value: int) -> None:
