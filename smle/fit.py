@@ -112,15 +112,6 @@ def check_fit_data(model: Model, y) -> np.ndarray:
         raise SmleInputError(
             f"y is constant (every value is {flat[0, 0]!r}); a model cannot be estimated from a constant series"
         )
-    if model.expects_returns and model.n_series == 1:
-        positive = np.all(array > 0)
-        lag_one = np.corrcoef(array[1:], array[:-1])[0, 1]
-        if positive and lag_one > 0.9:
-            raise SmleInputError(
-                f"y looks like prices, not returns (all positive, lag-1 autocorrelation {lag_one:.3f}); "
-                f"model '{model.name}' expects returns: convert with smle.data.log_returns (or "
-                "--prices on the command line)"
-            )
     return array
 
 
@@ -198,7 +189,7 @@ def fit(
     exact_tol = check_exact_tol(exact_tol)
     y, data_source, dates = describe_data(y, source, dates)
     y = check_fit_data(model, y)
-    settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
+    settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws, model, y.shape[0], "fit")
     control = check_control(model, control_variates, cv_coefficient) if model.state_dim else NO_CONTROL
     if model.state_dim > 1:
         check_state_settings(model, settings)
@@ -208,7 +199,7 @@ def fit(
     max_steps = check_integer("max_steps", max_steps, 1)
     restriction = Restriction.of(model, check_fixed(model, fixed))
     start_params = _start_values(model, start, y)
-    key = as_key(seed)
+    key = as_key(seed, n_seeds)
     y_jax = jnp.asarray(y)
     started = time.perf_counter()
     if resolved == "closed form":

@@ -22,7 +22,7 @@ from smle.errors import EISBreakdownError, SmleInputError
 from smle.exact_likelihood import EXACT_TOL, check_exact_tol, exact_run, resolve_method, warn_unused_settings
 from smle.models import get_model
 from smle.validation import (
-    as_key, check_control, check_integer, check_settings, check_state_settings, checked_inputs, checked_params,
+    as_key, check_control, check_periods, check_settings, check_state_settings, checked_inputs, checked_params,
     jax_params,
 )
 
@@ -213,7 +213,7 @@ def loglik(
         return _closed_form_loglik(model, checked, y)
     if resolved == "exact":
         return _exact_loglik(model, checked, y, check_exact_tol(exact_tol))
-    settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws)
+    settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws, model, y.shape[0])
     control = check_control(model, control_variates, cv_coefficient)
     check_state_settings(model, settings)
     key = as_key(seed)
@@ -365,7 +365,7 @@ def simulate(model, params: Mapping[str, float], n_periods: int, seed=0):
     """
     model = get_model(model)
     checked = checked_params(model, params)
-    n_periods = check_integer("n_periods", n_periods, 1)
+    n_periods = check_periods(model, n_periods)
     y, x = _simulate_jit(model, jax_params(checked), n_periods, as_key(seed))
     return np.array(y), np.array(x)
 

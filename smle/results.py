@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 
 from smle import report_text as layout
-from smle.errors import SmleInputError
+from smle.errors import SmleInputError, load_saved
 
 CAUTION = (
     "Model estimates are statistical output, not investment advice; users remain responsible "
@@ -140,10 +140,7 @@ class FitResult:
     @classmethod
     def from_json(cls, text_or_path) -> "FitResult":
         """Read a result written by :meth:`to_json` (JSON text or a file path)."""
-        text = str(text_or_path)
-        if not text.lstrip().startswith("{"):
-            text = Path(text_or_path).read_text()
-        return cls.from_dict(json.loads(text))
+        return load_saved(cls.from_dict, text_or_path, f"a fit result written by FitResult.to_json (format {FORMAT})")
 
     # -- text ------------------------------------------------------------------------------------
     def summary(self) -> str:

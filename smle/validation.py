@@ -8,6 +8,7 @@ what is accepted.
 from __future__ import annotations
 
 import math
+import os
 from typing import Mapping
 
 import jax
@@ -21,6 +22,18 @@ from smle.models import Model, get_model
 from smle.params import check_params
 
 MIN_DRAWS = 4
+MAX_SEED = 2**63 - 1
+"""The largest seed: ``jax.random.PRNGKey`` takes a signed 64-bit integer in float64 mode."""
+
+# Peak memory per stored value, bytes, measured with the peak resident set size (ru_maxrss) of
+# a fresh process against a smaller run (sv at T = 200 and 800, S = 4096 to 65536; sv-2factor
+# at T = 200 and 800, S = 8192): loglik 35-38 per period, path and state dimension of each draw
+# set, fit 80 (the gradient keeps the EIS iterations' arrays), simulate 24 per period and series
+# or state component; the particle filter 54-74 per particle at N = 1e6 and 1e7 (T = 200 and 800:
+# its scan keeps one period's particles, so T hardly matters). Rounded up.
+BYTES_PER_VALUE = {"loglik": 40, "fit": 85, "simulate": 28, "filter": 80}
+FALLBACK_MEMORY = 8 * 2**30
+"""Memory assumed available when the system does not say (no /proc/meminfo, no sysconf)."""
 
 
 def check_integer(name: str, value, minimum: int, note: str = "", even: bool = False) -> int:
@@ -37,14 +50,9 @@ def check_integer(name: str, value, minimum: int, note: str = "", even: bool = F
 
 
 def check_observations(model: Model, y) -> np.ndarray:
-    """Validate observations for ``model``: numeric, finite, right shape, long enough."""
-    try:
-        array = np.asarray(y, dtype=float)
-    except (TypeError, ValueError):
-        raise SmleInputError(
-            f"y must be numeric observations (an array of shape (T,) for model '{model.name}'); "
-            f"got {describe(y)}"
-        ) from None
+    """Validate observations for ``model``: real numbers (not text, not complex), finite, right
+    shape, long enough, and returns rather than prices where the model expects returns."""
+    array = _real_array(model, y)
     expected = "(T,)" if model.n_series == 1 else f"(T, {model.n_series})"
     if model.n_series == 1 and array.ndim == 2 and array.shape[1] == 1:
         array = array[:, 0]
@@ -66,14 +74,82 @@ def check_observations(model: Model, y) -> np.ndarray:
             f"y has {rows.size} non-finite value(s) (NaN or inf) at row(s) {shown}; "
             "accepted: finite numbers only (drop or fill those rows first)"
         )
+    check_not_prices(model, array)
     return model.check_data(array)
 
 
-def check_settings(n_draws, antithetic, tol, max_iter, n_score_draws=None) -> eis.EISSettings:
-    """Validate estimator settings and return them as :class:`~smle.engine.eis.EISSettings`."""
+def _real_array(model: Model, y) -> np.ndarray:
+    """``y`` as a float array, refusing what a float conversion would silently accept or crash on:
+    text (even text that reads as numbers: a column read as strings), complex numbers (whose
+    imaginary parts the conversion drops) and other objects."""
+    accepted = (f"accepted: real numbers, an array of shape (T,) for model '{model.name}'" if model.n_series == 1
+                else f"accepted: real numbers, an array of shape (T, {model.n_series}) for model '{model.name}'")
+    try:
+        raw = np.asarray(y)
+    except (TypeError, ValueError):
+        raw = None
+    if raw is not None and raw.dtype.kind in "OUSc":
+        bad = [(i, v) for i, v in enumerate(raw.ravel()) if v is not None and not _is_real_number(v)]  # None: NaN
+        if bad:
+            unreadable = [(i, v) for i, v in bad if not _reads_as_number(v)]
+            position, value = (unreadable or bad)[0]
+            kind = ("text" if isinstance(value, (str, bytes)) else "complex numbers"
+                    if isinstance(value, (complex, np.complexfloating)) else type(value).__name__)
+            raise SmleInputError(
+                f"y must be numeric observations, not {kind}: {describe(value)} at position {position} ({len(bad)} "
+                f"value(s) of this kind, {len(unreadable)} not readable as a number); {accepted}"
+                + (" (convert text with pandas.to_numeric or float first)" if kind == "text" else ""))
+    try:
+        return np.asarray(y, dtype=float)
+    except (TypeError, ValueError):
+        raise SmleInputError(f"y must be numeric observations; got {describe(y)}; {accepted}") from None
+
+
+def _is_real_number(value) -> bool:
+    """A value that is not text and converts to float (a Python or NumPy number, Decimal, ...)."""
+    return not isinstance(value, (str, bytes)) and _reads_as_number(value)
+
+
+def _reads_as_number(value) -> bool:
+    """Whether ``float(value)`` works; never for a complex number (NumPy's would drop its imaginary part)."""
+    if isinstance(value, (complex, np.complexfloating)):
+        return False
+    try:
+        float(value)
+    except (TypeError, ValueError):
+        return False
+    return True
+
+
+def check_not_prices(model: Model, array: np.ndarray) -> None:
+    """Refuse prices given to a one-series model that expects returns: all values positive with a
+    lag-1 autocorrelation above 0.9 (a price level wanders; a return series is centred near 0)."""
+    if not (model.expects_returns and model.n_series == 1 and array.shape[0] > 2 and np.all(array > 0)
+            and np.ptp(array) > 0):  # a constant series has no autocorrelation (smle.fit refuses it as constant)
+        return
+    lag_one = np.corrcoef(array[1:], array[:-1])[0, 1]
+    if lag_one > 0.9:
+        raise SmleInputError(
+            f"y looks like prices, not returns (all positive, lag-1 autocorrelation {lag_one:.3f}); "
+            f"model '{model.name}' expects returns: convert with smle.data.log_returns (or "
+            "--prices on the command line)"
+        )
+
+
+def check_settings(n_draws, antithetic, tol, max_iter, n_score_draws=None, model: Model | None = None,
+                   n_periods: int | None = None, purpose: str = "loglik") -> eis.EISSettings:
+    """Validate estimator settings and return them as :class:`~smle.engine.eis.EISSettings`.
+
+    With ``model`` and ``n_periods`` the run's memory is estimated (``purpose`` "loglik" or
+    "fit", :func:`memory_needed`) and a run that would not fit in memory is refused."""
     check_integer("n_draws", n_draws, MIN_DRAWS, even=antithetic)
     if n_score_draws is not None:
         check_integer("n_score_draws", n_score_draws, MIN_DRAWS, even=antithetic)
+    if model is not None and n_periods is not None and model.state_dim > 0:
+        scoring = int(n_draws if n_score_draws is None else n_score_draws)
+        check_memory(purpose, memory_needed(purpose, n_periods, int(n_draws) + scoring, model.state_dim),
+                     f"T = {n_periods} periods x ({int(n_draws)} fitting + {scoring} scoring draws) x "
+                     f"{model.state_dim} state dimension(s)", "n_draws", int(n_draws))
     if not (isinstance(tol, (int, float)) and math.isfinite(tol) and tol > 0):
         raise SmleInputError(f"tol = {tol!r} is not accepted; accepted: a positive number such as 1e-6")
     check_integer("max_iter", max_iter, 1)
@@ -162,10 +238,83 @@ def jax_params(checked: Mapping[str, float]) -> dict:
     return {k: jnp.asarray(v, float) for k, v in checked.items()}
 
 
-def as_key(seed) -> jax.Array:
-    """A JAX PRNG key from an integer seed (or a key, returned as it is)."""
+def check_seed(seed, count: int = 1) -> int:
+    """``seed`` as an int if it is an integer in [0, MAX_SEED]; ``count`` seeds ``seed .. seed +
+    count - 1`` are used (several fits or runs), so the last must be a seed too."""
+    accepted = f"accepted: an integer from 0 to 2**63 - 1 = {MAX_SEED}, or a JAX PRNG key"
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or not 0 <= seed <= MAX_SEED:
+        raise SmleInputError(f"seed = {describe(seed)} is not accepted; {accepted}")
+    if seed > MAX_SEED - (count - 1):
+        raise SmleInputError(f"seed = {seed} is not accepted: seeds {seed} to {seed} + {count - 1} are used (one per "
+                             f"run) and the last must be a seed too; accepted: an integer from 0 to "
+                             f"{MAX_SEED - (count - 1)}")
+    return int(seed)
+
+
+def as_key(seed, count: int = 1) -> jax.Array:
+    """A JAX PRNG key from an integer seed (or a key, returned as it is); see :func:`check_seed`."""
     if isinstance(seed, (jax.Array, np.ndarray)) and jnp.issubdtype(jnp.asarray(seed).dtype, jnp.unsignedinteger):
         return jnp.asarray(seed)
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise SmleInputError(f"seed = {seed!r} is not accepted; accepted: a non-negative integer or a JAX PRNG key")
-    return jax.random.PRNGKey(int(seed))
+    return jax.random.PRNGKey(check_seed(seed, count))
+
+
+def check_periods(model: Model, n_periods) -> int:
+    """The number of periods to simulate from ``model``: an integer >= 1 whose arrays fit in memory."""
+    n_periods = check_integer("n_periods", n_periods, 1)
+    values = model.n_series + max(model.state_dim, 1)
+    check_memory("simulate", memory_needed("simulate", n_periods, 1, values), f"{n_periods} periods", "n_periods", n_periods)
+    return n_periods
+
+
+def memory_needed(purpose: str, n_periods: int, n_paths: int, width: int) -> int:
+    """Estimated peak memory in bytes of a run: ``BYTES_PER_VALUE[purpose]`` per period, path
+    and value per path (the state dimension; for ``simulate``, series plus state components; for
+    ``filter``, per particle, with ``n_periods`` and ``width`` 1)."""
+    return BYTES_PER_VALUE[purpose] * int(n_periods) * int(n_paths) * int(width)
+
+
+def available_memory() -> tuple[int, str]:
+    """Memory this process can still use, in bytes, and where the figure comes from: the least of
+    MemAvailable (/proc/meminfo) and a cgroup (v2) memory limit; else free, or else total,
+    physical pages (sysconf); else :data:`FALLBACK_MEMORY`."""
+    found = []
+    try:
+        with open("/proc/meminfo") as meminfo:
+            for line in meminfo:
+                if line.startswith("MemAvailable:"):
+                    found.append((int(line.split()[1]) * 1024, "MemAvailable in /proc/meminfo"))
+    except (OSError, ValueError, IndexError):
+        pass
+    try:  # the container's limit (its usage is not subtracted: it counts page cache that can be freed)
+        with open("/sys/fs/cgroup/memory.max") as limit:
+            found.append((int(limit.read()), "the cgroup memory limit"))
+    except (OSError, ValueError):  # no cgroup v2, or no limit ("max")
+        pass
+    for pages, source in (("SC_AVPHYS_PAGES", "free physical pages"), ("SC_PHYS_PAGES", "total physical memory")):
+        if found:
+            break
+        try:
+            found.append((os.sysconf(pages) * os.sysconf("SC_PAGE_SIZE"), source))
+        except (OSError, ValueError, AttributeError):  # not every system has both names
+            pass
+    return min(found) if found else (FALLBACK_MEMORY, "a fixed cap (the system does not report its free memory)")
+
+
+def check_memory(purpose: str, needed: int, sizes: str, argument: str, value: int) -> None:
+    """Refuse a run whose estimated memory ``needed`` (bytes) exceeds what is available, before
+    anything is allocated; the message gives both figures and the sizes that drive it."""
+    available, source = available_memory()
+    if needed > available:
+        raise SmleInputError(
+            f"{argument} = {value} is too large: {purpose} with {sizes} needs about {_bytes_text(needed)} of memory and {_bytes_text(available)} is "
+            f"available ({source}); accepted: a smaller {argument}"
+            f"{' or shorter data' if purpose in ('loglik', 'fit') else ''} whose memory fits "
+            f"(about {BYTES_PER_VALUE[purpose]} bytes {_MEMORY_UNITS.get(purpose, _MEMORY_UNITS['loglik'])})")
+
+
+_MEMORY_UNITS = {"loglik": "per period, path and state dimension", "simulate": "per period and simulated value",
+                 "filter": "per particle"}
+
+
+def _bytes_text(n_bytes: int) -> str:
+    return f"{n_bytes / 2**30:.3g} GiB" if n_bytes >= 2**30 else f"{n_bytes / 2**20:.3g} MiB"

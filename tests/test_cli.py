@@ -115,3 +115,66 @@ def test_prepare_turns_demo_intraday_bars_into_a_daily_table(tmp_path, capsys):
     # daily returns equal the log change of the demo's daily closes (in percent)
     closes = scenario.daily["close"].to_numpy()
     np.testing.assert_allclose(table["return_pct"].to_numpy(), 100 * np.diff(np.log(closes)), atol=1e-6)
+
+
+# -- issue 18, bad input on the command line: each stops with exit code 2 and names what is wrong --
+
+def test_a_report_folder_that_is_a_file_is_refused_before_fitting(returns_csv, tmp_path, capsys):
+    path, _ = returns_csv
+    existing = tmp_path / "notes.txt"
+    existing.write_text("a file, not a folder")
+    for report, message in ((existing, f"--report '{existing}' is an existing file, not a folder"),
+                            (existing / "report", f"'{existing}' is a file, so no folder can be made inside it")):
+        assert cli.main(["fit", str(path), "--quiet", "--report", str(report)]) == 2
+        assert message in capsys.readouterr().err
+    assert existing.read_text() == "a file, not a folder"
+
+
+@pytest.mark.parametrize("days", ["0", "-5", "10"])
+def test_demo_with_too_few_days_names_the_flag(days, tmp_path, capsys):
+    assert cli.main(["demo", "--days", days, "--quiet", "--report", str(tmp_path / "demo")]) == 2
+    assert f"--days {days} is not accepted; accepted: a whole number of days >= 11" in capsys.readouterr().err
+    assert not (tmp_path / "demo").exists()  # refused before any data was written
+
+
+def test_text_in_the_only_numeric_column_is_named_with_its_value(returns_csv, tmp_path, capsys):
+    _, frame = returns_csv
+    text = frame.copy().astype({"ret": object})
+    text.loc[7, "ret"] = "n/a?"
+    dated, plain = tmp_path / "dated.csv", tmp_path / "plain.csv"
+    text.to_csv(dated, index=False)
+    text[["ret"]].to_csv(plain, index=False)
+    # before: "has no numeric column" (the text cell made pandas read the whole column as text)
+    assert cli.main(["fit", str(dated), "--quiet"]) == 2
+    assert "line 9 of dated.csv; date 2031-01-15): ret = 'n/a?' is text, not a number" in capsys.readouterr().err
+    assert cli.main(["fit", str(plain), "--quiet"]) == 2
+    assert "column 'ret' of" in (err := capsys.readouterr().err) and "the first 'n/a?', at file line(s) [9]" in err
+
+
+def test_a_damaged_result_file_is_named_by_diagnose_and_check(returns_csv, tmp_path, capsys):
+    path, _ = returns_csv
+    damaged = tmp_path / "result.json"
+    damaged.write_text('{"format": "smle.fit/1", "model": "sv", "params": {"mu": ')
+    assert cli.main(["diagnose", str(damaged)]) == 2
+    assert f"result file: file '{damaged}' is not complete JSON" in capsys.readouterr().err
+    assert cli.main(["check", str(path), "--from-fit", str(damaged)]) == 2
+    assert f"--from-fit: file '{damaged}' is not complete JSON" in capsys.readouterr().err
+
+
+def test_check_refuses_prices_without_the_prices_flag(returns_csv, tmp_path, capsys):
+    _, frame = returns_csv
+    prices = pd.DataFrame({"date": frame["date"], "close": 50 * np.exp(np.cumsum(frame["ret"].to_numpy() / 100))})
+    price_path = tmp_path / "prices.csv"
+    prices.to_csv(price_path, index=False)
+    assert cli.main(["check", str(price_path), "--params", "mu=0,phi=0.95,sigma_eta=0.26", "--quiet"]) == 2
+    assert "y looks like prices, not returns" in capsys.readouterr().err
+
+
+def test_prepare_output_inside_a_file_says_so(tmp_path, capsys):
+    from smle.data import demo_scenario
+
+    scenario = demo_scenario(seed=3, n_days=3, folder=tmp_path)
+    blocker = tmp_path / "blocker"
+    blocker.write_text("")
+    assert cli.main(["prepare", str(scenario.files["daily"]), "--output", str(blocker / "daily.csv")]) == 2
+    assert f"'{blocker}' is a file, not a folder" in capsys.readouterr().err

@@ -1,5 +1,7 @@
 """Bad input gets a clear error that names the argument, the value and what is accepted."""
 
+import re
+
 import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
@@ -113,4 +115,150 @@ def test_joint_constraints_are_checked_everywhere(returns):
                  lambda: smle.simulate(model, params, 50),
                  lambda: smle.fit(model, returns, start=params)):
         with pytest.raises(SmleInputError, match=r"alpha'\] \+ params\['beta'\] = 0.5 \+ 0.6 .* alpha \+ beta < 1"):
+            call()
+
+
+# -- issue 18, bad input: seeds, sizes beyond memory, damaged result files, complex or text y, prices --
+
+def _entry_points(y, seed=0):
+    """The public entry points that take observations and a seed, as calls (smallest settings)."""
+    return {
+        "loglik": lambda: smle.loglik("sv", SV, y, n_draws=4, seed=seed),
+        "fit": lambda: smle.fit("sv", y, n_draws=4, seed=seed, max_steps=1),
+        "filter_factor": lambda: smle.filter_factor("sv", SV, y, n_particles=100, seed=seed),
+        "check": lambda: smle.check("sv", SV, y, n_draws=4, seed=seed, draws_grid=None),
+    }
+
+
+@pytest.mark.parametrize("seed", [2**70, 2**63, -1, 1.5, "3", np.int64(-2)])
+def test_a_seed_outside_0_to_2_63_is_refused_everywhere(returns, seed):
+    calls = {**_entry_points(returns, seed), "simulate": lambda: smle.simulate("sv", SV, 20, seed=seed)}
+    for name, call in calls.items():
+        with pytest.raises(SmleInputError, match=r"seed = .* is not accepted; accepted: an integer from 0 to "
+                                                 r"2\*\*63 - 1 = 9223372036854775807"):
+            call()
+
+
+def test_the_largest_seed_is_accepted_and_the_seeds_of_several_runs_must_fit(returns):
+    assert np.isfinite(smle.loglik("sv", SV, returns, n_draws=4, seed=2**63 - 1).value)
+    with pytest.raises(SmleInputError, match=r"seeds 9223372036854775806 to 9223372036854775806 \+ 2 are used"):
+        smle.fit("sv", returns, n_draws=4, seed=2**63 - 2, n_seeds=3)
+    with pytest.raises(SmleInputError, match=r"accepted: an integer from 0 to 9223372036854775805"):
+        smle.check("sv", SV, returns, n_draws=4, n_seeds=3, seed=2**63 - 2, draws_grid=None)
+
+
+@pytest.fixture
+def no_engine(monkeypatch):
+    """Fail at once, instead of allocating, if a run gets past its input checks to the engine."""
+    import importlib
+
+    health, fit, likelihood = (importlib.import_module(f"smle.{name}") for name in ("diagnostics.health", "fit",
+                                                                                    "likelihood"))
+
+    def reached(*args, **kwargs):
+        raise AssertionError("the run reached the engine: its size was not refused")
+
+    filtering = importlib.import_module("smle.diagnostics.filtering")
+    for module, name in ((likelihood, "eis_entry"), (likelihood, "_simulate_jit"), (fit, "_fit_one"),
+                         (health, "_seed_run"), (filtering, "compiled_filter")):
+        monkeypatch.setattr(module, name, reached)
+
+
+def test_sizes_beyond_the_machine_are_refused_before_allocating(returns, no_engine):
+    # 2**31 draws need terabytes (about 40 bytes per period and path, times two draw sets), so no
+    # machine runs them; before the check these hung or died in the runtime's allocator.
+    for call in (lambda: smle.loglik("sv", SV, returns, n_draws=2**31),
+                 lambda: smle.fit("sv", returns, n_draws=2**31),
+                 lambda: smle.check("sv", SV, returns, n_draws=2**31, draws_grid=None)):
+        with pytest.raises(SmleInputError, match=r"n_draws = 2147483648 is too large: .* needs about .* GiB of memory "
+                                                 r"and .* is available"):
+            call()
+    with pytest.raises(SmleInputError, match=r"n_periods = 100000000000 is too large: simulate .* GiB"):
+        smle.simulate("sv", SV, 10**11)
+    long = np.tile(returns, 25_000)  # T = 10**6 periods: 10**4 draws of it need about 745 GiB
+    with pytest.raises(SmleInputError, match=r"T = 1000000 periods x \(10000 fitting \+ 10000 scoring draws\)"):
+        smle.loglik("sv", SV, long, n_draws=10**4)
+
+
+def test_particles_and_study_designs_beyond_the_machine_are_refused(returns, no_engine):
+    from smle.study.spec import Design, Estimator, check_design
+
+    with pytest.raises(SmleInputError, match=r"n_particles = 100000000000 is too large: filter with 100000000000 "
+                                             r"particles needs about .* GiB"):
+        smle.filter_factor("sv", SV, returns, n_particles=10**11)
+    with pytest.raises(SmleInputError, match=r"design 'huge': n_draws = 1000000000 is too large: fit with T = 2000"):
+        check_design(Design("huge", "sv", SV, 2000, 1, Estimator(n_draws=10**9)))
+
+
+@pytest.mark.parametrize("n_draws, needed", [(10**4, "30.5 MiB"), (10**7, "29.8 GiB")])
+def test_the_memory_estimate_against_a_fixed_cap(returns, monkeypatch, no_engine, n_draws, needed):
+    from smle import validation
+
+    monkeypatch.setattr(validation, "available_memory", lambda: (2**20, "a cap set by this test"))
+    # 40 bytes x T = 40 x (n_draws fitting + n_draws scoring paths): 10**4 draws need 3.2e7 bytes
+    with pytest.raises(SmleInputError, match=rf"needs about {needed} of memory and 1 MiB is available "
+                                             r"\(a cap set by this test\)"):
+        smle.loglik("sv", SV, returns, n_draws=n_draws)
+    with pytest.raises(AssertionError, match="reached the engine"):  # a small run goes on to the engine
+        smle.loglik("sv", SV, returns, n_draws=4)
+
+
+def test_available_memory_falls_back_to_a_fixed_cap(monkeypatch):
+    from smle import validation
+
+    available, source = validation.available_memory()
+    assert available > 0 and source
+    monkeypatch.setattr(validation, "open", lambda *a, **k: (_ for _ in ()).throw(OSError("none")), raising=False)
+    monkeypatch.setattr(validation.os, "sysconf", lambda name: (_ for _ in ()).throw(ValueError(name)))
+    assert validation.available_memory() == (validation.FALLBACK_MEMORY, "a fixed cap (the system does not report "
+                                                                         "its free memory)")
+
+
+@pytest.mark.parametrize("content, message", [
+    ('{"format": "smle.fit/1", "model": "sv", "param_names": ["mu", ', r"is not complete JSON \(.* line 1 column"),
+    ("hello, not JSON\n", "is not complete JSON"),
+    ("", "is not complete JSON"),
+    ('{"format": "other/2", "rows": []}', r"is not a fit result .*: not an smle fit result"),
+    ("[1, 2, 3]", "it holds a JSON list, not an object"),
+    ('{"format": "smle.fit/1", "model": "sv"}', "the entry 'covariance' is missing"),
+    (bytes(range(256)), r"is not text \(binary content\)"),
+])
+def test_a_damaged_or_foreign_result_file_is_named(tmp_path, content, message):
+    path = tmp_path / "result.json"
+    path.write_bytes(content if isinstance(content, bytes) else content.encode())
+    with pytest.raises(SmleInputError, match=rf"file '{re.escape(str(path))}' .*{message}"):
+        smle.FitResult.from_json(path)
+
+
+def test_a_missing_result_file_or_a_folder_is_named(tmp_path):
+    with pytest.raises(SmleInputError, match=rf"file '{tmp_path / 'none.json'}' does not exist; accepted: a fit result"):
+        smle.FitResult.from_json(tmp_path / "none.json")
+    with pytest.raises(SmleInputError, match=rf"file '{tmp_path}' is a folder"):
+        smle.FitResult.from_json(tmp_path)
+
+
+@pytest.mark.parametrize("kind, convert, message", [
+    ("complex", lambda y: y + 0.1j, r"not complex numbers: np.complex128\(.*\) at position 0"),
+    ("complex, zero imaginary", lambda y: y.astype(complex), "not complex numbers"),
+    ("numeric text", lambda y: y.astype(str), r"not text: np.str_\('.*'\) at position 0 \(40 value"),
+    ("a word among numbers", lambda y: [*y[:-1], "n/a"], r"not text: np.str_\('n/a'\) at position 39 .* 1 not readable"),
+    ("objects", lambda y: np.array([*y[:-1], {"a": 1}], dtype=object), r"not dict: \{'a': 1\} at position 39"),
+])
+def test_complex_or_text_observations_are_refused_everywhere(returns, kind, convert, message):
+    # before the check a float conversion dropped imaginary parts and read numeric text silently
+    for name, call in _entry_points(convert(returns)).items():
+        with pytest.raises(SmleInputError, match=rf"y must be numeric observations, {message}"):
+            call()
+
+
+def test_numbers_held_as_objects_are_still_accepted(returns):
+    as_objects = np.array(list(returns), dtype=object)
+    assert smle.loglik("sv", SV, as_objects, n_draws=4).value == smle.loglik("sv", SV, returns, n_draws=4).value
+
+
+def test_prices_are_refused_by_every_entry_point_with_one_message(returns):
+    prices = 100.0 * np.exp(np.cumsum(returns / 100.0))
+    for name, call in _entry_points(prices).items():
+        with pytest.raises(SmleInputError, match=r"y looks like prices, not returns \(all positive, lag-1 "
+                                                 r"autocorrelation 0\.\d+\); model 'sv' expects returns"):
             call()

@@ -19,8 +19,9 @@ import tempfile
 from pathlib import Path
 
 
-from smle.cli.shared import (add_column_options, add_fix_option, add_option_flag, describe_options,
-                             model_from_args, parse_fixed, parse_model_spec, read_observations, read_saved_fit, say)
+from smle.cli.shared import (add_column_options, add_fix_option, add_option_flag, check_report_folder,
+                             describe_options, model_from_args, parse_fixed, parse_model_spec, read_observations,
+                             read_saved_fit, say)
 from smle.errors import SmleInputError
 
 
@@ -128,6 +129,11 @@ def _command_demo(args) -> int:
     from smle.cli.observations import Observations, unit_of
     from smle.data import demo_scenario, prepare_from_daily
 
+    model, held = _model_and_held(args)
+    if args.days < model.min_periods + 1:  # one return per day after the first
+        raise SmleInputError(f"--days {args.days} is not accepted; accepted: a whole number of days >= "
+                             f"{model.min_periods + 1} (model '{model.name}' needs {model.min_periods} daily returns "
+                             "and the first day gives none); the default is 750")
     folder = Path(args.report or tempfile.mkdtemp(prefix="smle-demo-"))
     scenario = demo_scenario(seed=args.seed, n_days=args.days, folder=folder / "data")
     daily = prepare_from_daily(scenario.daily)
@@ -140,7 +146,6 @@ def _command_demo(args) -> int:
               "prices": True}
     observations = Observations(y, list(daily.index.strftime("%Y-%m-%d")), "daily return (percent, demo data)",
                                 source)
-    model, held = _model_and_held(args)
     status = _fit_and_report(model, observations, args, held)
     if model.state_dim == 1 and args.method != "eis":
         _demo_simulated_against_exact(model, observations, args, held)
@@ -275,6 +280,8 @@ def main(argv=None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
+        if getattr(args, "report", None):
+            check_report_folder(args.report)
         return args.handler(args)
     except SmleInputError as error:
         print(f"smle: error: {error}", file=sys.stderr)

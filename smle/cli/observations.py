@@ -71,6 +71,21 @@ def _numeric_columns(frame, key) -> list[str]:
             and str(c).strip().lower() not in _INDEX_NAMES]
 
 
+def _numbers_with_text(frame, key) -> list[str]:
+    """Text columns that are numbers but for a few cells (more than half of the filled cells read as
+    numbers): read as the data, so that the readers name each bad cell and its line."""
+    import pandas as pd
+
+    found = []
+    for c in frame.columns:
+        if c == key or pd.api.types.is_numeric_dtype(frame[c]) or str(c).strip().lower() in _INDEX_NAMES:
+            continue
+        filled = frame[c].dropna()
+        if len(filled) and pd.to_numeric(filled, errors="coerce").notna().mean() > 0.5:
+            found.append(c)
+    return found
+
+
 def _prepared_columns(frame, n_series: int) -> list[str] | None:
     """The return (and realized-measure) columns of a table written by ``smle prepare``, or None."""
     returns = [c for c in _RETURN_COLUMNS if c in frame.columns]
@@ -104,7 +119,7 @@ def choose_columns(frame, key, columns, n_series: int, labels, model_name: str, 
         say(f"using column(s) {', '.join(prepared)} of the prepared table {Path(path).name} "
             f"as {wanted} (choose others with --column)")
         return prepared
-    numeric = _numeric_columns(frame, key)
+    numeric = _numeric_columns(frame, key) or _numbers_with_text(frame, key)
     if len(numeric) == n_series:
         return numeric
     if not numeric:
@@ -126,7 +141,10 @@ def _plain_columns(frame, chosen, drop_missing: bool, path):
         bad_text = block[column].isna() & frame[column].notna()
         if bad_text.any():
             rows = [int(r) + 2 for r in np.flatnonzero(bad_text.to_numpy())[:5]]
-            raise SmleInputError(f"column {column!r} of {str(path)!r} has non-numeric values at file line(s) {rows}")
+            first = frame[column][bad_text].iloc[0]
+            raise SmleInputError(f"column {column!r} of {str(path)!r} has {int(bad_text.sum())} non-numeric value(s), "
+                                 f"the first {str(first)!r}, at file line(s) {rows}; accepted: numbers only (fix "
+                                 "or delete those cells)")
     missing = block.isna().any(axis=1).to_numpy()
     if missing.any():
         rows = [int(r) + 2 for r in np.flatnonzero(missing)[:10]]

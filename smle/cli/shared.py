@@ -10,20 +10,40 @@ from smle.cli.observations import Observations, read_observations, say
 from smle.cli.options import add_option_flag, describe_options, model_from_args
 from smle.errors import SmleInputError
 
-__all__ = ["Observations", "add_column_options", "add_fix_option", "add_option_flag", "describe_options",
-           "model_from_args", "parse_fixed", "parse_model_spec", "read_observations", "read_saved_fit", "say"]
+__all__ = ["Observations", "add_column_options", "add_fix_option", "add_option_flag", "check_report_folder",
+           "describe_options", "model_from_args", "parse_fixed", "parse_model_spec", "read_observations",
+           "read_saved_fit", "say"]
 
 
 def read_saved_fit(path: str, argument: str):
     """A :class:`~smle.FitResult` from its JSON file, or an error naming ``argument`` and the file."""
+    from pathlib import Path
+
     import smle
 
     try:
-        return smle.FitResult.from_json(path)
-    except FileNotFoundError:
-        raise SmleInputError(f"{argument} {path!r} does not exist") from None
-    except (ValueError, KeyError, TypeError) as error:
-        raise SmleInputError(f"{argument} {path!r} is not a fit saved by 'smle fit --report' ({error})") from None
+        return smle.FitResult.from_json(Path(path))
+    except SmleInputError as error:  # it names the file and what is wrong
+        raise SmleInputError(f"{argument}: {error}; 'smle fit --report' writes one (result.json)") from None
+
+
+def check_report_folder(path: str, argument: str = "--report") -> None:
+    """Refuse, before any work, a report folder that cannot be made: an existing file, a path
+    inside a file, or a place without write permission. A missing folder is fine: the writers
+    create it with its parents."""
+    import os
+    from pathlib import Path
+
+    folder = Path(path)
+    accepted = "accepted: a folder (created, with its parents, if missing; the report's files in it are replaced)"
+    if folder.exists() and not folder.is_dir():
+        raise SmleInputError(f"{argument} {path!r} is an existing file, not a folder; {accepted}")
+    existing = next(p for p in (folder.absolute(), *folder.absolute().parents) if p.exists())
+    if not existing.is_dir():
+        raise SmleInputError(f"{argument} {path!r}: {str(existing)!r} is a file, so no folder can be made "
+                             f"inside it; {accepted}")
+    if not os.access(existing, os.W_OK | os.X_OK):
+        raise SmleInputError(f"{argument} {path!r}: no permission to write in {str(existing)!r}; {accepted}")
 
 
 def add_column_options(parser, which: str = "") -> None:

@@ -46,6 +46,9 @@ def writable(path, argument: str) -> Path:
     if path.is_dir():
         raise SmleInputError(f"{argument}={str(path)!r} is a directory; give a file path such "
                              f"as {str(path / 'daily.csv')!r}")
+    if path.parent.exists() and not path.parent.is_dir():
+        raise SmleInputError(f"{argument}={str(path)!r}: {str(path.parent)!r} is a file, not a folder; give a "
+                             "path in an existing folder")
     if not path.parent.is_dir():
         raise SmleInputError(f"{argument}={str(path)!r}: the folder {str(path.parent)!r} does "
                              f"not exist; create it first")

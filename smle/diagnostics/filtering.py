@@ -59,7 +59,8 @@ from smle.errors import SmleInputError
 from smle.engine.posterior import weighted_quantiles
 from smle.diagnostics.filtering_exact import exact_factor
 from smle.exact_likelihood import EXACT_TOL, check_exact_tol, resolve_method
-from smle.validation import as_key, check_integer, checked_inputs, jax_params, require_scalar_state
+from smle.validation import (as_key, check_integer, check_memory, checked_inputs, jax_params, memory_needed,
+                             require_scalar_state)
 from smle.models import Model
 
 MIN_PARTICLES = 100
@@ -276,6 +277,8 @@ class FilterResult:
 def check_filter_settings(n_particles, resample_threshold) -> tuple[int, float]:
     """Validate the filter's settings; return them as (int, float)."""
     check_integer("n_particles", n_particles, MIN_PARTICLES, "2000 is a good default")
+    check_memory("filter", memory_needed("filter", 1, n_particles, 1), f"{n_particles} particles", "n_particles",
+                 n_particles)
     if isinstance(resample_threshold, bool) or not isinstance(resample_threshold, (int, float)) \
             or not 0.0 < resample_threshold <= 1.0:
         raise SmleInputError(

@@ -56,7 +56,8 @@ from smle.errors import SmleInputError, describe
 from smle.likelihood import LoglikResult, loglik
 from smle.models.base import model_options
 from smle.validation import (
-    MIN_DRAWS, check_control, check_integer, check_settings, checked_inputs, jax_params, require_scalar_state,
+    MIN_DRAWS, check_control, check_integer, check_seed, check_settings, checked_inputs, jax_params,
+    require_scalar_state,
 )
 
 # ---------------------------------------------------------------------------------------------
@@ -167,14 +168,14 @@ def _checked_arguments(model, params, y, n_draws, n_seeds, seed, tail_draws, dra
     require_scalar_state(resolved, "smle.check")
     settings = check_settings(n_draws, antithetic, tol, max_iter)
     n_seeds = check_integer("n_seeds", n_seeds, MIN_SEEDS, "independent seeds for the spread; 20 or more is better")
-    seed = check_integer("seed", seed, 0, "the base seed")
+    seed = check_seed(seed, n_seeds)
     tail_draws = check_integer(
         "tail_draws", tail_draws, MIN_TAIL_DRAWS,
         f"scoring draws for the Pareto tail fit; {FULL_TAIL_DRAWS} for the tests down to the largest 1%",
         even=antithetic)
     check_control(resolved, control_variates)
-    check_settings(n_draws, antithetic, tol, max_iter, tail_draws)
     grid = _check_grid(draws_grid, antithetic)
+    check_settings(max((settings.n_draws, *grid)), antithetic, tol, max_iter, tail_draws, resolved, y_array.shape[0])
     if not 0.0 < level < 1.0:
         raise SmleInputError(f"level = {describe(level)} is not accepted; accepted: a significance level in (0, 1)")
     labels = _resolve_dates(y, dates, y_array.shape[0])

@@ -52,7 +52,7 @@ def check_design(design):
     replications = _check_int(where, "replications", design.replications, 1)
     e = design.estimator
     try:
-        check_settings(e.n_draws, e.antithetic, e.tol, e.max_iter)
+        check_settings(e.n_draws, e.antithetic, e.tol, e.max_iter, None, model, n_periods, "fit")
     except SmleInputError as error:
         raise SmleInputError(f"{where}: {error}") from None
     _check_int(where, "n_seeds", e.n_seeds, 1)
