@@ -209,16 +209,18 @@ def loglik(
     warn_unused_settings(model, resolved, dict(n_draws=n_draws, seed=seed, antithetic=antithetic, tol=tol,
                                                max_iter=max_iter, n_score_draws=n_score_draws,
                                                control_variates=control_variates), _EIS_DEFAULTS)
-    if resolved == "closed form":
-        return _closed_form_loglik(model, checked, y)
-    if resolved == "exact":
-        return _exact_loglik(model, checked, y, check_exact_tol(exact_tol))
+    # every argument is checked whichever method runs: a bad value is refused, not ignored
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws, model, y.shape[0])
-    control = check_control(model, control_variates, cv_coefficient)
-    check_state_settings(model, settings)
     key = as_key(seed)
     if on_breakdown not in ("raise", "return"):
         raise SmleInputError(f"on_breakdown = {on_breakdown!r} is not accepted; accepted: 'raise' or 'return'")
+    exact_tol = check_exact_tol(exact_tol)
+    if resolved == "closed form":
+        return _closed_form_loglik(model, checked, y)
+    if resolved == "exact":
+        return _exact_loglik(model, checked, y, exact_tol)
+    control = check_control(model, control_variates, cv_coefficient)
+    check_state_settings(model, settings)
     if on_breakdown == "return":
         out, diagnostics, extra = eis_entry(model, settings, control)(jax_params(checked), jnp.asarray(y), key)
         repairs = ()

@@ -103,8 +103,28 @@ def test_admissible_parameters_never_give_a_nan(returns, phi, sigma_eta, mu, zer
     # any admissible point, with some exact zero returns, yields a finite estimate and NSE
     y = returns.copy()
     y[:zeros] = 0.0
-    result = smle.loglik("sv", dict(mu=mu, phi=phi, sigma_eta=sigma_eta), y, n_draws=4)
+    result = smle.loglik("sv", dict(mu=mu, phi=phi, sigma_eta=sigma_eta), y, n_draws=4, method="eis")
     assert np.isfinite(result.value) and np.isfinite(result.nse)
+
+
+@settings(max_examples=25, deadline=None, derandomize=True)  # the same examples on every run: CI must not be flaky
+@given(
+    phi=st.floats(-0.999, 0.999),
+    sigma_eta=st.floats(0.01, 3.0),
+    mu=st.floats(-12.0, 5.0),
+    zeros=st.integers(0, 40),
+)
+def test_admissible_parameters_give_an_exact_value_or_say_the_accuracy_reached(returns, phi, sigma_eta, mu, zeros):
+    # the exact method at any admissible point: a finite value with an error bound within its
+    # tolerance, or a clear refusal that gives the accuracy the largest grid reached
+    y = returns.copy()
+    y[:zeros] = 0.0
+    try:
+        result = smle.loglik("sv", dict(mu=mu, phi=phi, sigma_eta=sigma_eta), y)
+    except SmleInputError as error:
+        assert "the exact grid reached an accuracy of" in str(error)
+    else:
+        assert np.isfinite(result.value) and result.error_bound <= 1e-6
 
 
 def test_joint_constraints_are_checked_everywhere(returns):
@@ -200,7 +220,7 @@ def test_the_memory_estimate_against_a_fixed_cap(returns, monkeypatch, no_engine
                                              r"\(a cap set by this test\)"):
         smle.loglik("sv", SV, returns, n_draws=n_draws)
     with pytest.raises(AssertionError, match="reached the engine"):  # a small run goes on to the engine
-        smle.loglik("sv", SV, returns, n_draws=4)
+        smle.loglik("sv", SV, returns, n_draws=4, method="eis")
 
 
 def test_available_memory_falls_back_to_a_fixed_cap(monkeypatch):
