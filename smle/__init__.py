@@ -37,6 +37,8 @@ _PUBLIC = {
     "check": "smle.diagnostics.health",
     "Comparison": "smle.decision.compare",
     "compare": "smle.decision.compare",
+    "Forecast": "smle.decision.forecast",
+    "forecast": "smle.decision.forecast",
 }
 
 
@@ -81,6 +83,8 @@ __all__ = [
     "diagnose",
     "filter_factor",
     "fit",
+    "Forecast",
+    "forecast",
     "LoglikResult",
     "Model",
     "SmleInputError",

@@ -60,6 +60,8 @@ state-space methods ``loglik_closed_form(params, y)`` (the exact log-likelihood,
 * ``factor_display(params, x)``: the quantity figures show for the factor (default: x itself).
 * ``gaussian_measurement(params)``: for a linear Gaussian model, ``y_t = x_t + N(0, v)``, the
   variance ``v``; the exact method then runs the Kalman filter (default None: not linear Gaussian).
+* ``simulate_ahead(params, y, x_last, n_periods, key)``: paths beyond the end of the data ``y``
+  from draws ``x_last`` (S,) of the state at T (``smle.forecast``); default: a clear error.
 
 The engine knows nothing about any particular model.
 """
@@ -76,6 +78,7 @@ import numpy as np
 
 from smle.engine.latent import LatentAR1
 from smle.engine.latent_var import LatentVAR1
+from smle.errors import SmleInputError
 from smle.params import Constraint
 
 
@@ -128,6 +131,14 @@ class Model:
         raise NotImplementedError
 
     # -- optional hooks ----------------------------------------------------------------------
+    def simulate_ahead(self, params: Mapping, y: jax.Array, x_last: jax.Array, n_periods: int, key: jax.Array):
+        """``(returns, variance, x)``, each (n_periods, S): the first observed series, its variance
+        about the conditional mean given the period's state, and the state, for periods T+1..T+n
+        after the data ``y``, one path per start ``x_last[s]`` (draws of x_T; ignored without a
+        latent state, where ``x`` is None). Used by :func:`smle.forecast`."""
+        raise SmleInputError(f"model '{self.name}' does not simulate beyond the data (no simulate_ahead hook), "
+                             "so it has no forecasts; accepted: a model that defines simulate_ahead")
+
     def gaussian_measurement(self, params: Mapping):
         """The measurement variance v of a linear Gaussian model y_t = x_t + N(0, v), or None."""
         return None
