@@ -9,6 +9,7 @@
     smle check data.csv --params ...  health check of the simulated likelihood (smle/cli/check.py)
     smle diagnose result.json         goodness of fit of a saved fit: PITs, residual tests, figures
     smle compare data.csv --model ... fit several models to the same data: one table, LR tests (cli/compare.py)
+    smle forecast --from-fit r.json   predictive distributions after the data: VaR, ES, fan chart (cli/forecast.py)
 """
 
 from __future__ import annotations
@@ -232,6 +233,9 @@ def build_parser() -> argparse.ArgumentParser:
     from smle.cli.compare import add_compare_command
 
     add_compare_command(commands)
+    from smle.cli.forecast import add_forecast_command
+
+    add_forecast_command(commands)
     return parser
 
 

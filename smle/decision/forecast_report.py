@@ -87,7 +87,7 @@ def fan_chart(forecast, path=None):
 
     steps = np.arange(1, forecast.horizon + 1)
     figure, axes = plt.subplots(3, 1, figsize=(9, 9))
-    history = np.asarray(forecast.history)
+    history = np.asarray(forecast.history)[-max(60, 4 * forecast.horizon):]  # recent enough to see the fan
     past = np.arange(-len(history) + 1, 1)
     axes[0].plot(past, history, color="0.4", lw=0.7, label="observed")
     for axis, quantity, color in zip(axes, ("return", "cumulative return", "variance"),
