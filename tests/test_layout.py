@@ -33,7 +33,7 @@ LAYERS = [
     ("foundation", ["smle._config", "smle.errors", "smle.params", "smle.distributions", "smle.report_text"]),
     ("engine", ["smle.engine"]),
     ("models", ["smle.models"]),
-    ("likelihood", ["smle.validation", "smle.likelihood"]),
+    ("likelihood", ["smle.validation", "smle.exact_likelihood", "smle.likelihood"]),
     ("reference", ["smle.reference"]),
     ("fitting", ["smle.optimizer", "smle.fit", "smle.results", "smle.restricted"]),
     ("diagnostics", ["smle.diagnostics"]),

@@ -49,8 +49,9 @@ import numpy as np
 
 from smle.errors import SmleInputError, describe
 from smle.models import Model, get_model, model_names, saved_model
+from smle.models.base import model_options
 from smle.results import CAUTION, FitResult
-from smle.validation import check_integer, check_observations
+from smle.validation import check_integer, check_observations, checked_params, jax_params
 
 FORMAT = "smle.forecast/1"
 FAN_PROBABILITIES = (0.05, 0.25, 0.5, 0.75, 0.95)
@@ -299,7 +300,21 @@ def forecast(result: FitResult, horizon: int, levels=(0.01, 0.05), n_paths: int 
     if not isinstance(result, FitResult):
         raise SmleInputError(f"result = {describe(result)} is not accepted; accepted: a FitResult (smle.fit, or "
                              "FitResult.from_json of a saved fit)")
-    model = saved_model(result.model, result.model_options)
+    if y is None:
+        if result.observations is None:
+            raise SmleInputError("y = None and the fit result stores no observations; pass the observations to "
+                                 "forecast from")
+        y = result.observations
+    same_data = result.dates is not None and len(result.dates) == np.shape(y)[0]
+    return forecast_at(saved_model(result.model, result.model_options), result.params, y, horizon, levels=levels,
+                       n_paths=n_paths, seed=seed, last_date=result.dates[-1] if same_data else None)
+
+
+def forecast_at(model, params, y, horizon: int, levels=(0.01, 0.05), n_paths: int = 20000, seed: int = 0,
+                last_date: str | None = None) -> Forecast:
+    """:func:`forecast` for a model (name or instance) at given parameters (a mapping by name) after
+    observations ``y``; ``last_date`` labels the last period. Used by backtests and tests."""
+    model = get_model(model)
     check_forecast_model(model)
     horizon = check_integer("horizon", horizon, 1)
     if horizon > MAX_HORIZON:
@@ -307,18 +322,11 @@ def forecast(result: FitResult, horizon: int, levels=(0.01, 0.05), n_paths: int 
     n_paths = check_integer("n_paths", n_paths, MIN_PATHS)
     seed = check_integer("seed", seed, 0)
     levels = _check_levels(levels)
-    if y is None:
-        if result.observations is None:
-            raise SmleInputError("y = None and the fit result stores no observations; pass the observations to "
-                                 "forecast from")
-        y = result.observations
+    checked = checked_params(model, params)
     y = check_observations(model, y)
-    params = {k: jnp.asarray(float(v), float) for k, v in result.params.items()}
-    paths, how = simulate_paths(model, params, y, horizon, n_paths, seed)
+    paths, how = simulate_paths(model, jax_params(checked), y, horizon, n_paths, seed)
     probabilities = tuple(sorted({round(p, 12) for p in (*FAN_PROBABILITIES, *levels, *(1.0 - p for p in levels))}))
     stats = {q: path_statistics(paths[q], probabilities, levels, tails=q != "variance") for q in QUANTITIES}
     first = y if y.ndim == 1 else y[:, 0]
-    same_data = result.dates is not None and len(result.dates) == y.shape[0]
-    return Forecast(result.model, dict(result.model_options), {k: float(v) for k, v in result.params.items()},
-                    int(y.shape[0]), result.dates[-1] if same_data else None, horizon, levels, probabilities,
-                    n_paths, seed, how, stats, np.asarray(first[-HISTORY:], float), paths)
+    return Forecast(model.name, model_options(model), dict(checked), int(y.shape[0]), last_date, horizon, levels,
+                    probabilities, n_paths, seed, how, stats, np.asarray(first[-HISTORY:], float), paths)
