@@ -39,6 +39,8 @@ _PUBLIC = {
     "compare": "smle.decision.compare",
     "Forecast": "smle.decision.forecast",
     "forecast": "smle.decision.forecast",
+    "Backtest": "smle.decision.backtest",
+    "backtest": "smle.decision.backtest",
 }
 
 
@@ -73,11 +75,13 @@ sys.modules[__name__].__class__ = _Package
 
 
 __all__ = [
+    "Backtest",
     "Comparison",
     "Diagnostics",
     "FilterResult",
     "FitResult",
     "HealthReport",
+    "backtest",
     "check",
     "compare",
     "diagnose",

@@ -118,11 +118,16 @@ def test_ar1_noise_forecast_is_the_statsmodels_kalman_forecast(model, ar1_data):
         assert np.max(np.abs(returns["quantiles"][row] - exact) / se) < 4.5, p
 
 
-def test_garch_nig_one_step_var_and_es_are_scipy_norminvgauss(garch_data):
+@pytest.mark.parametrize("name", ["garch", "garch-mix"])
+def test_nig_one_step_var_and_es_are_scipy_norminvgauss(name):
+    # garch with NIG innovations, and garch-mix at rho = 0 (the same law; the mixing state at T,
+    # drawn from the grid filter, then carries no information on period T+1)
     params = {**GARCH, "gamma": -0.5, "lambda": 1.5}
-    model = smle.get_model("garch", innovations="nig")
-    y, _ = smle.simulate(model, params, T, seed=3)
+    y, _ = smle.simulate(smle.get_model("garch", innovations="nig"), params, T, seed=3)
     y = np.asarray(y)
+    model = smle.get_model("garch", innovations="nig") if name == "garch" else smle.get_model("garch-mix")
+    if name == "garch-mix":
+        params = {**params, "rho": 0.0}
     n_paths = 50000
     result = forecast_at(model, params, y, 1, levels=(0.01, 0.05), n_paths=n_paths, seed=1)
     _, h = python_garch(params, y)
@@ -141,6 +146,9 @@ def test_garch_nig_one_step_var_and_es_are_scipy_norminvgauss(garch_data):
         # the stated errors were checked against replications in test_normal_mixture_var_es_and_errors
         assert abs(result.stats["return"]["var"][i][0] - var) < 4.5 * result.stats["return"]["var_se"][i][0]
         assert abs(result.stats["return"]["es"][i][0] - es) < 4.5 * result.stats["return"]["es_se"][i][0]
+    # the variance about m_{T+1} given the state averages h_{T+1} (exactly h_{T+1} for garch)
+    variance = result.stats["variance"]
+    assert abs(variance["mean"][0] - h[-1]) < max(4.5 * variance["mean_se"][0], 1e-10)
 
 
 def _mixture_quantile(p, weights, means, sds):

@@ -266,7 +266,7 @@ def simulate_paths(model: Model, params: dict, y, horizon: int, n_paths: int, se
             "variance": np.asarray(variance)}, how
 
 
-def _check_levels(levels) -> tuple:
+def check_levels(levels) -> tuple:
     try:
         values = tuple(float(p) for p in levels)
     except (TypeError, ValueError):
@@ -321,7 +321,7 @@ def forecast_at(model, params, y, horizon: int, levels=(0.01, 0.05), n_paths: in
         raise SmleInputError(f"horizon = {horizon} is not accepted; accepted: an integer from 1 to {MAX_HORIZON}")
     n_paths = check_integer("n_paths", n_paths, MIN_PATHS)
     seed = check_integer("seed", seed, 0)
-    levels = _check_levels(levels)
+    levels = check_levels(levels)
     checked = checked_params(model, params)
     y = check_observations(model, y)
     paths, how = simulate_paths(model, jax_params(checked), y, horizon, n_paths, seed)
