@@ -96,3 +96,20 @@ def test_backtest_inputs_are_checked(data):
     with pytest.raises(smle.SmleInputError, match="one-dimensional"):
         backtest("var1-noise", np.ones((400, 2)), WINDOW, 50, progress=False)
     assert isinstance(smle.backtest, type(backtest)) and smle.Backtest is Backtest
+
+
+def test_backtest_command(data, tmp_path, capsys):
+    import pandas as pd
+
+    from smle.cli.app import main
+
+    pd.DataFrame({"ret": data[:WINDOW + 20]}).to_csv(tmp_path / "d.csv", index=False)
+    code = main(["backtest", str(tmp_path / "d.csv"), "--model", "garch:ar1=0", "--window", str(WINDOW),
+                 "--refit-every", "10", "--paths", "1000", "--level", "0.05", "--quiet", "--report",
+                 str(tmp_path / "out")])
+    assert code == 0
+    out = capsys.readouterr().out
+    assert "20 one-step forecasts" in out and "Kupiec" in out
+    assert {p.name for p in (tmp_path / "out").iterdir()} == {"backtest.txt", "backtest.json", "backtest.csv",
+                                                              "backtest.png"}
+    assert main(["backtest", str(tmp_path / "d.csv"), "--window", str(WINDOW + 20)]) == 2

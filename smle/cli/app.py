@@ -10,6 +10,7 @@
     smle diagnose result.json         goodness of fit of a saved fit: PITs, residual tests, figures
     smle compare data.csv --model ... fit several models to the same data: one table, LR tests (cli/compare.py)
     smle forecast --from-fit r.json   predictive distributions after the data: VaR, ES, fan chart (cli/forecast.py)
+    smle backtest data.csv --window N rolling one-step forecasts: VaR coverage tests, log scores (cli/backtest.py)
 """
 
 from __future__ import annotations
@@ -236,6 +237,9 @@ def build_parser() -> argparse.ArgumentParser:
     from smle.cli.forecast import add_forecast_command
 
     add_forecast_command(commands)
+    from smle.cli.backtest import add_backtest_command
+
+    add_backtest_command(commands)
     return parser
 
 
