@@ -8,7 +8,6 @@ and out-of-sample log scores; optionally a second model and a Diebold-Mariano co
 from __future__ import annotations
 
 import sys
-from pathlib import Path
 
 _EPILOG = """A model is NAME[:key=value,...] as in 'smle compare' (keys naming a parameter hold it at the
 value). Each forecast period t uses the --window periods before it, re-estimated every
@@ -30,17 +29,8 @@ def _run(text, observations, args, fixed):
                     n_draws=args.draws)
 
 
-def _write(result, folder: Path, stem: str) -> list[str]:
-    names = [f"{stem}.txt", f"{stem}.json", f"{stem}.csv", f"{stem}.png"]
-    (folder / names[0]).write_text(result.summary() + "\n")
-    result.to_json(folder / names[1])
-    result.to_frame().to_csv(folder / names[2])
-    result.figure(folder / names[3])
-    return names
-
-
 def _command_backtest(args) -> int:
-    from smle.cli.shared import parse_fixed, parse_model_spec, read_observations
+    from smle.cli.shared import parse_fixed, parse_model_spec, read_observations, write_result_files
 
     fixed = parse_fixed(args.fix)
     model, _ = parse_model_spec(args.model, fixed)
@@ -56,11 +46,9 @@ def _command_backtest(args) -> int:
               f"DM {test.statistic:.3f}, p-value {test.p_value:.4f} (two-sided, {test.lags} Newey-West lags); mean "
               f"difference {test.mean_difference:+.4f} per period (positive favours {args.model})")
     if args.report:
-        folder = Path(args.report)
-        folder.mkdir(parents=True, exist_ok=True)
         names = [name for result, stem in zip(results, ("backtest", "backtest_against"))
-                 for name in _write(result, folder, stem)]
-        print(f"\nreport written to {folder}/ ({', '.join(names)})")
+                 for name in write_result_files(result, args.report, stem)]
+        print(f"\nreport written to {args.report}/ ({', '.join(names)})")
     return 0 if all(r["converged"] for result in results for r in result.refits) else 3
 
 

@@ -50,6 +50,7 @@ def _fitted(args):
 
 
 def _command_forecast(args) -> int:
+    from smle.cli.shared import write_result_files
     from smle.decision.forecast import forecast
 
     result, y = _fitted(args)
@@ -57,17 +58,11 @@ def _command_forecast(args) -> int:
     outcome = forecast(result, args.horizon, levels=levels, n_paths=args.paths, seed=args.seed, y=y)
     print(outcome.summary())
     if args.report:
-        folder = Path(args.report)
-        folder.mkdir(parents=True, exist_ok=True)
-        names = ["forecast.txt", "forecast.json", "forecast.csv", "forecast.png"]
-        (folder / names[0]).write_text(outcome.summary() + "\n")
-        outcome.to_json(folder / names[1])
-        outcome.to_frame().to_csv(folder / names[2])
-        outcome.figure(folder / names[3])
+        names = write_result_files(outcome, args.report, "forecast")
         if not args.from_fit:
-            result.to_json(folder / "result.json")
+            result.to_json(Path(args.report) / "result.json")
             names.append("result.json")
-        print(f"\nreport written to {folder}/ ({', '.join(names)})")
+        print(f"\nreport written to {args.report}/ ({', '.join(names)})")
     return 0 if result.converged else 3
 
 

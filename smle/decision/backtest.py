@@ -26,16 +26,15 @@ from __future__ import annotations
 
 import dataclasses
 import functools
-import json
 import sys
 import time
-from pathlib import Path
 
 import jax
 import numpy as np
 
 from smle.decision.coverage import (christoffersen_conditional_coverage, christoffersen_independence,
                                     kupiec_unconditional_coverage)
+from smle.decision.report_files import JsonReport
 from smle.decision.forecast import check_forecast_model, check_levels, forecast_at
 from smle.decision.scores import diebold_mariano
 from smle.errors import SmleInputError, describe
@@ -50,7 +49,7 @@ _ARRAYS = ("periods", "realized", "value_at_risk", "var_se", "expected_shortfall
 
 
 @dataclasses.dataclass
-class Backtest:
+class Backtest(JsonReport):
     """The outcome of :func:`backtest`.
 
     Attributes:
@@ -122,12 +121,6 @@ class Backtest:
         out["caution"] = CAUTION
         return out
 
-    def to_json(self, path=None) -> str:
-        text = json.dumps(self.to_dict(), indent=1, allow_nan=True)
-        if path is not None:
-            Path(path).write_text(text)
-        return text
-
     def summary(self) -> str:
         from smle.decision.backtest_report import summary_text
 
@@ -137,9 +130,6 @@ class Backtest:
         from smle.decision.backtest_report import backtest_figure
 
         return backtest_figure(self, path)
-
-    def __str__(self) -> str:
-        return self.summary()
 
 
 @functools.lru_cache(maxsize=None)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from smle import report_text as layout
+from smle.decision.report_files import finish_figure, pyplot
 from smle.results import CAUTION
 
 
@@ -55,12 +56,7 @@ def summary_text(backtest) -> str:
 
 def backtest_figure(backtest, path=None):
     """Realized returns with -VaR at each level and the hits marked; saved to ``path`` if given."""
-    import matplotlib
-
-    if path is not None:
-        matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
-
+    plt = pyplot(path)
     figure, axis = plt.subplots(figsize=(10, 4.5))
     x = backtest.periods
     axis.plot(x, backtest.realized, color="0.4", lw=0.7, label="realized")
@@ -74,9 +70,4 @@ def backtest_figure(backtest, path=None):
     axis.legend(fontsize=7, ncol=2)
     axis.set_title(f"backtest, model {backtest.model}: window {backtest.window}, refit every {backtest.refit_every}",
                    fontsize=10)
-    figure.text(0.01, 0.01, CAUTION, fontsize=6, wrap=True)
-    figure.tight_layout(rect=(0, 0.04, 1, 1))
-    if path is not None:
-        figure.savefig(path, dpi=110)
-        plt.close(figure)
-    return figure
+    return finish_figure(figure, path, 0.04)

@@ -47,6 +47,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
+from smle.decision.report_files import JsonReport
 from smle.errors import SmleInputError, describe
 from smle.models import Model, get_model, model_names, saved_model
 from smle.models.base import model_options
@@ -62,7 +63,7 @@ HISTORY = 250  # observed periods kept for the fan chart
 
 
 @dataclasses.dataclass
-class Forecast:
+class Forecast(JsonReport):
     """The predictive distributions of :func:`forecast`.
 
     Attributes:
@@ -75,6 +76,8 @@ class Forecast:
         for the return quantities also "var", "var_se", "es", "es_se" (len(levels), H)}.
       history: the last observed values of the first series (for the figure).
       paths: the simulated paths, quantity -> (H, n_paths) (kept in memory, not in the JSON).
+
+    ``to_json(path=None)`` writes all but the paths.
     """
 
     model: str
@@ -139,13 +142,6 @@ class Forecast:
         out["caution"] = CAUTION
         return out
 
-    def to_json(self, path=None) -> str:
-        """JSON text (the paths are not included); optionally saved to ``path``."""
-        text = json.dumps(self.to_dict(), indent=1, allow_nan=True)
-        if path is not None:
-            Path(path).write_text(text)
-        return text
-
     @classmethod
     def from_json(cls, text_or_path) -> "Forecast":
         """Read a forecast written by :meth:`to_json` (JSON text or a file path)."""
@@ -171,9 +167,6 @@ class Forecast:
         from smle.decision.forecast_report import fan_chart
 
         return fan_chart(self, path)
-
-    def __str__(self) -> str:
-        return self.summary()
 
 
 # ---------------------------------------------------------------------------------------------

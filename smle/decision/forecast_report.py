@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from smle import report_text as layout
+from smle.decision.report_files import finish_figure, pyplot
 from smle.results import CAUTION
 
 _SHOWN_STEPS = (1, 2, 3, 5, 10, 20, 50, 100, 200, 500, 1000)
@@ -79,12 +80,7 @@ def _fan(axis, steps, part, probabilities, color):
 def fan_chart(forecast, path=None):
     """Three panels: the last observed returns and the return fan with the VaR at each level,
     the cumulative return fan, the variance fan. Saved to ``path`` if given (Agg back-end)."""
-    import matplotlib
-
-    if path is not None:
-        matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
-
+    plt = pyplot(path)
     steps = np.arange(1, forecast.horizon + 1)
     figure, axes = plt.subplots(3, 1, figsize=(9, 9))
     history = np.asarray(forecast.history)[-max(60, 4 * forecast.horizon):]  # recent enough to see the fan
@@ -104,9 +100,4 @@ def fan_chart(forecast, path=None):
     axes[-1].set_xlabel("steps after the last observed period")
     when = f" (last period {forecast.last_date})" if forecast.last_date else ""
     figure.suptitle(f"forecast, model {forecast.model}, {forecast.n_paths} paths{when}", fontsize=11)
-    figure.text(0.01, 0.01, CAUTION, fontsize=6, wrap=True)
-    figure.tight_layout(rect=(0, 0.03, 1, 1))
-    if path is not None:
-        figure.savefig(path, dpi=110)
-        plt.close(figure)
-    return figure
+    return finish_figure(figure, path, 0.03)
