@@ -69,6 +69,19 @@ def test_log_score_is_the_normal_density_at_the_window_garch(normal_backtest, da
         assert abs(b.log_score[step] - stats.norm.logpdf(data[t], mean, np.sqrt(h))) < 1e-9
 
 
+def test_a_start_on_the_boundary_is_not_used(data):
+    # the previous estimate of a stuck fit: omega near 0, alpha + beta near 1. Started there, L-BFGS
+    # stops 2.9 below the maximum and reports convergence (measured); the refit starts afresh.
+    from smle.decision.backtest import _refit
+
+    stuck = {"mu": 0.0, "ar1": 0.0, "omega": 1e-12, "alpha": 0.0246, "beta": 0.9754 - 1e-9}
+    model = smle.get_model("garch")
+    fresh = smle.fit(model, data[:WINDOW], fixed={"ar1": 0.0}, verbose=False)
+    assert fresh.converged
+    refit = _refit(model, data[:WINDOW], stuck, seed=0, fixed={"ar1": 0.0})
+    assert abs(refit.loglik - fresh.loglik) < 1e-6
+
+
 def test_outputs_and_comparison(normal_backtest, data, tmp_path):
     b = normal_backtest
     text = b.summary()

@@ -2,7 +2,8 @@
 
 For each period t after the first ``window`` ones, the model's parameters are those estimated on
 the ``window`` periods before t (re-estimated every ``refit_every`` forecasts, each fit started
-from the previous estimates), and the one-step forecast of period t is formed from those same
+from the previous estimates when that fit converged, and retried from the model's own start
+values when a warm start does not converge), and the one-step forecast of period t is formed from those same
 ``window`` periods, as in :func:`smle.forecast` (horizon 1). Recorded per period:
 
 * the value at risk VaR_p and expected shortfall ES_p at each level p (simulated, with the
@@ -151,6 +152,29 @@ def step_seed(seed: int, step: int) -> int:
     return int(np.random.SeedSequence([seed, step]).generate_state(1)[0])
 
 
+WARM_START_REACH = 8.0
+"""A previous estimate whose unconstrained coordinates exceed this in absolute value (within about
+e^-8 of a boundary of the admissible region) is not used as a start (common practice: a start on
+the boundary can hold the optimiser where the gradient vanishes)."""
+
+
+def _refit(model, y, start, **options):
+    """The fit on one window, warm-started from ``start`` (None: the model's own start values).
+
+    A GARCH estimate with omega near 0 held warm-started fits where the gradient vanishes
+    (measured: 44 of 50 fits of a garch backtest stopped there, and one "converged" 2.9 below the
+    maximum), so a start near the boundary (:data:`WARM_START_REACH`) is not used, and a warm start
+    that does not converge is retried from the model's start values, the higher likelihood kept.
+    """
+    if start is not None and not bool(np.all(np.abs(np.asarray(model.to_real(start))) < WARM_START_REACH)):
+        start = None
+    result = fit(model, y, start=start, verbose=False, **options)
+    if start is None or result.converged:
+        return result
+    cold = fit(model, y, verbose=False, **options)
+    return cold if cold.converged or cold.loglik > result.loglik else result
+
+
 def _reporter(progress):
     if progress is True:
         return lambda message: print(message, file=sys.stderr, flush=True)
@@ -203,7 +227,8 @@ def backtest(model, y, window: int, refit_every: int, levels=(0.01, 0.05), n_pat
     scores, refits, params, began = np.empty(n), [], None, time.perf_counter()
     for step, t in enumerate(periods):
         if step % refit_every == 0:
-            result = fit(model, y[t - window:t], seed=seed, start=params, fixed=fixed, verbose=False, **fit_options)
+            result = _refit(model, y[t - window:t], params if refits and refits[-1]["converged"] else None,
+                            seed=seed, fixed=fixed, **fit_options)
             params = dict(result.params)
             refits.append({"period": int(t), "params": params, "converged": bool(result.converged),
                            "loglik": float(result.loglik)})
