@@ -21,6 +21,8 @@ import tempfile
 from pathlib import Path
 
 
+from smle.cli.backtest import add_backtest_command
+from smle.cli.forecast import add_forecast_command
 from smle.cli.shared import (add_column_options, add_fix_option, add_option_flag, describe_options,
                              model_from_args, parse_fixed, parse_model_spec, read_observations, read_saved_fit, say)
 from smle.errors import SmleInputError
@@ -234,11 +236,7 @@ def build_parser() -> argparse.ArgumentParser:
     from smle.cli.compare import add_compare_command
 
     add_compare_command(commands)
-    from smle.cli.forecast import add_forecast_command
-
     add_forecast_command(commands)
-    from smle.cli.backtest import add_backtest_command
-
     add_backtest_command(commands)
     return parser
 
