@@ -126,3 +126,18 @@ def test_backtest_command(data, tmp_path, capsys):
     assert {p.name for p in (tmp_path / "out").iterdir()} == {"backtest.txt", "backtest.json", "backtest.csv",
                                                               "backtest.png"}
     assert main(["backtest", str(tmp_path / "d.csv"), "--window", str(WINDOW + 20)]) == 2
+
+
+def test_latent_state_log_scores_are_statsmodels_kalman_densities():
+    # ar1-noise: the one-step predictive density of y_t given the window is Gaussian with the
+    # Kalman filter's moments; statsmodels' SARIMAX (AR(1) plus measurement error) gives it
+    sm = pytest.importorskip("statsmodels.api")
+    truth = {"mu": 0.5, "phi": 0.8, "sigma_eta": 0.6, "sigma_eps": 0.7}
+    y, _ = smle.simulate("ar1-noise", truth, WINDOW + 6, seed=5)
+    y = np.asarray(y)
+    b = backtest("ar1-noise", y, WINDOW, 6, levels=(0.05,), n_paths=2000, seed=0, progress=False)
+    params = b.refits[0]["params"]
+    for step, t in enumerate(b.periods):
+        reference = sm.tsa.SARIMAX(y[t - WINDOW:t + 1] - params["mu"], order=(1, 0, 0), measurement_error=True)
+        fitted = reference.filter(np.array([params["phi"], params["sigma_eps"] ** 2, params["sigma_eta"] ** 2]))
+        assert abs(b.log_score[step] - fitted.llf_obs[-1]) < 1e-8
