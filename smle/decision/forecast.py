@@ -205,8 +205,11 @@ def path_statistics(paths: np.ndarray, probabilities, levels, tails: bool) -> di
 
 def forecast_models() -> list[str]:
     """Registered models that simulate beyond the data (define ``simulate_ahead``)."""
-    return [n for n in model_names()
-            if type(get_model(n)).simulate_ahead is not Model.simulate_ahead and get_model(n).state_dim <= 1]
+    def forecastable(model):
+        return (type(model).simulate_ahead is not Model.simulate_ahead and model.state_dim <= 1
+                and not getattr(model, "transition_uses_data", False))
+
+    return [n for n in model_names() if forecastable(get_model(n))]
 
 
 def check_forecast_model(model: Model) -> None:
@@ -214,7 +217,8 @@ def check_forecast_model(model: Model) -> None:
     if model.state_dim > 1:
         raise SmleInputError(f"forecasts need a one-dimensional latent state (or none): model '{model.name}' has a "
                              f"{model.state_dim}-dimensional state; accepted models: {', '.join(forecast_models())}")
-    if type(model).simulate_ahead is Model.simulate_ahead:
+    if type(model).simulate_ahead is Model.simulate_ahead or getattr(model, "transition_uses_data", False):
+        # a transition that uses the data (leverage) needs its own filter start and forward simulation
         raise SmleInputError(f"model '{model.name}' does not simulate beyond the data; accepted models: "
                              f"{', '.join(forecast_models())}")
 

@@ -131,14 +131,6 @@ class Model:
         raise NotImplementedError
 
     # -- optional hooks ----------------------------------------------------------------------
-    def simulate_ahead(self, params: Mapping, y: jax.Array, x_last: jax.Array, n_periods: int, key: jax.Array):
-        """``(returns, variance, x)``, each (n_periods, S): the first observed series, its variance
-        about the conditional mean given the period's state, and the state, for periods T+1..T+n
-        after the data ``y``, one path per start ``x_last[s]`` (draws of x_T; ignored without a
-        latent state, where ``x`` is None). Used by :func:`smle.forecast`."""
-        raise SmleInputError(f"model '{self.name}' does not simulate beyond the data (no simulate_ahead hook), "
-                             "so it has no forecasts; accepted: a model that defines simulate_ahead")
-
     def gaussian_measurement(self, params: Mapping):
         """The measurement variance v of a linear Gaussian model y_t = x_t + N(0, v), or None."""
         return None
@@ -256,6 +248,16 @@ class Model:
         data hold leaves that are not indexed by time override this.
         """
         return jax.tree.map(lambda leaf: jax.lax.dynamic_slice_in_dim(leaf, t, 1, axis=0), data)
+
+
+    # -- forecasts ------------------------------------------------------------------------------
+    def simulate_ahead(self, params: Mapping, y: jax.Array, x_last: jax.Array, n_periods: int, key: jax.Array):
+        """``(returns, variance, x)``, each (n_periods, S): the first observed series, its variance
+        about the conditional mean given the period's state, and the state, for periods T+1..T+n
+        after the data ``y``, one path per start ``x_last[s]`` (draws of x_T; ignored without a
+        latent state, where ``x`` is None). Used by :func:`smle.forecast`."""
+        raise SmleInputError(f"model '{self.name}' does not simulate beyond the data (no simulate_ahead hook), "
+                             "so it has no forecasts; accepted: a model that defines simulate_ahead")
 
 
     # -- figures -------------------------------------------------------------------------------
