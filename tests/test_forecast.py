@@ -248,3 +248,14 @@ def test_forecast_command(garch_fit, tmp_path, capsys):
                                                               "forecast.png"}
     assert main(["forecast", "--from-fit", str(tmp_path / "result.json"), "--model", "sv"]) == 2
     assert main(["forecast", "--from-fit", str(tmp_path / "nothing.json")]) == 2
+
+
+def test_sorted_quantiles_are_numpy_quantiles():
+    from smle.decision.forecast import sorted_quantiles
+
+    rng = np.random.default_rng(0)
+    for n in (2, 101, 1000):
+        x = rng.standard_t(3, size=(4, n))
+        p = [0.0, 0.01, 0.05, 0.5, 0.95, 0.99, 1.0]
+        np.testing.assert_allclose(sorted_quantiles(np.sort(x, axis=1), p), np.quantile(x, p, axis=1), rtol=0,
+                                   atol=1e-12)

@@ -31,12 +31,13 @@ import sys
 import time
 
 import jax
+import jax.numpy as jnp
 import numpy as np
 
 from smle.decision.coverage import (christoffersen_conditional_coverage, christoffersen_independence,
                                     kupiec_unconditional_coverage)
 from smle.decision.report_files import JsonReport
-from smle.decision.forecast import check_forecast_model, check_levels, forecast_at
+from smle.decision.forecast import check_forecast_model, check_levels, path_statistics, simulate_paths
 from smle.decision.scores import diebold_mariano
 from smle.errors import SmleInputError, describe
 from smle.fit import fit
@@ -138,13 +139,21 @@ def _closed_form_scores(model: Model):
     return jax.jit(model.log_predictive)
 
 
-def one_step_log_score(model: Model, params: dict, y) -> float:
-    """log p(y_T | y_1..y_{T-1}) of the last row of ``y`` at ``params`` (JAX scalars), exact."""
+def one_step(model: Model, params: dict, y, levels, n_paths: int, seed: int) -> tuple[dict, float]:
+    """The one-step forecast of the last row of ``y`` from the rows before it, at ``params`` (JAX
+    scalars by name): ``(statistics of the return, log score)``. The log score log p(y_T | y_1..
+    y_{T-1}) is exact; with a latent state one filter run over ``y`` gives it and the law of the
+    state at T - 1 that the forecast paths start from."""
+    y = jnp.asarray(y, float)
     if model.state_dim == 0:
-        return float(_closed_form_scores(model)(params, y)[-1])
-    from smle.exact_likelihood import exact_run
+        score, filtered = float(_closed_form_scores(model)(params, y)[-1]), None
+    else:
+        from smle.exact_likelihood import exact_run
 
-    return float(exact_run(model, params, y).log_predictive[-1])
+        run = exact_run(model, params, y)
+        score, filtered = float(run.log_predictive[-1]), (y, run, -2)
+    paths, _ = simulate_paths(model, params, y[:-1], 1, n_paths, seed, filtered)
+    return path_statistics(paths["return"], (0.5,), levels, tails=True), score
 
 
 def step_seed(seed: int, step: int) -> int:
@@ -236,11 +245,9 @@ def backtest(model, y, window: int, refit_every: int, levels=(0.01, 0.05), n_pat
                 say(f"backtest: forecast {step + 1}/{n} (row {t}), fit {len(refits)} of "
                     f"{-(-n // refit_every)}: log-likelihood {result.loglik:.3f}"
                     f"{'' if result.converged else ' (not converged)'}, {time.perf_counter() - began:.1f} s")
-        one = forecast_at(model, params, y[t - window:t], 1, levels=levels, n_paths=n_paths,
-                          seed=step_seed(seed, step))
-        part = one.stats["return"]
+        part, scores[step] = one_step(model, jax_params(params), y[t - window:t + 1], levels, n_paths,
+                                      step_seed(seed, step))
         var[:, step], var_se[:, step], es[:, step] = part["var"][:, 0], part["var_se"][:, 0], part["es"][:, 0]
-        scores[step] = one_step_log_score(model, jax_params(params), y[t - window:t + 1])
     realized = y[periods] if y.ndim == 1 else y[periods, 0]
     hits = (realized[None, :] < -var).astype(np.int64)
     return Backtest(model.name, model_options(model), window, refit_every, levels, n_paths, seed, periods,

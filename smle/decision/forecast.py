@@ -173,6 +173,16 @@ class Forecast(JsonReport):
 # statistics of simulated paths
 
 
+def sorted_quantiles(ordered: np.ndarray, probabilities) -> np.ndarray:
+    """Quantiles (len(probabilities), H) of rows already sorted, (H, n): numpy's default (linear)
+    rule, x_(k) + (h - k) (x_(k+1) - x_(k)) with h = (n - 1) p, k = floor(h), without sorting again."""
+    n = ordered.shape[1]
+    h = (n - 1) * np.asarray(probabilities, float)
+    low = np.minimum(np.floor(h).astype(int), n - 2)
+    weight = h - low
+    return ordered[:, low].T + weight[:, None] * (ordered[:, low + 1].T - ordered[:, low].T)
+
+
 def path_statistics(paths: np.ndarray, probabilities, levels, tails: bool) -> dict:
     """Mean, sd, quantiles (and VaR/ES with their Monte Carlo errors when ``tails``) of paths
     (H, n) per step; see the module docstring for the definitions."""
@@ -181,12 +191,12 @@ def path_statistics(paths: np.ndarray, probabilities, levels, tails: bool) -> di
     ordered = np.sort(paths, axis=1)
     out = {"mean": paths.mean(axis=1), "sd": paths.std(axis=1, ddof=1)}
     out["mean_se"] = out["sd"] / math.sqrt(n)
-    out["quantiles"] = np.quantile(paths, probabilities, axis=1)
+    out["quantiles"] = sorted_quantiles(ordered, probabilities)
     if not tails:
         return out
     var, var_se, es, es_se = (np.empty((len(levels), paths.shape[0])) for _ in range(4))
     for i, p in enumerate(levels):
-        q = np.quantile(paths, p, axis=1)
+        q = sorted_quantiles(ordered, [p])[0]
         spread = 1.96 * math.sqrt(n * p * (1.0 - p))
         low, high = max(int(math.floor(n * p - spread)), 0), min(int(math.ceil(n * p + spread)), n - 1)
         tail = ordered[:, :max(int(math.ceil(n * p)), 1)]
@@ -223,25 +233,32 @@ def check_forecast_model(model: Model) -> None:
                              f"{', '.join(forecast_models())}")
 
 
-def end_state_draws(model: Model, params: dict, y, n_paths: int, key) -> tuple[jax.Array, str]:
+def end_state_draws(model: Model, params: dict, y, n_paths: int, key, run=None, row: int = -1):
     """``(draws, how)``: n_paths draws of x_T from p(x_T | y_1..y_T) (zeros without a latent state)
-    and a sentence saying how they were drawn."""
+    and a sentence saying how they were drawn. ``run``: the exact filter's run over ``y`` if already
+    computed; ``row``: the period whose filtered law is drawn from (-1: the last; -2 when ``y``
+    extends one period beyond the forecast origin, as in a backtest)."""
     if model.state_dim == 0:
         return jnp.zeros(n_paths), "no latent state: the GARCH recursion continues from the last period's variance"
     from smle.engine.exact_smoothing import predicted_masses
     from smle.exact_likelihood import exact_run, log_g_on
 
-    run = exact_run(model, params, y)
+    run = exact_run(model, params, y) if run is None else run
+    mean, sd = float(run.filtered_mean[row]), float(run.filtered_sd[row])
     if run.spec is None:
-        mean, sd = float(run.filtered_mean[-1]), float(run.filtered_sd[-1])
         draws = mean + sd * jax.random.normal(key, (n_paths,))
         return draws, f"x_T drawn from its Kalman-filtered law N({mean:.5g}, {sd:.5g}^2)"
     _, filtered = predicted_masses(model.latent(params), log_g_on(model, params, y, run.spec), run.spec)
-    masses = jnp.maximum(filtered[-1], 0.0)
-    index = jax.random.choice(key, run.spec.size, (n_paths,), p=masses / jnp.sum(masses))
-    return run.spec.points()[index], (
-        f"x_T drawn from its filtered law on the exact grid ({run.spec.size} points; mean "
-        f"{float(run.filtered_mean[-1]):.5g}, sd {float(run.filtered_sd[-1]):.5g})")
+    return _grid_draws(run.spec.points(), filtered[row], key, n_paths), (
+        f"x_T drawn from its filtered law on the exact grid ({run.spec.size} points; mean {mean:.5g}, sd {sd:.5g})")
+
+
+@functools.partial(jax.jit, static_argnames="n_paths")
+def _grid_draws(points, masses, key, n_paths):
+    """n_paths grid points drawn with probabilities proportional to the masses (compiled: eager
+    JAX operations cost a dispatch each)."""
+    masses = jnp.maximum(masses, 0.0)
+    return points[jax.random.choice(key, points.shape[0], (n_paths,), p=masses / jnp.sum(masses))]
 
 
 @functools.lru_cache(maxsize=None)
@@ -250,13 +267,17 @@ def _ahead(model: Model, horizon: int):
     return jax.jit(lambda params, y, x_last, key: model.simulate_ahead(params, y, x_last, horizon, key))
 
 
-def simulate_paths(model: Model, params: dict, y, horizon: int, n_paths: int, seed: int) -> tuple[dict, str]:
+def simulate_paths(model: Model, params: dict, y, horizon: int, n_paths: int, seed: int,
+                   filtered=None) -> tuple[dict, str]:
     """``(paths, how)``: simulated paths, quantity -> (horizon, n_paths) array, from checked
-    parameters (JAX scalars by name) and observations ``y``; ``how`` describes the start."""
+    parameters (JAX scalars by name) and observations ``y``; ``how`` describes the start.
+    ``filtered``: ``(data, run, row)`` for :func:`end_state_draws` when the filter has already run
+    (default: the filter runs on ``y``)."""
     key = jax.random.PRNGKey(seed)
     state_key, path_key = jax.random.split(key)
     y = jnp.asarray(y, float)
-    x_last, how = end_state_draws(model, params, y, n_paths, state_key)
+    data, run, row = filtered if filtered is not None else (y, None, -1)
+    x_last, how = end_state_draws(model, params, jnp.asarray(data, float), n_paths, state_key, run, row)
     returns, variance, _ = _ahead(model, horizon)(params, y, x_last, path_key)
     returns = np.asarray(returns)
     return {"return": returns, "cumulative return": np.cumsum(returns, axis=0),
