@@ -81,6 +81,7 @@ def fan_chart(forecast, path=None):
     """Three panels: the last observed returns and the return fan with the VaR at each level,
     the cumulative return fan, the variance fan. Saved to ``path`` if given (Agg back-end)."""
     plt = pyplot(path)
+    from matplotlib.ticker import MaxNLocator
     steps = np.arange(1, forecast.horizon + 1)
     figure, axes = plt.subplots(3, 1, figsize=(9, 9))
     history = np.asarray(forecast.history)[-max(60, 4 * forecast.horizon):]  # recent enough to see the fan
@@ -94,6 +95,7 @@ def fan_chart(forecast, path=None):
             for i, p in enumerate(forecast.levels):
                 axis.plot(steps, -part["var"][i], ls="--", lw=1, label=f"-VaR {p:g}")
         axis.set_title(_TITLES[quantity], fontsize=10)
+        axis.xaxis.set_major_locator(MaxNLocator(integer=True))
         axis.grid(alpha=0.3)
         axis.legend(fontsize=7, loc="upper left", ncol=3)
     axes[0].axvline(0.5, color="0.6", lw=0.8)
