@@ -26,8 +26,8 @@ the mean, standard deviation and quantiles, and for the two return quantities th
 VaR_p = -q_p (the loss exceeded with probability p, positive when q_p < 0) and the expected
 shortfall ES_p = -E[r | r <= q_p], at each level p. Monte Carlo standard errors: sd / sqrt(n)
 for means; for VaR the distribution-free order-statistic interval (the order statistics
-n p +- 1.96 sqrt(n p (1 - p)) bracket q_p with probability 95%, David and Nagaraja 2003,
-sec. 7.1), its half-width / 1.96; for ES the asymptotic variance
+n p +- 1.96 sqrt(n p (1 - p)) bracket q_p with probability about 95%; David and Nagaraja 2003,
+Order Statistics, sec. 7.1, recalled from memory), its half-width / 1.96; for ES the asymptotic variance
 (Var(r | r <= q_p) + (1 - p) (q_p - E[r | r <= q_p])^2) / (n p) (Chen 2008, J. Financial
 Econometrics 6; recalled from memory).
 
