@@ -21,11 +21,11 @@ import tempfile
 from pathlib import Path
 
 
-from smle.cli.backtest import add_backtest_command
-from smle.cli.forecast import add_forecast_command
 from smle.cli.shared import (add_column_options, add_fix_option, add_option_flag, describe_options,
                              model_from_args, parse_fixed, parse_model_spec, read_observations, read_saved_fit, say)
 from smle.errors import SmleInputError
+from smle.cli.backtest import add_backtest_command  # these two modules import nothing heavy at the top
+from smle.cli.forecast import add_forecast_command
 
 
 def _write_report(result, y, folder: Path, label: str, args=None) -> list[str]:
