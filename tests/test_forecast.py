@@ -1,14 +1,15 @@
 """Forecasts (smle.forecast) against outside references.
 
 * garch, normal innovations: the h-step variance forecast in closed form (Engle and Bollerslev
-  1986, Econometric Reviews 5) and the AR(1) mean forecast (Box and Jenkins 1970, ch. 5);
+  1986, Econometric Reviews 5) and the AR(1) mean forecast (Box and Jenkins 1970, ch. 5) (both
+  references recalled from memory; the formulas follow from the recursions by iterated expectations);
 * ar1-noise: the Kalman-filter forecast of statsmodels' SARIMAX (an AR(1) observed with
   measurement error), from smle's Kalman start and from its exact grid start;
 * garch with NIG innovations, one step ahead: VaR and ES of scipy.stats.norminvgauss;
 * a two-component normal mixture: VaR and ES against scipy.stats.norm, and the stated Monte Carlo
   errors against the spread measured over replications;
 * sv at a long horizon: the stationary mean of the variance, exp(mu + sigma_x^2 / 2) (the
-  log-normal mean; Taylor 1986, Modelling Financial Time Series).
+  log-normal mean; Taylor 1986, Modelling Financial Time Series, recalled from memory).
 
 One data length (T = 300) and a few path shapes keep the compiled programs few.
 """
