@@ -37,6 +37,10 @@ _PUBLIC = {
     "check": "smle.diagnostics.health",
     "Comparison": "smle.decision.compare",
     "compare": "smle.decision.compare",
+    "Forecast": "smle.decision.forecast",
+    "forecast": "smle.decision.forecast",
+    "Backtest": "smle.decision.backtest",
+    "backtest": "smle.decision.backtest",
 }
 
 
@@ -71,16 +75,20 @@ sys.modules[__name__].__class__ = _Package
 
 
 __all__ = [
+    "Backtest",
     "Comparison",
     "Diagnostics",
     "FilterResult",
     "FitResult",
     "HealthReport",
+    "backtest",
     "check",
     "compare",
     "diagnose",
     "filter_factor",
     "fit",
+    "Forecast",
+    "forecast",
     "LoglikResult",
     "Model",
     "SmleInputError",

@@ -9,6 +9,8 @@
     smle check data.csv --params ...  health check of the simulated likelihood (smle/cli/check.py)
     smle diagnose result.json         goodness of fit of a saved fit: PITs, residual tests, figures
     smle compare data.csv --model ... fit several models to the same data: one table, LR tests (cli/compare.py)
+    smle forecast --from-fit r.json   predictive distributions after the data: VaR, ES, fan chart (cli/forecast.py)
+    smle backtest data.csv --window N rolling one-step forecasts: VaR coverage tests, log scores (cli/backtest.py)
 """
 
 from __future__ import annotations
@@ -23,6 +25,8 @@ from smle.cli.shared import (add_column_options, add_fix_option, add_option_flag
                              describe_options, model_from_args, parse_fixed, parse_model_spec, read_observations,
                              read_saved_fit, say)
 from smle.errors import SmleInputError
+from smle.cli.backtest import add_backtest_command  # these two modules import nothing heavy at the top
+from smle.cli.forecast import add_forecast_command
 
 
 def _write_report(result, y, folder: Path, label: str, args=None) -> list[str]:
@@ -273,6 +277,8 @@ def build_parser() -> argparse.ArgumentParser:
     from smle.cli.compare import add_compare_command
 
     add_compare_command(commands)
+    add_forecast_command(commands)
+    add_backtest_command(commands)
     return parser
 
 

@@ -123,3 +123,18 @@ def add_fix_option(parser) -> None:
     parser.add_argument("--fix", action="append", default=[], metavar="NAME=VALUE",
                         help="hold a parameter at a value while the others are estimated, e.g. --fix ar1=0 "
                              "(repeatable; a name the model does not have is an error for fit, skipped by compare)")
+
+
+def write_result_files(result, folder, stem: str) -> list[str]:
+    """``stem``.txt (summary), .json, .csv (``to_frame``) and .png (``figure``) of a forecast or a
+    backtest in ``folder`` (created if needed); the file names."""
+    from pathlib import Path
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    names = [f"{stem}.txt", f"{stem}.json", f"{stem}.csv", f"{stem}.png"]
+    (folder / names[0]).write_text(result.summary() + "\n")
+    result.to_json(folder / names[1])
+    result.to_frame().to_csv(folder / names[2])
+    result.figure(folder / names[3])
+    return names

@@ -80,3 +80,15 @@ def sample_path(state: LatentAR1, key: jax.Array, n_periods: int) -> jax.Array:
 
     _, rest = jax.lax.scan(step, x1, noise[1:])
     return jnp.concatenate([x1[None], rest])
+
+
+def sample_ahead(state: LatentAR1, x_last: jax.Array, key: jax.Array, n_periods: int) -> jax.Array:
+    """Paths x_{T+1}..x_{T+n} from the transition, one per start in ``x_last`` (shape (S,));
+    returns shape (n_periods, S). Forecasts start here from draws of the filtered law of x_T."""
+    noise = jax.random.normal(key, (n_periods,) + jnp.shape(x_last))
+
+    def step(previous, eta):
+        current = state.intercept + state.phi * previous + state.sigma_eta * eta
+        return current, current
+
+    return jax.lax.scan(step, jnp.asarray(x_last, float), noise)[1]

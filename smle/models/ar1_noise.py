@@ -42,6 +42,14 @@ class _GaussianNoise:
     def gaussian_measurement(self, params):
         return params["sigma_eps"] ** 2
 
+    def simulate_ahead(self, params, y, x_last, n_periods, key):
+        """Observations x_t + e_t beyond the data, the state carried forward from ``x_last``;
+        the variance about the state is sigma_eps^2 in every period."""
+        state_key, noise_key = jax.random.split(key)
+        x = latent.sample_ahead(self.latent(params), x_last, state_key, n_periods)
+        observations = x + params["sigma_eps"] * jax.random.normal(noise_key, x.shape)
+        return observations, jnp.full(x.shape, params["sigma_eps"] ** 2), x
+
     def obs_cdf(self, params, data, x):
         from smle.distributions import normal_cdf  # here, not at the top: keeps this hook self-contained
 

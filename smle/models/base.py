@@ -62,6 +62,8 @@ state-space methods ``loglik_closed_form(params, y)`` (the exact log-likelihood,
   depends on the data (leverage), for the exact method; EIS refuses such a model;
 * ``gaussian_measurement(params)``: for a linear Gaussian model, ``y_t = x_t + N(0, v)``, the
   variance ``v``; the exact method then runs the Kalman filter (default None: not linear Gaussian).
+* ``simulate_ahead(params, y, x_last, n_periods, key)``: paths beyond the end of the data ``y``
+  from draws ``x_last`` (S,) of the state at T (``smle.forecast``); default: a clear error.
 
 The engine knows nothing about any particular model.
 """
@@ -78,6 +80,7 @@ import numpy as np
 
 from smle.engine.latent import LatentAR1
 from smle.engine.latent_var import LatentVAR1
+from smle.errors import SmleInputError
 from smle.params import Constraint
 
 
@@ -257,6 +260,16 @@ class Model:
         data hold leaves that are not indexed by time override this.
         """
         return jax.tree.map(lambda leaf: jax.lax.dynamic_slice_in_dim(leaf, t, 1, axis=0), data)
+
+
+    # -- forecasts ------------------------------------------------------------------------------
+    def simulate_ahead(self, params: Mapping, y: jax.Array, x_last: jax.Array, n_periods: int, key: jax.Array):
+        """``(returns, variance, x)``, each (n_periods, S): the first observed series, its variance
+        about the conditional mean given the period's state, and the state, for periods T+1..T+n
+        after the data ``y``, one path per start ``x_last[s]`` (draws of x_T; ignored without a
+        latent state, where ``x`` is None). Used by :func:`smle.forecast`."""
+        raise SmleInputError(f"model '{self.name}' does not simulate beyond the data (no simulate_ahead hook), "
+                             "so it has no forecasts; accepted: a model that defines simulate_ahead")
 
 
     # -- figures -------------------------------------------------------------------------------

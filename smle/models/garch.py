@@ -69,6 +69,7 @@ from smle.distributions import (
 from smle.errors import SmleInputError
 from smle.models import register
 from smle.models.base import Model
+from smle.models.garch_forward import continue_garch
 from smle.models.garch_mix import GarchMix
 
 LOG_2PI = math.log(2.0 * math.pi)
@@ -278,6 +279,15 @@ class Garch(Model):
         """
         returns, variance = garch_from_shocks(params, self.innovations_sample(params, n_periods, key))
         return returns, jnp.sqrt(variance)
+
+    def simulate_ahead(self, params, y, x_last, n_periods, key):
+        """Returns and conditional variances h_t beyond the data (:func:`continue_garch`), one path
+        per entry of ``x_last`` (no latent state: only its length is used); x is None."""
+        residual, variance = self.garch_path(params, y)
+        width = jnp.shape(x_last)[0]
+        shocks = self.innovations_sample(params, n_periods * width, key).reshape(n_periods, width)
+        returns, h = continue_garch(params, jnp.asarray(y, float)[-1], residual[-1], variance[-1], shocks)
+        return returns, h, None
 
     def start_params(self, y):
         r = np.asarray(y, float)

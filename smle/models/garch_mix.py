@@ -67,6 +67,7 @@ from smle.distributions import inverse_gaussian_log_density, nig_log_density, no
 from smle.errors import SmleInputError
 from smle.models import register
 from smle.models.base import Model
+from smle.models.garch_forward import continue_garch
 from smle.models.measurements import (
     MEASUREMENT_LABELS, check_measurement, measurement_cdf, measurement_constraints, measurement_log_density,
     measurement_start, simulate_measurement,
@@ -365,6 +366,20 @@ class GarchMix(Model):
             return r, x
         measure = simulate_measurement(self.measurement, jnp.log(h * w), params, self.n_intraday, measure_key)
         return jnp.column_stack([r, measure]), x
+
+    def simulate_ahead(self, params, y, x_last, n_periods, key):
+        """Returns beyond the data, the GARCH recursion continued from the data's last period
+        (:func:`continue_garch`) and the mixing state from ``x_last``; the variance is
+        E[e_t^2 | h_t, W_t] = h_t (gamma^2 (W_t - 1)^2 + W_t) / c^2, whose mean over W_t is h_t."""
+        state_key, noise_key = jax.random.split(key)
+        x = latent.sample_ahead(self.latent(params), x_last, state_key, n_periods)
+        w, gamma = self.mixing_exact(params, x), params["gamma"]
+        c2 = 1.0 + gamma**2 * self.mixing_variance(params)
+        shocks = (gamma * (w - 1.0) + jnp.sqrt(w) * jax.random.normal(noise_key, x.shape)) / jnp.sqrt(c2)
+        returns = self._returns(jnp.asarray(y, float))
+        residual, variance = self.garch_path(params, returns)
+        r, h = continue_garch(params, returns[-1], residual[-1], variance[-1], shocks)
+        return r, h * (gamma**2 * (w - 1.0) ** 2 + w) / c2, x
 
     def start_params(self, y):
         y = np.asarray(y, float)

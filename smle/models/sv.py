@@ -56,6 +56,17 @@ class LogVarianceState(Model):
     def independent_params(self, params):
         return {**params, "phi": jnp.zeros_like(jnp.asarray(params["phi"]))}
 
+    def return_errors(self, params, key, shape):
+        """Standardised return errors eps_t (mean 0, variance 1) of the given shape: N(0, 1) here."""
+        return jax.random.normal(key, shape)
+
+    def simulate_ahead(self, params, y, x_last, n_periods, key):
+        """Returns exp(x_t / 2) eps_t and variances exp(x_t) beyond the data, the log variance
+        carried forward from the draws ``x_last`` of x_T (the data enter only through them)."""
+        state_key, error_key = jax.random.split(key)
+        x = latent.sample_ahead(self.latent(params), x_last, state_key, n_periods)
+        return jnp.exp(0.5 * x) * self.return_errors(params, error_key, x.shape), jnp.exp(x), x
+
 
 @register
 @dataclasses.dataclass(frozen=True)

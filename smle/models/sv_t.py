@@ -57,13 +57,16 @@ class StudentTStochasticVolatility(LogVarianceState):
     def simulate(self, params, n_periods, key):
         state_key, noise_key = jax.random.split(key)
         x = latent.sample_path(self.latent(params), state_key, n_periods)
-        nu = jnp.asarray(params["nu"], float)
-        eps = jax.random.t(noise_key, nu, (n_periods,)) * jnp.sqrt((nu - 2.0) / nu)
-        return jnp.exp(0.5 * x) * eps, x
+        return jnp.exp(0.5 * x) * self.return_errors(params, noise_key, (n_periods,)), x
 
     def start_params(self, y):
         y = np.asarray(y, float)
         return {"mu": float(np.log(np.var(y))), "phi": 0.95, "sigma_eta": 0.2, "nu": 10.0}
+
+    def return_errors(self, params, key, shape):
+        """Standardised Student-t errors (unit variance) of the given shape."""
+        nu = jnp.asarray(params["nu"], float)
+        return jax.random.t(key, nu, shape) * jnp.sqrt((nu - 2.0) / nu)
 
     def obs_cdf(self, params, data, x):
         # P(T <= t) of a Student-t with nu degrees of freedom through the regularised incomplete
