@@ -196,49 +196,29 @@ def _command_prepare(args) -> int:
     return 0
 
 
-def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
-        prog="smle",
-        description="Maximum likelihood for latent-factor volatility models: exact filtering for one-dimensional states, "
-                    "simulated (efficient importance sampling) for several dimensions.",
-    )
-    commands = parser.add_subparsers(dest="command", required=True)
+def _estimation_options(p, default_model="sv"):
+    """The options of every command that fits a model (fit, demo)."""
+    p.add_argument("--model", default=default_model,
+                   help=f"registered model name (default {default_model}; see 'smle models'), with options and "
+                        "held parameters as NAME:key=value,... e.g. garch:innovations=t,ar1=0")
+    add_fix_option(p)
+    p.add_argument("--method", choices=["auto", "exact", "eis"], default="auto",
+                   help="likelihood: exact (grid or Kalman filter, one-dimensional states), eis (simulated), or "
+                        "auto (default: exact where the state is one-dimensional, eis otherwise)")
+    p.add_argument("--draws", type=int, default=64, help="EIS draws per set (default 64)")
+    p.add_argument("--seed", type=int, default=0, help="seed of the common random numbers (default 0)")
+    p.add_argument("--seeds", type=int, default=1, help="independent refits for simulation standard errors (default 1)")
+    p.add_argument("--quiet", action="store_true", help="no progress output")
+    p.add_argument("--control-variates", choices=["independent", "draws", "both"], default=None,
+                   help="maximise the control-variate corrected likelihood (default: none)")
+    p.add_argument("--particles", type=int, default=2000,
+                   help="particles of the goodness-of-fit filter written with --report (default 2000; 0: none)")
+    p.add_argument("--max-steps", type=int, default=200, help="cap on optimiser (L-BFGS) steps (default 200)")
+    add_option_flag(p)
 
-    def estimation_options(p, default_model="sv"):
-        p.add_argument("--model", default=default_model,
-                       help=f"registered model name (default {default_model}; see 'smle models'), with options and "
-                            "held parameters as NAME:key=value,... e.g. garch:innovations=t,ar1=0")
-        add_fix_option(p)
-        p.add_argument("--method", choices=["auto", "exact", "eis"], default="auto",
-                       help="likelihood: exact (grid or Kalman filter, one-dimensional states), eis (simulated), or "
-                            "auto (default: exact where the state is one-dimensional, eis otherwise)")
-        p.add_argument("--draws", type=int, default=64, help="EIS draws per set (default 64)")
-        p.add_argument("--seed", type=int, default=0, help="seed of the common random numbers (default 0)")
-        p.add_argument("--seeds", type=int, default=1, help="independent refits for simulation standard errors (default 1)")
-        p.add_argument("--quiet", action="store_true", help="no progress output")
-        p.add_argument("--control-variates", choices=["independent", "draws", "both"], default=None,
-                       help="maximise the control-variate corrected likelihood (default: none)")
-        p.add_argument("--particles", type=int, default=2000,
-                       help="particles of the goodness-of-fit filter written with --report (default 2000; 0: none)")
-        p.add_argument("--max-steps", type=int, default=200, help="cap on optimiser (L-BFGS) steps (default 200)")
-        add_option_flag(p)
 
-    fit = commands.add_parser("fit", help="estimate a model on a file's column(s) of returns or prices")
-    fit.add_argument("data", help="CSV (or Parquet) file; a table written by 'smle prepare' is understood as is")
-    add_column_options(fit)
-    fit.add_argument("--report", help="folder for the report (result.json, summary, figures)")
-    estimation_options(fit)
-    fit.set_defaults(handler=_command_fit)
-
-    models = commands.add_parser("models", help="list the registered models and their parameters")
-    models.set_defaults(handler=_command_models)
-
-    demo = commands.add_parser("demo", help="fit the invented demo scenario (simulated data) end to end")
-    demo.add_argument("--days", type=int, default=750, help="days of demo data (default 750)")
-    demo.add_argument("--report", help="folder for the demo data and report (default: a new temporary folder)")
-    estimation_options(demo)
-    demo.set_defaults(handler=_command_demo)
-
+def _add_prepare_command(commands) -> None:
+    """Register ``smle prepare``."""
     prepare = commands.add_parser("prepare", help="prices (intraday or daily bars) to a daily table of returns and measures")
     prepare.add_argument("data", help="CSV (or Parquet) file of intraday prices/bars, daily bars or closes")
     prepare.add_argument("--output", help="CSV to write (default: <input>_daily.csv)")
@@ -253,6 +233,33 @@ def build_parser() -> argparse.ArgumentParser:
                                             "the data; UTC where no offset is given)")
     prepare.add_argument("--drop-bad-rows", action="store_true", help="drop bad rows (logged) instead of failing")
     prepare.set_defaults(handler=_command_prepare)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="smle",
+        description="Maximum likelihood for latent-factor volatility models: exact filtering for one-dimensional states, "
+                    "simulated (efficient importance sampling) for several dimensions.",
+    )
+    commands = parser.add_subparsers(dest="command", required=True)
+
+    fit = commands.add_parser("fit", help="estimate a model on a file's column(s) of returns or prices")
+    fit.add_argument("data", help="CSV (or Parquet) file; a table written by 'smle prepare' is understood as is")
+    add_column_options(fit)
+    fit.add_argument("--report", help="folder for the report (result.json, summary, figures)")
+    _estimation_options(fit)
+    fit.set_defaults(handler=_command_fit)
+
+    models = commands.add_parser("models", help="list the registered models and their parameters")
+    models.set_defaults(handler=_command_models)
+
+    demo = commands.add_parser("demo", help="fit the invented demo scenario (simulated data) end to end")
+    demo.add_argument("--days", type=int, default=750, help="days of demo data (default 750)")
+    demo.add_argument("--report", help="folder for the demo data and report (default: a new temporary folder)")
+    _estimation_options(demo)
+    demo.set_defaults(handler=_command_demo)
+
+    _add_prepare_command(commands)
 
     diagnose = commands.add_parser("diagnose", help="goodness of fit of a saved fit (PITs, residual tests, figures)")
     diagnose.add_argument("result", help="result.json written by 'smle fit --report' (or FitResult.to_json)")

@@ -12,7 +12,7 @@ from smle.errors import SmleInputError
 
 __all__ = ["Observations", "add_column_options", "add_fix_option", "add_option_flag", "check_report_folder",
            "describe_options", "model_from_args", "parse_fixed", "parse_model_spec", "read_observations",
-           "read_saved_fit", "say"]
+           "read_saved_fit", "say", "write_result_files"]
 
 
 def read_saved_fit(path: str, argument: str):
