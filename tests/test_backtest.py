@@ -98,6 +98,11 @@ def test_outputs_and_comparison(normal_backtest, data, tmp_path):
     assert abs(test.mean_difference - np.mean(b.log_score - other.log_score)) < 1e-12
     with pytest.raises(smle.SmleInputError, match="same periods"):
         b.compare("not a backtest")
+    # a model scoring two series a day (return and realized measure) is not comparable
+    import dataclasses
+    realized = dataclasses.replace(other, model="garch-mix", model_options={"realized": True})
+    with pytest.raises(smle.SmleInputError, match="log scores compare only forecasts of the same observations"):
+        b.compare(realized)
 
 
 def test_backtest_inputs_are_checked(data):

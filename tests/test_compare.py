@@ -127,7 +127,7 @@ def test_command_line(tmp_path, capsys):
     code = cli.main(["compare", str(path), "--model", "garch", "--model", "garch:innovations=t",
                      "--model", "garch:ar1=0", "--report", str(report)])
     out = capsys.readouterr().out
-    assert code == 0 and "smle compare  |  300 periods  |  3 models" in out and "3 in 1" in out
+    assert code == 0 and "smle compare -- 300 periods, 3 models" in out and "3 in 1" in out
     assert {p.name for p in report.iterdir()} == {"compare.txt", "compare.json", "compare.png"}
     # --fix holds a parameter in every model that has it; the same numbers as the library
     assert cli.main(["compare", str(path), "--model", "garch", "--model", "garch:innovations=t", "--fix", "ar1=0"]) == 0

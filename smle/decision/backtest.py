@@ -99,6 +99,13 @@ class Backtest(JsonReport):
         if not isinstance(other, Backtest) or not np.array_equal(self.periods, other.periods):
             raise SmleInputError("other must be a Backtest over the same periods (same data, window and length); "
                                  f"got {describe(other)}")
+        mine, theirs = (get_model(b.model, **b.model_options).n_series for b in (self, other))
+        if mine != theirs:
+            raise SmleInputError(
+                f"other scores {theirs} observed series per day and this backtest {mine} (model '{self.model}' against "
+                f"'{other.model}'): log scores compare only forecasts of the same observations (a model with a "
+                "realized measure scores the return and the measure together); accepted: backtests of models of the "
+                "same series")
         return diebold_mariano(self.log_score, other.log_score, **options)
 
     def to_frame(self):

@@ -2,40 +2,41 @@
 
 from __future__ import annotations
 
+from smle import report_text as layout
 from smle.results import CAUTION
 
 
 def summary_text(comparison) -> str:
-    """The comparison in smle's own layout: models, nested tests, notes, the caution."""
-    width = 96
-    rule = "-" * width
+    """The comparison in smle's report layout (:mod:`smle.report_text`): the models' table, the
+    likelihood-ratio tests of the nested pairs, notes, the caution."""
     rows = comparison.rows()
     best_aic = min(r["aic"] for r in rows)
     best_bic = min(r["bic"] for r in rows)
-    lines = [f"smle compare  |  {comparison.n_obs} periods  |  {len(rows)} models", rule,
-             f"{'':>3} {'model':<38}{'log-lik':>12}{'+/- sim.':>10}{'free':>6}{'AIC':>11}{'BIC':>11}"
-             f"{'dAIC':>7}", rule]
+    table = [f"{'':>3} {'model':<38}{'log-lik':>12}{'+/- sim.':>10}{'free':>6}{'AIC':>12}{'BIC':>12}{'dAIC':>10}"]
     for k, r in enumerate(rows, 1):
-        error = "exact" if r["method"] == "closed form" else f"{r['loglik_error']:.3f}"
-        flag = "" if r["converged"] else "  (not converged)"
-        lines.append(f"{k:>3} {r['label'][:38]:<38}{r['loglik']:>12.3f}{error:>10}{r['free_parameters']:>6}"
-                     f"{r['aic']:>11.2f}{r['bic']:>11.2f}{r['aic'] - best_aic:>7.2f}{flag}")
-    lines.append(f"    lowest AIC: model {1 + [r['aic'] for r in rows].index(best_aic)}; lowest BIC: model "
-                 f"{1 + [r['bic'] for r in rows].index(best_bic)}.  +/- sim.: the log-likelihood's numerical standard "
-                 "error (EIS); exact: closed form")
+        error = f"{r['loglik_error']:.3f}" if r["method"] == "EIS" else "exact"
+        flag = "  (not converged)" if not r["converged"] else ""
+        table.append(f"{k:>3} {r['label'][:38]:<38}{r['loglik']:>12.3f}{error:>10}{r['free_parameters']:>6}"
+                     f"{r['aic']:>12.2f}{r['bic']:>12.2f}{r['aic'] - best_aic:>10.2f}{flag}")
+    table += ["", f"lowest AIC: model {1 + [r['aic'] for r in rows].index(best_aic)}; lowest BIC: model "
+                  f"{1 + [r['bic'] for r in rows].index(best_bic)}",
+              "+/- sim.: the numerical standard error of an EIS log-likelihood; exact: a closed form or the exact "
+              "filter, no simulation error"]
+    tests = []
     if comparison.tests:
-        lines += [rule, f"nested pairs: likelihood-ratio tests at level {comparison.level:g}",
-                  f"{'restricted in general':<24}{'restrictions':<22}{'LR':>9}{'df':>4}{'p-value':>10}"
-                  f"{'critical':>10}  law"]
+        tests.append(f"{'restricted in general':<24}{'restrictions':<22}{'LR':>9}{'df':>4}{'p-value':>10}"
+                     f"{'critical':>10}  law")
         for t in comparison.tests:
-            lines.append(f"{f'{t.restricted} in {t.general}':<24}{t.restrictions[:21]:<22}{t.statistic:>9.3f}"
+            tests.append(f"{f'{t.restricted} in {t.general}':<24}{t.restrictions[:21]:<22}{t.statistic:>9.3f}"
                          f"{t.df:>4}{t.p_value:>10.4f}{t.critical_value:>10.3f}  {t.reference}")
             if t.warning:
-                lines.append(f"    warning: {t.warning}")
-    if comparison.notes:
-        lines += [rule, "notes:"] + [f"  - {note}" for note in comparison.notes]
-    lines += [rule, CAUTION]
-    return "\n".join(lines)
+                tests.append(layout.warning(t.warning))
+    return layout.render(
+        layout.title("compare", f"{comparison.n_obs} periods", f"{len(rows)} models"),
+        [layout.block("Models", table),
+         layout.block(f"Nested pairs: likelihood-ratio tests at level {comparison.level:g}", tests),
+         layout.block("Notes", [f"- {note}" for note in comparison.notes])],
+        CAUTION)
 
 
 def comparison_figure(comparison, path=None):
