@@ -366,15 +366,19 @@ def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_
         spec = choose_grid(state, log_obs, n_periods, transition_sd, max_size=max_size,
                            curvature_probe=curvature_probe)
     best = None
-    for _ in range(12):
-        coarse = _coarser(spec, state, transition is not None)
-        parts = []
-        for grid_spec in (spec, coarse):
+    runs = {}  # a refinement on the same range reuses the last grid's run as its coarse check
+
+    def run_on(grid_spec):
+        if grid_spec not in runs:
             grid = grid_spec.points()
             log_g = log_obs(jnp.broadcast_to(grid, (n_periods, grid_spec.size)))
             moves = None if transition is None else transition(grid)
-            parts.append(_loglik_parts(grid, log_g, state, moves, grid_spec.band if moves is None else 0))
-        (log_pred, mean, sd, edge), (coarse_pred, *_rest, edge_coarse) = parts
+            runs[grid_spec] = _loglik_parts(grid, log_g, state, moves, grid_spec.band if moves is None else 0)
+        return runs[grid_spec]
+
+    for _ in range(12):
+        coarse = _coarser(spec, state, transition is not None)
+        (log_pred, mean, sd, edge), (coarse_pred, *_rest, edge_coarse) = run_on(spec), run_on(coarse)
         edge = float(max(edge, edge_coarse))
         error = float(jnp.sum(jnp.abs(log_pred - coarse_pred)))
         if not math.isfinite(error):
