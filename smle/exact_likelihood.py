@@ -17,6 +17,7 @@ grid again at the estimate.
 from __future__ import annotations
 
 import functools
+import inspect
 import math
 import warnings
 from typing import NamedTuple
@@ -61,13 +62,18 @@ def resolve_method(model: Model, method) -> str:
     return method
 
 
-def warn_unused_settings(model: Model, resolved: str, given: dict, defaults: dict) -> None:
-    """Say (a UserWarning) which EIS settings a call set that its method does not use: ``auto``
-    runs the exact method for a one-dimensional state, and a user who asked for 64 draws or a seed
-    should not learn by accident that they were ignored."""
+EIS_SETTINGS = ("n_draws", "seed", "antithetic", "tol", "max_iter", "n_seeds", "n_score_draws", "control_variates")
+
+
+def warn_unused_settings(model: Model, resolved: str, entry, given: dict) -> None:
+    """Say (a UserWarning) which EIS settings a call to ``entry`` (``loglik`` or ``fit``) set away
+    from its defaults that its method does not use: ``auto`` runs the exact method for a
+    one-dimensional state, and a user who asked for 64 draws or a seed should not learn by accident
+    that they were ignored. ``given``: the call's arguments by name (those in EIS_SETTINGS count)."""
     if resolved == "eis":
         return
-    changed = [name for name, value in given.items() if value != defaults[name]]
+    defaults = inspect.signature(entry).parameters
+    changed = [name for name in EIS_SETTINGS if name in given and given[name] != defaults[name].default]
     if changed:
         warnings.warn(f"{', '.join(changed)} {'is' if len(changed) == 1 else 'are'} not used: model '{model.name}' "
                       f"is computed by the {resolved} method (method='auto' chooses it for a one-dimensional "
@@ -104,23 +110,32 @@ class ExactRun(NamedTuple):
     engine: str
     spec: ExactGrid | None
 
+    @property
+    def description(self) -> str:
+        """"Kalman filter", or "grid filter (G points)"."""
+        return self.engine if self.spec is None else f"grid filter ({self.grid_size} points)"
+
 
 def is_linear_gaussian(model: Model) -> bool:
     """Whether the model states a Gaussian measurement (then the Kalman filter is its exact method)."""
     return type(model).gaussian_measurement is not Model.gaussian_measurement
 
 
+def kalman_of(model: Model, params, y):
+    """The Kalman filter of a linear Gaussian model at ``params`` (differentiable)."""
+    return kalman_filter(y, model.latent(params), model.gaussian_measurement(params))
+
+
 @functools.lru_cache(maxsize=None)
 def _kalman(model: Model):
-    def run(params, y):
-        return kalman_filter(y, model.latent(params), model.gaussian_measurement(params))
-    return jax.jit(run)
+    return jax.jit(functools.partial(kalman_of, model))
 
 
 @functools.lru_cache(maxsize=None)
 def on_states(model: Model, hook: str = "log_obs_density"):
     """``(params, y, x) -> model.<hook>(params, prepared data, x)`` for states x of shape (T, S),
-    compiled per shape: ``log_obs_density`` (log g_t) or ``obs_cdf`` (F(y_t | x))."""
+    compiled per shape: ``log_obs_density`` (log g_t), ``obs_cdf`` (F(y_t | x)) or
+    ``period_transition`` (x a grid of shape (G,))."""
     method = getattr(model, hook)
 
     def run(params, y, x):
@@ -155,14 +170,7 @@ def transition_of(model: Model, params, y):
     """grid -> the model's per-period transition (a model whose transition uses the data), or None."""
     if not model.transition_uses_data:
         return None
-    return lambda grid: _transition(model)(params, jnp.asarray(y), grid)
-
-
-@functools.lru_cache(maxsize=None)
-def _transition(model: Model):
-    def run(params, y, grid):
-        return model.period_transition(params, model.prepare(params, y), grid)
-    return jax.jit(run)
+    return lambda grid: on_states(model, "period_transition")(params, jnp.asarray(y), grid)
 
 
 def _kalman_log_predictive(out):
@@ -222,4 +230,4 @@ def moving_grid_loglik(model: Model, params, y, grid: MovingGrid) -> jax.Array:
 
 def kalman_loglik_of(model: Model, params, y) -> jax.Array:
     """The Kalman-filter log-likelihood of a linear Gaussian model (differentiable)."""
-    return kalman_filter(y, model.latent(params), model.gaussian_measurement(params)).loglik
+    return kalman_of(model, params, y).loglik

@@ -44,8 +44,7 @@ from smle.validation import (
 )
 
 NO_CONTROL = ControlSpec()
-_EIS_DEFAULTS = dict(n_draws=64, seed=0, antithetic=True, tol=1e-8, max_iter=100, n_seeds=1, n_score_draws=None,
-                     control_variates=None)
+
 
 
 def objective(model: Model, settings: eis.EISSettings, y, key, control: ControlSpec = NO_CONTROL,
@@ -183,9 +182,7 @@ def fit(
     """
     model = get_model(model)
     resolved = resolve_method(model, method)
-    warn_unused_settings(model, resolved, dict(n_draws=n_draws, seed=seed, antithetic=antithetic, tol=tol,
-                                               max_iter=max_iter, n_seeds=n_seeds, n_score_draws=n_score_draws,
-                                               control_variates=control_variates), _EIS_DEFAULTS)
+    warn_unused_settings(model, resolved, fit, locals())
     exact_tol = check_exact_tol(exact_tol)
     y, data_source, dates = describe_data(y, source, dates)
     y = check_fit_data(model, y)

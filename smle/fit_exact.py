@@ -75,19 +75,13 @@ def _evaluator(restriction, grid: MovingGrid, y, verbose):
     return evaluate
 
 
-def fit_exact(restriction: Restriction, y: np.ndarray, start_params, max_steps, gtol, level, verbose, started,
-              exact_tol: float) -> FitResult:
-    """Exact maximum likelihood (see the module docstring); the arguments are :func:`smle.fit`'s."""
+def _maximise(restriction: Restriction, y_jax, u, run, max_steps, gtol, verbose, exact_tol):
+    """L-BFGS from ``u`` on the grid of ``run`` (the checked run at ``u``), re-checking the grid at
+    the estimate (see the module docstring). Returns the optimiser's record (steps and evaluations
+    summed over the passes), the checked run at the estimate and the last evaluator."""
     model = restriction.model
-    y_jax = jnp.asarray(y)
-    n_periods = y.shape[0]
     natural = compiled_natural(restriction)
-    u = restriction.free_start(start_params)
-    run = exact_run(model, natural(u), y_jax, exact_tol)
     grid = _grid_of(run, model, natural(u))
-    if verbose:
-        engine = "the Kalman filter" if is_linear_gaussian(model) else "the exact grid filter"
-        print(f"fitting '{model.name}' to {n_periods} periods by {engine}", file=sys.stderr, flush=True)
     steps = evaluations = 0
     for _ in range(MAX_GRID_PASSES):
         evaluate = _evaluator(restriction, grid, y_jax, verbose)
@@ -96,14 +90,29 @@ def fit_exact(restriction: Restriction, y: np.ndarray, start_params, max_steps, 
         u = first["u"]
         at = natural(u)
         run = exact_run(model, at, y_jax, exact_tol)
-        moved = abs(-first["value"] * n_periods - run.loglik)
+        moved = abs(-first["value"] * y_jax.shape[0] - run.loglik)
         if grid.size == 0 or moved <= max(10 * exact_tol, 2 * run.error_bound):
             break
         grid = _grid_of(run, model, at)
         if verbose:
             print(f"  the checked grid at the estimate differs by {moved:.2e}: continuing on {grid.size} points",
                   file=sys.stderr, flush=True)
-    first = {**first, "steps": steps, "evaluations": evaluations}
+    return {**first, "steps": steps, "evaluations": evaluations}, run, evaluate
+
+
+def fit_exact(restriction: Restriction, y: np.ndarray, start_params, max_steps, gtol, level, verbose, started,
+              exact_tol: float) -> FitResult:
+    """Exact maximum likelihood (see the module docstring); the arguments are :func:`smle.fit`'s."""
+    model = restriction.model
+    y_jax = jnp.asarray(y)
+    n_periods = y.shape[0]
+    u = restriction.free_start(start_params)
+    run = exact_run(model, compiled_natural(restriction)(u), y_jax, exact_tol)
+    if verbose:
+        engine = "the Kalman filter" if is_linear_gaussian(model) else "the exact grid filter"
+        print(f"fitting '{model.name}' to {n_periods} periods by {engine}", file=sys.stderr, flush=True)
+    first, run, evaluate = _maximise(restriction, y_jax, u, run, max_steps, gtol, verbose, exact_tol)
+    steps, evaluations = first["steps"], first["evaluations"]
     hessian = hessian_by_differences(evaluate, first["u"], n_periods)
     params, covariance, std_errors, conf_int, converged, message = estimates_at(restriction, first, hessian, level)
     jax_params = {n: jnp.asarray(v) for n, v in params.items()}
@@ -143,17 +152,14 @@ def exact_reference(restriction: Restriction, y: np.ndarray, params: dict, fitte
     y_jax = jnp.asarray(y)
     at = {n: jnp.asarray(v) for n, v in params.items()}
     run = exact_run(model, at, y_jax, exact_tol)
-    grid = _grid_of(run, model, at)
-    u = restriction.free_start(params)
-    best = lbfgs(_evaluator(restriction, grid, y_jax, False), u, int(max_steps), float(gtol), False)
-    natural = compiled_natural(restriction)
-    best_params = {n: float(v) for n, v in natural(best["u"]).items()}
-    best_run = exact_run(model, natural(best["u"]), y_jax, exact_tol)
+    best, best_run, _ = _maximise(restriction, y_jax, restriction.free_start(params), run, max_steps, gtol, False,
+                                  exact_tol)
+    best_params = {n: float(v) for n, v in compiled_natural(restriction)(best["u"]).items()}
     return {
         "exact_loglik_at_estimate": run.loglik,
         "simulation_error": fitted_loglik - run.loglik,
         "exact_max_loglik": best_run.loglik,
         "exact_estimates": best_params,
         "loss_against_exact": best_run.loglik - run.loglik,
-        "exact_engine": run.engine if not run.grid_size else f"grid filter, {run.grid_size} points",
+        "exact_engine": run.description,
     }

@@ -206,9 +206,7 @@ def loglik(
     """
     model, checked, y = checked_inputs(model, params, y)
     resolved = resolve_method(model, method)
-    warn_unused_settings(model, resolved, dict(n_draws=n_draws, seed=seed, antithetic=antithetic, tol=tol,
-                                               max_iter=max_iter, n_score_draws=n_score_draws,
-                                               control_variates=control_variates), _EIS_DEFAULTS)
+    warn_unused_settings(model, resolved, loglik, locals())
     # every argument is checked whichever method runs: a bad value is refused, not ignored
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws, model, y.shape[0])
     key = as_key(seed)
@@ -255,9 +253,6 @@ def loglik(
         damping_step=float(getattr(out.info, "step", 1.0)),
     )
 
-
-_EIS_DEFAULTS = dict(n_draws=64, seed=0, antithetic=True, tol=1e-6, max_iter=50, n_score_draws=None,
-                     control_variates=None)
 
 NSE_METHOD = "largest of delta, lognormal, batches"
 """How :attr:`LoglikResult.nse` is computed without control variates (see :func:`honest_nse`)."""
@@ -350,7 +345,7 @@ def _exact_loglik(model, checked, y, exact_tol) -> LoglikResult:
         raise SmleInputError(f"the exact log-likelihood of model '{model.name}' is not finite at params={checked} "
                              "(check the data scale, e.g. returns in percent)")
     empty = np.zeros(0)
-    engine = run.engine if not run.grid_size else f"grid filter ({run.grid_size} points)"
+    engine = run.description
     return LoglikResult(value=run.loglik, nse=0.0, ess=math.nan, iterations=0, converged=True, last_change=0.0,
                         n_draws=0, antithetic=False, seed=-1, log_weights=empty, paths=np.zeros((y.shape[0], 0)),
                         b_obs=empty, c_obs=empty, r_squared=empty, method="exact", nse_method="none (exact)",

@@ -232,7 +232,7 @@ class FitResult:
         worst = max(gaps, key=gaps.get) if gaps else None
         lines = [
             layout.field("against the exact likelihood",
-                         f"exact {eis['exact_loglik_at_estimate']:.4f} at the estimate ({eis['exact_engine']}): "
+                         f"exact {eis['exact_loglik_at_estimate']:.4f} at the estimate by the {eis['exact_engine']}: "
                          f"simulation error {eis['simulation_error']:+.4f} against a reported NSE of {self.nse:.4f}"),
             layout.field("exact maximum", f"{eis['exact_max_loglik']:.4f}, {eis['loss_against_exact']:.4f} above the "
                                           "exact value at the EIS estimate"
