@@ -31,7 +31,11 @@ Order Statistics, sec. 7.1, recalled from memory), its half-width / 1.96; for ES
 (Var(r | r <= q_p) + (1 - p) (q_p - E[r | r <= q_p])^2) / (n p) (Chen 2008, J. Financial
 Econometrics 6; recalled from memory).
 
-Parameters are taken as known (the estimates): parameter uncertainty is not in the bands.
+Parameters are taken as known (the estimates) unless ``parameter_draws`` = N > 0: then N parameter
+vectors are drawn from the estimates' asymptotic normal law on the fit's unconstrained scale
+(:mod:`smle.decision.parameter_draws`) and the paths are pooled over them (about n_paths / N
+each), so the bands include the parameter error. The Monte Carlo errors then treat the pooled
+paths as independent, which understates them by the between-draw part when draws share paths.
 Forecasts are statistical output, not advice (:data:`smle.results.CAUTION`).
 """
 
@@ -47,6 +51,7 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
+from smle.decision.parameter_draws import check_parameter_draws, parameter_sample, sub_seed
 from smle.decision.report_files import JsonReport
 from smle.errors import SmleInputError, describe
 from smle.models import Model, get_model, model_names, saved_model
@@ -76,8 +81,11 @@ class Forecast(JsonReport):
         for the return quantities also "var", "var_se", "es", "es_se" (len(levels), H)}.
       history: the last observed values of the first series (for the figure).
       paths: the simulated paths, quantity -> (H, n_paths) (kept in memory, not in the JSON).
+      parameter_draws: 0 (parameters taken as known) or the number N of parameter vectors the
+        paths were pooled over (about n_paths / N paths each).
+      parameter_sample: those N vectors, natural parameters by name (in memory, not in the JSON).
 
-    ``to_json(path=None)`` writes all but the paths.
+    ``to_json(path=None)`` writes all but the paths and the parameter sample.
     """
 
     model: str
@@ -94,6 +102,8 @@ class Forecast(JsonReport):
     stats: dict
     history: np.ndarray
     paths: dict | None = dataclasses.field(default=None, repr=False)
+    parameter_draws: int = 0
+    parameter_sample: list | None = dataclasses.field(default=None, repr=False)
 
     def value_at_risk(self, level: float, quantity: str = "return") -> np.ndarray:
         """VaR at ``level`` for each step, shape (H,)."""
@@ -129,7 +139,7 @@ class Forecast(JsonReport):
     def to_dict(self) -> dict:
         out = {"format": FORMAT}
         for field in dataclasses.fields(self):
-            if field.name == "paths":
+            if field.name in ("paths", "parameter_sample"):
                 continue
             value = getattr(self, field.name)
             if field.name == "stats":
@@ -284,6 +294,19 @@ def simulate_paths(model: Model, params: dict, y, horizon: int, n_paths: int, se
             "variance": np.asarray(variance)}, how
 
 
+def pooled_paths(model: Model, sample: list, y, horizon: int, n_paths: int, seed: int) -> tuple[dict, str]:
+    """:func:`simulate_paths` for each parameter vector of ``sample`` (about n_paths / N paths each,
+    draw i with seed :func:`sub_seed` (seed, 1, i)), pooled: ``(paths, how)``."""
+    base, extra = divmod(n_paths, len(sample))
+    parts, how = [], ""
+    for i, params in enumerate(sample):
+        part, how_i = simulate_paths(model, jax_params(params), y, horizon, base + (i < extra), sub_seed(seed, 1, i))
+        parts.append(part)
+        how = how or how_i
+    paths = {q: np.concatenate([part[q] for part in parts], axis=1) for q in QUANTITIES}
+    return paths, f"{how} (at the first of {len(sample)} parameter draws; the same way at each)"
+
+
 def check_levels(levels) -> tuple:
     try:
         values = tuple(float(p) for p in levels)
@@ -296,7 +319,7 @@ def check_levels(levels) -> tuple:
 
 
 def forecast(result: FitResult, horizon: int, levels=(0.01, 0.05), n_paths: int = 20000, seed: int = 0,
-             y=None) -> Forecast:
+             y=None, parameter_draws: int = 0) -> Forecast:
     """h-step predictive distributions of returns and of the variance after the end of a fit's data.
 
     Args:
@@ -307,6 +330,10 @@ def forecast(result: FitResult, horizon: int, levels=(0.01, 0.05), n_paths: int 
       seed: every random result is a function of it.
       y: the observations to start from (default: those stored in ``result``); the same model's
         data, possibly extended by later periods.
+      parameter_draws: 0 (default): the estimates are taken as known. N >= 2: N parameter
+        vectors drawn from the estimates' asymptotic normal law on the fit's unconstrained scale
+        (Krinsky and Robb 1986; :mod:`smle.decision.parameter_draws`), the paths pooled over
+        them, so that the bands include the parameter error; needs the fit's covariance.
 
     Returns:
       A :class:`Forecast` (``summary()``, ``to_frame()``, ``to_json()``, ``figure()``).
@@ -324,14 +351,22 @@ def forecast(result: FitResult, horizon: int, levels=(0.01, 0.05), n_paths: int 
                                  "forecast from")
         y = result.observations
     same_data = result.dates is not None and len(result.dates) == np.shape(y)[0]
-    return forecast_at(saved_model(result.model, result.model_options), result.params, y, horizon, levels=levels,
-                       n_paths=n_paths, seed=seed, last_date=result.dates[-1] if same_data else None)
+    model = saved_model(result.model, result.model_options)
+    n_paths = check_integer("n_paths", n_paths, MIN_PATHS)
+    sample = None
+    if check_parameter_draws(parameter_draws, n_paths):
+        check_forecast_model(model)
+        sample = parameter_sample(model, result.params, result.covariance, result.fixed, parameter_draws,
+                                  check_integer("seed", seed, 0))
+    return forecast_at(model, result.params, y, horizon, levels=levels, n_paths=n_paths, seed=seed,
+                       last_date=result.dates[-1] if same_data else None, parameter_sample=sample)
 
 
 def forecast_at(model, params, y, horizon: int, levels=(0.01, 0.05), n_paths: int = 20000, seed: int = 0,
-                last_date: str | None = None) -> Forecast:
+                last_date: str | None = None, parameter_sample: list | None = None) -> Forecast:
     """:func:`forecast` for a model (name or instance) at given parameters (a mapping by name) after
-    observations ``y``; ``last_date`` labels the last period. Used by backtests and tests."""
+    observations ``y``; ``last_date`` labels the last period; ``parameter_sample``: parameter
+    vectors to pool the paths over (None: ``params`` taken as known). Used by backtests and tests."""
     model = get_model(model)
     check_forecast_model(model)
     horizon = check_integer("horizon", horizon, 1)
@@ -342,9 +377,14 @@ def forecast_at(model, params, y, horizon: int, levels=(0.01, 0.05), n_paths: in
     levels = check_levels(levels)
     checked = checked_params(model, params)
     y = check_observations(model, y)
-    paths, how = simulate_paths(model, jax_params(checked), y, horizon, n_paths, seed)
+    if parameter_sample:
+        sample = [checked_params(model, draw) for draw in parameter_sample]
+        paths, how = pooled_paths(model, sample, y, horizon, n_paths, seed)
+    else:
+        paths, how = simulate_paths(model, jax_params(checked), y, horizon, n_paths, seed)
     probabilities = tuple(sorted({round(p, 12) for p in (*FAN_PROBABILITIES, *levels, *(1.0 - p for p in levels))}))
     stats = {q: path_statistics(paths[q], probabilities, levels, tails=q != "variance") for q in QUANTITIES}
     first = y if y.ndim == 1 else y[:, 0]
     return Forecast(model.name, model_options(model), dict(checked), int(y.shape[0]), last_date, horizon, levels,
-                    probabilities, n_paths, seed, how, stats, np.asarray(first[-HISTORY:], float), paths)
+                    probabilities, n_paths, seed, how, stats, np.asarray(first[-HISTORY:], float), paths,
+                    len(parameter_sample or ()), [dict(d) for d in parameter_sample] if parameter_sample else None)

@@ -58,7 +58,10 @@ def summary_text(forecast) -> str:
     parameters = ", ".join(f"{k} {v:.5g}" for k, v in forecast.params.items())
     start = layout.block("Start", [
         forecast.start,
-        layout.field("parameters (taken as known: their uncertainty is not in the bands)", parameters),
+        layout.field("parameters (taken as known: their uncertainty is not in the bands)" if not
+                     forecast.parameter_draws else f"parameters (estimates; the paths are pooled over "
+                     f"{forecast.parameter_draws} draws from their asymptotic normal law, so the bands include the "
+                     "parameter error)", parameters),
         "VaR_p = -q_p, the loss exceeded with probability p; ES_p = -E[r | r <= q_p]; units of the data",
     ])
     blocks = [start] + [_quantity_block(forecast, q) for q in ("return", "cumulative return", "variance")]
