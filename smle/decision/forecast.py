@@ -223,13 +223,18 @@ def path_statistics(paths: np.ndarray, probabilities, levels, tails: bool) -> di
 # simulation
 
 
+def _simulates_ahead(model: Model) -> bool:
+    """Whether ``model`` has a ``simulate_ahead`` hook of its own kind: a model whose transition
+    uses the data (leverage) needs one written for that transition, not one it inherits."""
+    if model.transition_uses_data:
+        return any("simulate_ahead" in vars(c) for c in type(model).__mro__
+                   if c is not Model and issubclass(c, Model) and getattr(c, "transition_uses_data", False))
+    return type(model).simulate_ahead is not Model.simulate_ahead
+
+
 def forecast_models() -> list[str]:
     """Registered models that simulate beyond the data (define ``simulate_ahead``)."""
-    def forecastable(model):
-        return (type(model).simulate_ahead is not Model.simulate_ahead and model.state_dim <= 1
-                and not getattr(model, "transition_uses_data", False))
-
-    return [n for n in model_names() if forecastable(get_model(n))]
+    return [n for n in model_names() if get_model(n).state_dim <= 1 and _simulates_ahead(get_model(n))]
 
 
 def check_forecast_model(model: Model) -> None:
@@ -237,8 +242,7 @@ def check_forecast_model(model: Model) -> None:
     if model.state_dim > 1:
         raise SmleInputError(f"forecasts need a one-dimensional latent state (or none): model '{model.name}' has a "
                              f"{model.state_dim}-dimensional state; accepted models: {', '.join(forecast_models())}")
-    if type(model).simulate_ahead is Model.simulate_ahead or getattr(model, "transition_uses_data", False):
-        # a transition that uses the data (leverage) needs its own filter start and forward simulation
+    if not _simulates_ahead(model):
         raise SmleInputError(f"model '{model.name}' does not simulate beyond the data; accepted models: "
                              f"{', '.join(forecast_models())}")
 
@@ -251,14 +255,16 @@ def end_state_draws(model: Model, params: dict, y, n_paths: int, key, run=None, 
     if model.state_dim == 0:
         return jnp.zeros(n_paths), "no latent state: the GARCH recursion continues from the last period's variance"
     from smle.engine.exact_smoothing import predicted_masses
-    from smle.exact_likelihood import exact_run, log_g_on
+    from smle.exact_likelihood import exact_run, log_g_on, transition_of
 
     run = exact_run(model, params, y) if run is None else run
     mean, sd = float(run.filtered_mean[row]), float(run.filtered_sd[row])
     if run.spec is None:
         draws = mean + sd * jax.random.normal(key, (n_paths,))
         return draws, f"x_T drawn from its Kalman-filtered law N({mean:.5g}, {sd:.5g}^2)"
-    _, filtered = predicted_masses(model.latent(params), log_g_on(model, params, y, run.spec), run.spec)
+    moves = transition_of(model, params, y)  # a transition that uses the data (leverage), or None
+    _, filtered = predicted_masses(model.latent(params), log_g_on(model, params, y, run.spec), run.spec,
+                                   None if moves is None else moves(run.spec.points()))
     return _grid_draws(run.spec.points(), filtered[row], key, n_paths), (
         f"x_T drawn from its filtered law on the exact grid ({run.spec.size} points; mean {mean:.5g}, sd {sd:.5g})")
 
