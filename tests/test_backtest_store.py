@@ -8,17 +8,12 @@ garch model (closed-form likelihood) keeps each block to a fraction of a second;
 300 periods is that of tests/test_backtest.py, so the compiled programs are shared.
 """
 
-import os
-import signal
-import sqlite3
-import subprocess
-import sys
-import time
 
 import numpy as np
 import pytest
 
 import smle
+from _processes import count_rows, sigkill_when
 from smle.decision.backtest import backtest as in_memory
 
 WINDOW, N_FORECASTS, EVERY = 300, 30, 5  # 6 blocks
@@ -28,8 +23,7 @@ GARCH = {"mu": 0.03, "ar1": 0.0, "omega": 0.05, "alpha": 0.1, "beta": 0.85}
 
 @pytest.fixture(scope="module")
 def data():
-    y, _ = smle.simulate("garch", GARCH, WINDOW + N_FORECASTS, seed=8)
-    return np.asarray(y)
+    return np.asarray(smle.simulate("garch", GARCH, WINDOW + N_FORECASTS, seed=8)[0])
 
 
 @pytest.fixture(scope="module")
@@ -44,16 +38,7 @@ def assert_same_backtest(got, want):
 
 
 def stored_blocks(path):
-    if not path.exists():
-        return 0
-    try:
-        connection = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=5)
-        try:
-            return connection.execute("SELECT COUNT(*) FROM blocks").fetchone()[0]
-        finally:
-            connection.close()
-    except sqlite3.OperationalError:
-        return 0
+    return count_rows(path, "blocks")
 
 
 class Stop(Exception):
@@ -131,20 +116,7 @@ smle.backtest("garch", y, {window}, {every}, store=sys.argv[2], progress=lambda 
 def test_a_sigkilled_backtest_resumes_to_the_uninterrupted_numbers(data, reference, tmp_path):
     np.save(tmp_path / "y.npy", data)
     store = tmp_path / "killed.sqlite"
-    process = subprocess.Popen([sys.executable, "-c", RUNNER, str(tmp_path / "y.npy"), str(store)],
-                               stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-    try:
-        deadline = time.monotonic() + 120
-        while stored_blocks(store) < 2 and process.poll() is None and time.monotonic() < deadline:
-            time.sleep(0.05)
-        assert process.poll() is None, process.stderr.read().decode()
-        os.kill(process.pid, signal.SIGKILL)
-        process.wait(timeout=30)
-    finally:
-        if process.poll() is None:
-            os.kill(process.pid, signal.SIGKILL)
-            process.wait()
-    assert process.returncode == -signal.SIGKILL
+    sigkill_when(["-c", RUNNER, str(tmp_path / "y.npy"), str(store)], lambda: stored_blocks(store) >= 2)
     partial = stored_blocks(store)
     assert 2 <= partial < 6
     # the killed writer's claim is left in the store; it is not alive, so the resume takes over
