@@ -40,6 +40,7 @@ from smle.decision.report_files import JsonReport
 from smle.decision.forecast import check_forecast_model, check_levels, path_statistics, simulate_paths
 from smle.decision.scores import diebold_mariano
 from smle.errors import SmleInputError, describe
+from smle.exact_likelihood import resolve_method
 from smle.fit import fit
 from smle.models import Model, get_model
 from smle.models.base import model_options
@@ -262,11 +263,14 @@ def run_block(plan: BacktestPlan, block: int, start: dict | None, fixed=None, **
       "seconds"}``: ``refit`` as in :attr:`Backtest.refits`, the arrays of shape (L, n) and (n,)
       for the block's n forecasts. The fit's seed is the backtest's and each forecast's seed is
       :func:`step_seed` of the backtest's seed and the step, so a block's numbers are a function of
-      the plan, the block index and ``start``.
+      the plan, the block index and ``start`` (the seed is passed to EIS fits only; the exact and
+      closed-form fits use none).
     """
     began, steps = time.perf_counter(), plan.block_steps(block)
     first = int(plan.periods[steps[0]])
-    result = _refit(plan.model, plan.y[first - plan.window:first], start, seed=plan.seed, fixed=fixed, **fit_options)
+    # the seed matters only to EIS fits (passed to the others, fit warns that it is unused)
+    seeded = {"seed": plan.seed} if resolve_method(plan.model, fit_options.get("method", "auto")) == "eis" else {}
+    result = _refit(plan.model, plan.y[first - plan.window:first], start, fixed=fixed, **seeded, **fit_options)
     params = {k: float(v) for k, v in result.params.items()}
     var, var_se, es = (np.empty((len(plan.levels), len(steps))) for _ in range(3))
     scores = np.empty(len(steps))
