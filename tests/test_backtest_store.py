@@ -49,14 +49,14 @@ def test_an_interrupted_backtest_resumes_to_the_uninterrupted_numbers(data, refe
     store = tmp_path / "bt.sqlite"
     seen = []
 
-    def stop_after_two(message):
+    def stop_after_two(message):  # the opening message, then one per stored block
         seen.append(message)
-        if len(seen) == 2:
+        if len(seen) == 3:
             raise Stop(message)
 
     with pytest.raises(Stop):
         smle.backtest("garch", data, WINDOW, EVERY, store=store, progress=stop_after_two, **SETTINGS)
-    assert stored_blocks(store) == 2
+    assert stored_blocks(store) == 2 and "each committed to" in seen[0]
     messages = []
     resumed = smle.backtest("garch", data, WINDOW, EVERY, store=store, progress=messages.append, **SETTINGS)
     assert "2 of 6 blocks already in" in messages[0] and "resuming at block 3" in messages[0]
@@ -95,7 +95,7 @@ def test_a_store_of_other_settings_is_refused(data, tmp_path):
     with pytest.raises(smle.SmleInputError, match="is a backtest store, not a study store"):
         check_compatible(store)
     (tmp_path / "not.sqlite").write_text("some text")
-    with pytest.raises(smle.SmleInputError, match="not an smle"):
+    with pytest.raises(smle.SmleInputError, match="not an smle backtest store"):
         smle.backtest("garch", short, WINDOW, EVERY, store=tmp_path / "not.sqlite", progress=False, **SETTINGS)
     for bad, match in ((dict(store=3), "store = 3"), (dict(store=store, label=""), "label")):
         with pytest.raises(smle.SmleInputError, match=match):

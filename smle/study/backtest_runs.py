@@ -91,7 +91,11 @@ def check_backtest_store(path, label: str, identity: dict) -> None:
         return
     connection = _connect(path, read_only=True)
     try:
-        meta = _read_meta(connection, path)
+        try:
+            meta = _read_meta(connection, path)
+        except SmleInputError:
+            raise SmleInputError(f"store {str(path)!r} is not an smle backtest store (not an SQLite file of smle); "
+                                 "accepted: a store written by a backtest, or a new path") from None
         if meta.get("store_kind") != "backtest":
             raise SmleInputError(f"store {str(path)!r} is not a backtest store ({meta.get('store_kind', 'a study')} "
                                  "store); accepted: a store written by a backtest, or a new path")
@@ -178,6 +182,9 @@ def backtest(model, y, window: int, refit_every: int, levels=(0.01, 0.05), n_pat
         if say and blocks:
             say(f"backtest '{label}': {len(blocks)} of {plan.n_blocks} blocks already in {str(store)!r}"
                 f"{'' if len(blocks) == plan.n_blocks else f'; resuming at block {len(blocks) + 1}'}")
+        elif say:
+            say(f"backtest '{label}': {plan.n_blocks} blocks of up to {plan.refit_every} forecasts, each committed "
+                f"to {str(store)!r} as it finishes (a rerun resumes)")
         for block in range(len(blocks), plan.n_blocks):
             done = run_block(plan, block, warm_start(blocks[-1] if blocks else None), fixed, **fit_options)
             writer.record(done)
