@@ -34,8 +34,9 @@ Econometrics 6; recalled from memory).
 Parameters are taken as known (the estimates) unless ``parameter_draws`` = N > 0: then N parameter
 vectors are drawn from the estimates' asymptotic normal law on the fit's unconstrained scale
 (:mod:`smle.decision.parameter_draws`) and the paths are pooled over them (about n_paths / N
-each), so the bands include the parameter error. The Monte Carlo errors then treat the pooled
-paths as independent, which understates them by the between-draw part when draws share paths.
+each), so the bands include the parameter error. The paths of one draw share its parameters:
+the means' errors are then cluster-robust (:func:`~smle.decision.parameter_draws.cluster_mean_se`),
+while the VaR and ES errors still treat the pooled paths as independent, which understates them.
 Forecasts are statistical output, not advice (:data:`smle.results.CAUTION`).
 """
 
@@ -51,7 +52,8 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
-from smle.decision.parameter_draws import check_parameter_draws, parameter_sample, sub_seed
+from smle.decision.parameter_draws import (check_parameter_draws, cluster_mean_se, draw_sizes, parameter_sample,
+                                           sub_seed)
 from smle.decision.report_files import JsonReport
 from smle.errors import SmleInputError, describe
 from smle.models import Model, get_model, model_names, saved_model
@@ -303,10 +305,9 @@ def simulate_paths(model: Model, params: dict, y, horizon: int, n_paths: int, se
 def pooled_paths(model: Model, sample: list, y, horizon: int, n_paths: int, seed: int) -> tuple[dict, str]:
     """:func:`simulate_paths` for each parameter vector of ``sample`` (about n_paths / N paths each,
     draw i with seed :func:`sub_seed` (seed, 1, i)), pooled: ``(paths, how)``."""
-    base, extra = divmod(n_paths, len(sample))
     parts, how = [], ""
-    for i, params in enumerate(sample):
-        part, how_i = simulate_paths(model, jax_params(params), y, horizon, base + (i < extra), sub_seed(seed, 1, i))
+    for i, (params, size) in enumerate(zip(sample, draw_sizes(n_paths, len(sample)))):
+        part, how_i = simulate_paths(model, jax_params(params), y, horizon, size, sub_seed(seed, 1, i))
         parts.append(part)
         how = how or how_i
     paths = {q: np.concatenate([part[q] for part in parts], axis=1) for q in QUANTITIES}
@@ -390,6 +391,9 @@ def forecast_at(model, params, y, horizon: int, levels=(0.01, 0.05), n_paths: in
         paths, how = simulate_paths(model, jax_params(checked), y, horizon, n_paths, seed)
     probabilities = tuple(sorted({round(p, 12) for p in (*FAN_PROBABILITIES, *levels, *(1.0 - p for p in levels))}))
     stats = {q: path_statistics(paths[q], probabilities, levels, tails=q != "variance") for q in QUANTITIES}
+    if parameter_sample:
+        for q in QUANTITIES:
+            stats[q]["mean_se"] = cluster_mean_se(paths[q], draw_sizes(n_paths, len(parameter_sample)))
     first = y if y.ndim == 1 else y[:, 0]
     return Forecast(model.name, model_options(model), dict(checked), int(y.shape[0]), last_date, horizon, levels,
                     probabilities, n_paths, seed, how, stats, np.asarray(first[-HISTORY:], float), paths,

@@ -77,3 +77,24 @@ def parameter_sample(model: Model, params: dict, covariance, fixed, n_draws: int
     drawn = jax.vmap(compiled_natural(restriction))(jnp.asarray(u_hat[None, :] + normal @ root.T))
     columns = {n: np.asarray(v, float) for n, v in drawn.items()}
     return [{n: float(columns[n][i]) for n in model.param_names} for i in range(n_draws)]
+
+
+def draw_sizes(n_paths: int, n_draws: int) -> list[int]:
+    """Paths per parameter draw: n_paths split as evenly as possible, the first ones one larger."""
+    base, extra = divmod(n_paths, n_draws)
+    return [base + (i < extra) for i in range(n_draws)]
+
+
+def cluster_mean_se(paths: np.ndarray, sizes) -> np.ndarray:
+    """Standard error of the pooled mean of ``paths`` (H, n) per row, the paths of one parameter
+    draw (consecutive, ``sizes`` of them) forming one cluster: sqrt(N / (N - 1) sum_i m_i^2
+    (b_i - b)^2) / n with b_i the draw means and b the pooled mean (the cluster-robust variance
+    of a mean; e.g. Cameron and Miller 2015, J. Human Resources 50, recalled from memory). Paths
+    of one draw share its parameters, so the independent-paths error sd / sqrt(n) understates."""
+    sizes = np.asarray(sizes, int)
+    ends = np.cumsum(sizes)
+    sums = np.add.reduceat(np.asarray(paths, float), ends - sizes, axis=1)  # (H, N)
+    n, count = ends[-1], sizes.size
+    pooled = sums.sum(axis=1, keepdims=True) / n
+    deviations = sums - sizes[None, :] * pooled  # m_i (b_i - b)
+    return np.sqrt(count / (count - 1) * np.sum(deviations**2, axis=1)) / n
