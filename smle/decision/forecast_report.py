@@ -49,6 +49,10 @@ def _monte_carlo_block(forecast) -> list[str]:
         lines.append(layout.field(f"largest standard error over steps, {quantity}", "; ".join(errors)))
     lines.append(layout.field("largest standard error over steps, variance mean",
                               f"{np.max(forecast.stats['variance']['mean_se']):.2g}"))
+    if forecast.parameter_draws:
+        lines.append(f"paths pooled over {forecast.parameter_draws} parameter draws: the means' errors are "
+                     "cluster-robust (one cluster per draw); the VaR and ES errors treat the paths as independent "
+                     "and understate")
     return layout.block(f"Monte Carlo ({forecast.n_paths} paths, seed {forecast.seed})", lines)
 
 
