@@ -46,6 +46,7 @@ import dataclasses
 import functools
 import json
 import math
+import warnings
 from pathlib import Path
 
 import jax
@@ -86,6 +87,7 @@ class Forecast(JsonReport):
       parameter_draws: 0 (parameters taken as known) or the number N of parameter vectors the
         paths were pooled over (about n_paths / N paths each).
       parameter_sample: those N vectors, natural parameters by name (in memory, not in the JSON).
+      parameter_note: "" or a warning that the draws' normal law is wide for some parameter.
 
     ``to_json(path=None)`` writes all but the paths and the parameter sample.
     """
@@ -106,6 +108,7 @@ class Forecast(JsonReport):
     paths: dict | None = dataclasses.field(default=None, repr=False)
     parameter_draws: int = 0
     parameter_sample: list | None = dataclasses.field(default=None, repr=False)
+    parameter_note: str = ""
 
     def value_at_risk(self, level: float, quantity: str = "return") -> np.ndarray:
         """VaR at ``level`` for each step, shape (H,)."""
@@ -360,13 +363,16 @@ def forecast(result: FitResult, horizon: int, levels=(0.01, 0.05), n_paths: int 
     same_data = result.dates is not None and len(result.dates) == np.shape(y)[0]
     model = saved_model(result.model, result.model_options)
     n_paths = check_integer("n_paths", n_paths, MIN_PATHS)
-    sample = None
+    sample, note = None, ""
     if check_parameter_draws(parameter_draws, n_paths):
         check_forecast_model(model)
-        sample = parameter_sample(model, result.params, result.covariance, result.fixed, parameter_draws,
-                                  check_integer("seed", seed, 0))
-    return forecast_at(model, result.params, y, horizon, levels=levels, n_paths=n_paths, seed=seed,
-                       last_date=result.dates[-1] if same_data else None, parameter_sample=sample)
+        sample, note = parameter_sample(model, result.params, result.covariance, result.fixed, parameter_draws,
+                                        check_integer("seed", seed, 0))
+        if note:
+            warnings.warn(f"parameter_draws: {note}", UserWarning, stacklevel=2)
+    outcome = forecast_at(model, result.params, y, horizon, levels=levels, n_paths=n_paths, seed=seed,
+                          last_date=result.dates[-1] if same_data else None, parameter_sample=sample)
+    return dataclasses.replace(outcome, parameter_note=note) if note else outcome
 
 
 def forecast_at(model, params, y, horizon: int, levels=(0.01, 0.05), n_paths: int = 20000, seed: int = 0,

@@ -67,6 +67,7 @@ def summary_text(forecast) -> str:
                      f"{forecast.parameter_draws} draws from their asymptotic normal law, so the bands include the "
                      "parameter error)", parameters),
         "VaR_p = -q_p, the loss exceeded with probability p; ES_p = -E[r | r <= q_p]; units of the data",
+        *([layout.warning(forecast.parameter_note)] if forecast.parameter_note else []),
     ])
     blocks = [start] + [_quantity_block(forecast, q) for q in ("return", "cumulative return", "variance")]
     blocks.append(_monte_carlo_block(forecast))

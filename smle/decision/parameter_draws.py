@@ -67,16 +67,31 @@ def unconstrained_law(model: Model, params: dict, covariance, fixed) -> tuple[Re
     return restriction, u_hat, (c + c.T) / 2.0
 
 
-def parameter_sample(model: Model, params: dict, covariance, fixed, n_draws: int, seed: int) -> list[dict]:
-    """``n_draws`` parameter vectors (natural, by name) from N(u_hat, C) on the unconstrained scale
-    (:func:`unconstrained_law`), mapped back; a function of ``seed`` (stream 0 of :func:`sub_seed`)."""
+WIDE_SD = 3.0
+"""An unconstrained standard deviation above this (rule of thumb, ours) means draws within two
+standard deviations already span most of the parameter's region (a factor e^12 for a log-scale
+parameter, 0.0025 to 0.9975 of a logistic one): the normal law is a poor guide there."""
+
+
+def parameter_sample(model: Model, params: dict, covariance, fixed, n_draws: int,
+                     seed: int) -> tuple[list[dict], str]:
+    """``(sample, note)``: ``n_draws`` parameter vectors (natural, by name) from N(u_hat, C) on the
+    unconstrained scale (:func:`unconstrained_law`), mapped back, a function of ``seed`` (stream 0
+    of :func:`sub_seed`); ``note`` is "" or a warning naming the free parameters whose
+    unconstrained standard deviation exceeds :data:`WIDE_SD` (weakly identified, typically an
+    estimate near the edge of its region: the draws then reach that edge)."""
     restriction, u_hat, c = unconstrained_law(model, params, covariance, fixed)
+    wide = [f"{n} (sd {sd:.3g})" for n, sd in zip(restriction.free_names, np.sqrt(np.diag(c))) if sd > WIDE_SD]
+    note = "" if not wide else (
+        f"the estimates' normal law is wide on the unconstrained scale for {', '.join(wide)}: draws reach the edges "
+        "of the admissible region and can dominate the pooled forecast; a longer sample, or holding the parameter "
+        "fixed, gives a law the normal approximation describes")
     values, vectors = np.linalg.eigh(c)
     root = vectors * np.sqrt(np.clip(values, 0.0, None))  # C = root root'; tolerates a semi-definite C
     normal = np.random.default_rng(sub_seed(seed, 0)).standard_normal((n_draws, u_hat.size))
     drawn = jax.vmap(compiled_natural(restriction))(jnp.asarray(u_hat[None, :] + normal @ root.T))
     columns = {n: np.asarray(v, float) for n, v in drawn.items()}
-    return [{n: float(columns[n][i]) for n in model.param_names} for i in range(n_draws)]
+    return [{n: float(columns[n][i]) for n in model.param_names} for i in range(n_draws)], note
 
 
 def draw_sizes(n_paths: int, n_draws: int) -> list[int]:
