@@ -64,7 +64,8 @@ class Backtest(JsonReport):
       log_score: the out-of-sample log predictive density of r_t, shape (N,).
       refits: one entry per estimation: ``period`` (first period forecast with it), ``params``,
         ``converged``, ``loglik``.
-      elapsed_seconds: wall-clock time of the whole backtest.
+      elapsed_seconds: wall-clock time of the blocks, summed (over the runs that computed them when
+        a stored backtest was resumed).
     """
 
     model: str
