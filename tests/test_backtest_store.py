@@ -35,6 +35,7 @@ def assert_same_backtest(got, want):
     for name in ("periods", "realized", "value_at_risk", "var_se", "expected_shortfall", "hits", "log_score"):
         np.testing.assert_array_equal(getattr(got, name), getattr(want, name), err_msg=name)
     assert got.refits == want.refits
+    assert [list(r["params"]) for r in got.refits] == [list(r["params"]) for r in want.refits]  # order kept
 
 
 def stored_blocks(path):

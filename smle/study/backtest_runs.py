@@ -143,7 +143,7 @@ class BacktestStore(SingleWriter):
         """Commit one finished block (one transaction)."""
         with self.transaction() as c:
             c.execute("INSERT INTO blocks VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                      (self.label, done["block"], _text(done["refit"]),
+                      (self.label, done["block"], json.dumps(done["refit"]),  # keeps the parameter order
                        *(_text(np.asarray(done[key]).tolist()) for key in _ARRAYS), done["seconds"], _now()))
             c.execute("INSERT OR REPLACE INTO meta VALUES ('last_activity', ?)", (_now(),))
 
