@@ -9,7 +9,8 @@ data, p(x_T | y_1..y_T), and simulates ``n_paths`` futures with the model's own 
 * one-dimensional state otherwise: x_T is drawn from the filtered masses on the exact grid of
   :mod:`smle.exact_likelihood` (Kitagawa 1987, JASA 82). Draws are the grid points themselves:
   an expectation over them is the grid's quadrature, accurate to its geometric order, and the
-  first transition makes x_{T+1} continuous;
+  first transition makes x_{T+1} continuous. Where the transition uses the data (``sv-leverage``,
+  Yu 2005) the filter runs with that per-period transition, and the first step ahead uses y_T;
 * no latent state (``garch``): the GARCH recursion continues from the last period's variance.
 
 Every path then runs T+1..T+H forward: the state's AR(1) transition, the GARCH recursion from
