@@ -40,7 +40,7 @@ _PUBLIC = {
     "Forecast": "smle.decision.forecast",
     "forecast": "smle.decision.forecast",
     "Backtest": "smle.decision.backtest",
-    "backtest": "smle.decision.backtest",
+    "backtest": "smle.study.backtest_runs",  # smle.decision.backtest.backtest, with an optional store
 }
 
 

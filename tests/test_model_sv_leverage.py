@@ -15,10 +15,16 @@ TRUTH = dict(mu=-0.4, phi=0.97, sigma_eta=0.2, delta=-0.5)
 
 
 def numpy_leverage_loglik(y, mu, phi, sigma_eta, delta, lower=-9.0, upper=7.0, n_points=700):
+    """The log-likelihood of :func:`numpy_leverage_filter`."""
+    return numpy_leverage_filter(y, mu, phi, sigma_eta, delta, lower, upper, n_points)[0]
+
+
+def numpy_leverage_filter(y, mu, phi, sigma_eta, delta, lower=-9.0, upper=7.0, n_points=700):
     """Kitagawa (1987) point-mass filter in plain NumPy on a dense fine grid, with Yu's (2005)
     transition given the day's return: x_{t+1} | x_t, y_t ~ N(mu + phi (x_t - mu) + delta sigma_eta
     y_t exp(-x_t / 2), sigma_eta^2 (1 - delta^2)); trapezoid weights, no normalisation (with the
-    transition sd at 5 or more grid spacings, their error is below exp(-2 pi^2 25), nil)."""
+    transition sd at 5 or more grid spacings, their error is below exp(-2 pi^2 25), nil).
+    Returns ``(loglik, grid, density)``: the density of x_{T+1} given y_1..y_T on the grid."""
     x = np.linspace(lower, upper, n_points)
     h = x[1] - x[0]
     density = stats.norm.pdf(x, mu, sigma_eta / math.sqrt(1 - phi**2))
@@ -31,7 +37,7 @@ def numpy_leverage_loglik(y, mu, phi, sigma_eta, delta, lower=-9.0, upper=7.0, n
         total += math.log(step)
         mean = mu + phi * (x - mu) + delta * sigma_eta * obs * np.exp(-0.5 * x)
         density = (h * stats.norm.pdf(x[:, None], mean[None, :], sd)) @ (joint / step)
-    return total
+    return total, x, density
 
 
 @pytest.mark.parametrize("delta", [-0.6, 0.3])

@@ -13,6 +13,8 @@ import time
 
 import pytest
 
+from _processes import count_rows as count_replications
+from _processes import sigkill_when
 from smle.study import export_csv, load_study, run_study
 from smle.study.store import TIMING_COLUMNS
 
@@ -53,16 +55,7 @@ def stored_rows(path):
 
 
 def count_rows(path):
-    if not path.exists():
-        return 0
-    try:
-        connection = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=5)
-        try:
-            return connection.execute("SELECT COUNT(*) FROM replications").fetchone()[0]
-        finally:
-            connection.close()
-    except sqlite3.OperationalError:
-        return 0
+    return count_replications(path, "replications")
 
 
 @pytest.fixture(scope="module")
@@ -77,20 +70,7 @@ def reference(tmp_path_factory):
 def test_sigkill_mid_run_then_resume_gives_the_uninterrupted_store(reference, tmp_path):
     folder, study = reference
     store = tmp_path / "killed.sqlite"
-    process = subprocess.Popen([sys.executable, "-c", RUNNER, str(folder / "study.toml"), str(store)],
-                               stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-    try:
-        deadline = time.monotonic() + 120
-        while count_rows(store) < 3 and process.poll() is None and time.monotonic() < deadline:
-            time.sleep(0.05)
-        assert process.poll() is None, process.stderr.read().decode()
-        os.kill(process.pid, signal.SIGKILL)
-        process.wait(timeout=30)
-    finally:
-        if process.poll() is None:
-            os.kill(process.pid, signal.SIGKILL)
-            process.wait()
-    assert process.returncode == -signal.SIGKILL
+    sigkill_when(["-c", RUNNER, str(folder / "study.toml"), str(store)], lambda: count_rows(store) >= 3)
     partial = count_rows(store)
     assert 3 <= partial < 10
     report = run_study(study, store=store, backend="inprocess", progress=False)

@@ -3,6 +3,7 @@ and out-of-sample log scores; optionally a second model and a Diebold-Mariano co
 
     smle backtest data.csv --model garch:ar1=0 --window 500 --refit-every 20 --report bt/
     smle backtest data.csv --model garch --against garch:innovations=t --window 500
+    smle backtest data.csv --model garch --window 500 --store bt.sqlite    (run again to resume)
 """
 
 from __future__ import annotations
@@ -12,21 +13,24 @@ import sys
 _EPILOG = """A model is NAME[:key=value,...] as in 'smle compare' (keys naming a parameter hold it at the
 value). Each forecast period t uses the --window periods before it, re-estimated every
 --refit-every forecasts (warm-started). Progress goes to stderr.
+With --store FILE each block (a re-estimation and its forecasts) is committed to the SQLite file
+as it finishes; the same command run again resumes after the last stored block and gives the
+numbers of an uninterrupted run. The file refuses a run with other settings or data.
 The report folder (--report) receives backtest.txt, backtest.json, backtest.csv and backtest.png
 (and the same with the suffix _against for --against).
 exit status: 0 done, 3 some fit did not converge, 2 bad input."""
 
 
-def _run(text, observations, args, fixed):
+def _run(text, observations, args, fixed, label):
     from smle.cli.shared import parse_model_spec
-    from smle.decision.backtest import backtest
+    from smle.study.backtest_runs import backtest
 
     model, held = parse_model_spec(text, fixed)
     levels = tuple(args.level) if args.level else (0.01, 0.05)
     progress = None if args.quiet else (lambda message: print(message, file=sys.stderr, flush=True))
     return backtest(model, observations.values, args.window, args.refit_every, levels=levels, n_paths=args.paths,
                     seed=args.seed, fixed=held or None, dates=observations.dates, progress=progress or False,
-                    n_draws=args.draws)
+                    store=args.store, label=label, n_draws=args.draws)
 
 
 def _command_backtest(args) -> int:
@@ -35,10 +39,10 @@ def _command_backtest(args) -> int:
     fixed = parse_fixed(args.fix)
     model, _ = parse_model_spec(args.model, fixed)
     observations = read_observations(args.data, args.column, args.prices, args.drop_missing, model)
-    results = [_run(args.model, observations, args, fixed)]
+    results = [_run(args.model, observations, args, fixed, "model")]
     print(results[0].summary())
     if args.against:
-        results.append(_run(args.against, observations, args, fixed))
+        results.append(_run(args.against, observations, args, fixed, "against"))
         print()
         print(results[1].summary())
         test = results[0].compare(results[1])
@@ -78,5 +82,7 @@ def add_backtest_command(commands) -> None:
     parser.add_argument("--seed", type=int, default=0, help="seed of the fits' draws and the paths (default 0)")
     parser.add_argument("--draws", type=int, default=64, help="EIS draws when a fit is simulated (default 64)")
     parser.add_argument("--report", help="folder for backtest.txt, backtest.json, backtest.csv and backtest.png")
+    parser.add_argument("--store", metavar="FILE", help="SQLite file keeping each finished block, so that a "
+                                                         "stopped backtest resumes (the same command again)")
     parser.add_argument("--quiet", action="store_true", help="no progress output")
     parser.set_defaults(handler=_command_backtest)

@@ -55,7 +55,8 @@ def _command_forecast(args) -> int:
 
     result, y = _fitted(args)
     levels = tuple(args.level) if args.level else (0.01, 0.05)
-    outcome = forecast(result, args.horizon, levels=levels, n_paths=args.paths, seed=args.seed, y=y)
+    outcome = forecast(result, args.horizon, levels=levels, n_paths=args.paths, seed=args.seed, y=y,
+                       parameter_draws=args.parameter_draws)
     print(outcome.summary())
     if args.report:
         names = write_result_files(outcome, args.report, "forecast")
@@ -89,6 +90,9 @@ def add_forecast_command(commands) -> None:
                         help="tail probability of the VaR and ES (repeatable; default 0.01 and 0.05)")
     parser.add_argument("--paths", type=int, default=20000, help="simulated paths (default 20000)")
     parser.add_argument("--seed", type=int, default=0, help="seed of the paths (and of the fit's draws) (default 0)")
+    parser.add_argument("--parameter-draws", type=int, default=0, metavar="N",
+                        help="pool the paths over N parameter vectors drawn from the estimates' asymptotic normal "
+                             "law, so that the bands include the parameter error (default 0: estimates as known)")
     parser.add_argument("--draws", type=int, default=64, help="EIS draws when the fit is simulated (default 64)")
     parser.add_argument("--report", help="folder for forecast.txt, forecast.json, forecast.csv and forecast.png")
     parser.add_argument("--quiet", action="store_true", help="no progress output while fitting")

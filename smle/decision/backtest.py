@@ -40,6 +40,7 @@ from smle.decision.report_files import JsonReport
 from smle.decision.forecast import check_forecast_model, check_levels, path_statistics, simulate_paths
 from smle.decision.scores import diebold_mariano
 from smle.errors import SmleInputError, describe
+from smle.exact_likelihood import resolve_method
 from smle.fit import fit
 from smle.models import Model, get_model
 from smle.models.base import model_options
@@ -63,7 +64,8 @@ class Backtest(JsonReport):
       log_score: the out-of-sample log predictive density of r_t, shape (N,).
       refits: one entry per estimation: ``period`` (first period forecast with it), ``params``,
         ``converged``, ``loglik``.
-      elapsed_seconds: wall-clock time of the whole backtest.
+      elapsed_seconds: wall-clock time of the blocks, summed (over the runs that computed them when
+        a stored backtest was resumed).
     """
 
     model: str
@@ -191,7 +193,8 @@ def _refit(model, y, start, **options):
     return cold if cold.converged or cold.loglik > result.loglik else result
 
 
-def _reporter(progress):
+def reporter(progress):
+    """A callable receiving progress messages: stderr for True, none for False or None, else ``progress``."""
     if progress is True:
         return lambda message: print(message, file=sys.stderr, flush=True)
     return progress or None
@@ -204,6 +207,114 @@ def _check_settings(model, y, window, refit_every):
         raise SmleInputError(f"window = {window} leaves no period to forecast in y of {y.shape[0]} periods; "
                              "accepted: a window shorter than the data")
     return window, refit_every
+
+
+@dataclasses.dataclass(frozen=True)
+class BacktestPlan:
+    """The checked settings of a backtest and its blocks: block b re-estimates on the ``window``
+    periods before its first forecast period and forecasts ``refit_every`` periods (fewer in the
+    last block) with those estimates. A block's numbers depend only on the plan, its index and the
+    estimates it is warm-started from, so blocks can be run, stored and resumed one at a time."""
+
+    model: Model
+    y: np.ndarray
+    window: int
+    refit_every: int
+    levels: tuple
+    n_paths: int
+    seed: int
+    dates: list | None
+    periods: np.ndarray
+
+    @property
+    def n_blocks(self) -> int:
+        return -(-self.periods.size // self.refit_every)
+
+    def block_steps(self, block: int) -> range:
+        """The forecast steps (indices into ``periods``) of ``block``."""
+        return range(block * self.refit_every, min((block + 1) * self.refit_every, self.periods.size))
+
+
+def plan_backtest(model, y, window, refit_every, levels=(0.01, 0.05), n_paths=10000, seed=0,
+                  dates=None) -> BacktestPlan:
+    """Check the arguments of :func:`backtest` (same meanings) and return its :class:`BacktestPlan`."""
+    model = get_model(model)
+    check_forecast_model(model)
+    levels = check_levels(levels)
+    y = check_observations(model, y)
+    window, refit_every = _check_settings(model, y, window, refit_every)
+    check_integer("n_paths", n_paths, 100)
+    seed = check_integer("seed", seed, 0)
+    if dates is not None and len(dates) != y.shape[0]:
+        raise SmleInputError(f"dates has {len(dates)} entries for {y.shape[0]} periods; accepted: one per period")
+    return BacktestPlan(model, np.asarray(y), window, refit_every, levels, n_paths, seed,
+                        None if dates is None else list(dates), np.arange(window, y.shape[0]))
+
+
+def run_block(plan: BacktestPlan, block: int, start: dict | None, fixed=None, **fit_options) -> dict:
+    """Re-estimate and forecast one block of ``plan``.
+
+    Args:
+      start: the estimates to warm-start from (the previous block's, when that fit converged), or
+        None for the model's own start values.
+      fixed, fit_options: as in :func:`backtest`.
+
+    Returns:
+      ``{"block", "refit", "value_at_risk", "var_se", "expected_shortfall", "log_score",
+      "seconds"}``: ``refit`` as in :attr:`Backtest.refits`, the arrays of shape (L, n) and (n,)
+      for the block's n forecasts. The fit's seed is the backtest's and each forecast's seed is
+      :func:`step_seed` of the backtest's seed and the step, so a block's numbers are a function of
+      the plan, the block index and ``start`` (the seed is passed to EIS fits only; the exact and
+      closed-form fits use none).
+    """
+    began, steps = time.perf_counter(), plan.block_steps(block)
+    first = int(plan.periods[steps[0]])
+    # the seed matters only to EIS fits (passed to the others, fit warns that it is unused)
+    seeded = {"seed": plan.seed} if resolve_method(plan.model, fit_options.get("method", "auto")) == "eis" else {}
+    result = _refit(plan.model, plan.y[first - plan.window:first], start, fixed=fixed, **seeded, **fit_options)
+    params = {k: float(v) for k, v in result.params.items()}
+    var, var_se, es = (np.empty((len(plan.levels), len(steps))) for _ in range(3))
+    scores = np.empty(len(steps))
+    for column, step in enumerate(steps):
+        t = int(plan.periods[step])
+        part, scores[column] = one_step(plan.model, jax_params(params), plan.y[t - plan.window:t + 1], plan.levels,
+                                        plan.n_paths, step_seed(plan.seed, step))
+        var[:, column], var_se[:, column], es[:, column] = part["var"][:, 0], part["var_se"][:, 0], part["es"][:, 0]
+    return {"block": block, "refit": {"period": first, "params": params, "converged": bool(result.converged),
+                                      "loglik": float(result.loglik)},
+            "value_at_risk": var, "var_se": var_se, "expected_shortfall": es, "log_score": scores,
+            "seconds": time.perf_counter() - began}
+
+
+def warm_start(previous: dict | None) -> dict | None:
+    """The start of the block after ``previous`` (a :func:`run_block` result): its estimates if its
+    fit converged, else None (the model's own start values)."""
+    return previous["refit"]["params"] if previous is not None and previous["refit"]["converged"] else None
+
+
+def block_message(plan: BacktestPlan, done: dict, elapsed: float) -> str:
+    """The progress line after block ``done`` (a :func:`run_block` result) has finished."""
+    refit, steps = done["refit"], plan.block_steps(done["block"])
+    return (f"backtest: block {done['block'] + 1}/{plan.n_blocks} done, forecasts {steps[-1] + 1}/"
+            f"{plan.periods.size} (rows {refit['period']}..{plan.periods[steps[-1]]}): log-likelihood "
+            f"{refit['loglik']:.3f}{'' if refit['converged'] else ' (not converged)'}, {elapsed:.1f} s")
+
+
+def assemble(plan: BacktestPlan, blocks: list) -> Backtest:
+    """The :class:`Backtest` of ``plan`` from its :func:`run_block` results, in block order (all of
+    them; the elapsed time is the sum of the blocks' own times)."""
+    if [b["block"] for b in blocks] != list(range(plan.n_blocks)):
+        raise ValueError(f"blocks {[b['block'] for b in blocks]} are not the {plan.n_blocks} blocks of the plan")
+    var, var_se, es = (np.concatenate([np.asarray(b[key], float).reshape(len(plan.levels), -1) for b in blocks], axis=1)
+                       for key in ("value_at_risk", "var_se", "expected_shortfall"))
+    scores = np.concatenate([np.asarray(b["log_score"], float) for b in blocks])
+    periods, y = plan.periods, plan.y
+    realized = y[periods] if y.ndim == 1 else y[periods, 0]
+    hits = (realized[None, :] < -var).astype(np.int64)
+    return Backtest(plan.model.name, model_options(plan.model), plan.window, plan.refit_every, plan.levels,
+                    plan.n_paths, plan.seed, periods,
+                    None if plan.dates is None else [str(plan.dates[t]) for t in periods], realized, var, var_se, es,
+                    hits, scores, [b["refit"] for b in blocks], float(sum(b["seconds"] for b in blocks)))
 
 
 def backtest(model, y, window: int, refit_every: int, levels=(0.01, 0.05), n_paths: int = 10000, seed: int = 0,
@@ -226,37 +337,13 @@ def backtest(model, y, window: int, refit_every: int, levels=(0.01, 0.05), n_pat
 
     Returns:
       A :class:`Backtest` (``coverage()``, ``compare()``, ``summary()``, ``to_frame()``, ``figure()``).
+      :func:`smle.backtest` with ``store=`` (:mod:`smle.study.backtest_runs`) keeps the blocks in a store, so
+      that a stopped backtest resumes.
     """
-    model = get_model(model)
-    check_forecast_model(model)
-    levels = check_levels(levels)
-    y = check_observations(model, y)
-    window, refit_every = _check_settings(model, y, window, refit_every)
-    check_integer("n_paths", n_paths, 100)
-    seed = check_integer("seed", seed, 0)
-    if dates is not None and len(dates) != y.shape[0]:
-        raise SmleInputError(f"dates has {len(dates)} entries for {y.shape[0]} periods; accepted: one per period")
-    say = _reporter(progress)
-    periods = np.arange(window, y.shape[0])
-    n_levels, n = len(levels), periods.size
-    var, var_se, es = (np.empty((n_levels, n)) for _ in range(3))
-    scores, refits, params, began = np.empty(n), [], None, time.perf_counter()
-    for step, t in enumerate(periods):
-        if step % refit_every == 0:
-            result = _refit(model, y[t - window:t], params if refits and refits[-1]["converged"] else None,
-                            seed=seed, fixed=fixed, **fit_options)
-            params = dict(result.params)
-            refits.append({"period": int(t), "params": params, "converged": bool(result.converged),
-                           "loglik": float(result.loglik)})
-            if say:
-                say(f"backtest: forecast {step + 1}/{n} (row {t}), fit {len(refits)} of "
-                    f"{-(-n // refit_every)}: log-likelihood {result.loglik:.3f}"
-                    f"{'' if result.converged else ' (not converged)'}, {time.perf_counter() - began:.1f} s")
-        part, scores[step] = one_step(model, jax_params(params), y[t - window:t + 1], levels, n_paths,
-                                      step_seed(seed, step))
-        var[:, step], var_se[:, step], es[:, step] = part["var"][:, 0], part["var_se"][:, 0], part["es"][:, 0]
-    realized = y[periods] if y.ndim == 1 else y[periods, 0]
-    hits = (realized[None, :] < -var).astype(np.int64)
-    return Backtest(model.name, model_options(model), window, refit_every, levels, n_paths, seed, periods,
-                    None if dates is None else [str(dates[t]) for t in periods], realized, var, var_se, es, hits,
-                    scores, refits, time.perf_counter() - began)
+    plan = plan_backtest(model, y, window, refit_every, levels, n_paths, seed, dates)
+    say, blocks, began = reporter(progress), [], time.perf_counter()
+    for block in range(plan.n_blocks):
+        blocks.append(run_block(plan, block, warm_start(blocks[-1] if blocks else None), fixed, **fit_options))
+        if say:
+            say(block_message(plan, blocks[-1], time.perf_counter() - began))
+    return assemble(plan, blocks)

@@ -9,7 +9,8 @@ data, p(x_T | y_1..y_T), and simulates ``n_paths`` futures with the model's own 
 * one-dimensional state otherwise: x_T is drawn from the filtered masses on the exact grid of
   :mod:`smle.exact_likelihood` (Kitagawa 1987, JASA 82). Draws are the grid points themselves:
   an expectation over them is the grid's quadrature, accurate to its geometric order, and the
-  first transition makes x_{T+1} continuous;
+  first transition makes x_{T+1} continuous. Where the transition uses the data (``sv-leverage``,
+  Yu 2005) the filter runs with that per-period transition, and the first step ahead uses y_T;
 * no latent state (``garch``): the GARCH recursion continues from the last period's variance.
 
 Every path then runs T+1..T+H forward: the state's AR(1) transition, the GARCH recursion from
@@ -31,7 +32,12 @@ Order Statistics, sec. 7.1, recalled from memory), its half-width / 1.96; for ES
 (Var(r | r <= q_p) + (1 - p) (q_p - E[r | r <= q_p])^2) / (n p) (Chen 2008, J. Financial
 Econometrics 6; recalled from memory).
 
-Parameters are taken as known (the estimates): parameter uncertainty is not in the bands.
+Parameters are taken as known (the estimates) unless ``parameter_draws`` = N > 0: then N parameter
+vectors are drawn from the estimates' asymptotic normal law on the fit's unconstrained scale
+(:mod:`smle.decision.parameter_draws`) and the paths are pooled over them (about n_paths / N
+each), so the bands include the parameter error. The paths of one draw share its parameters:
+the means' errors are then cluster-robust (:func:`~smle.decision.parameter_draws.cluster_mean_se`),
+while the VaR and ES errors still treat the pooled paths as independent, which understates them.
 Forecasts are statistical output, not advice (:data:`smle.results.CAUTION`).
 """
 
@@ -41,12 +47,15 @@ import dataclasses
 import functools
 import json
 import math
+import warnings
 from pathlib import Path
 
 import jax
 import jax.numpy as jnp
 import numpy as np
 
+from smle.decision.parameter_draws import (check_parameter_draws, cluster_mean_se, draw_sizes, parameter_sample,
+                                           sub_seed)
 from smle.decision.report_files import JsonReport
 from smle.errors import SmleInputError, describe
 from smle.models import Model, get_model, model_names, saved_model
@@ -76,8 +85,12 @@ class Forecast(JsonReport):
         for the return quantities also "var", "var_se", "es", "es_se" (len(levels), H)}.
       history: the last observed values of the first series (for the figure).
       paths: the simulated paths, quantity -> (H, n_paths) (kept in memory, not in the JSON).
+      parameter_draws: 0 (parameters taken as known) or the number N of parameter vectors the
+        paths were pooled over (about n_paths / N paths each).
+      parameter_sample: those N vectors, natural parameters by name (in memory, not in the JSON).
+      parameter_note: "" or a warning that the draws' normal law is wide for some parameter.
 
-    ``to_json(path=None)`` writes all but the paths.
+    ``to_json(path=None)`` writes all but the paths and the parameter sample.
     """
 
     model: str
@@ -94,6 +107,9 @@ class Forecast(JsonReport):
     stats: dict
     history: np.ndarray
     paths: dict | None = dataclasses.field(default=None, repr=False)
+    parameter_draws: int = 0
+    parameter_sample: list | None = dataclasses.field(default=None, repr=False)
+    parameter_note: str = ""
 
     def value_at_risk(self, level: float, quantity: str = "return") -> np.ndarray:
         """VaR at ``level`` for each step, shape (H,)."""
@@ -129,7 +145,7 @@ class Forecast(JsonReport):
     def to_dict(self) -> dict:
         out = {"format": FORMAT}
         for field in dataclasses.fields(self):
-            if field.name == "paths":
+            if field.name in ("paths", "parameter_sample"):
                 continue
             value = getattr(self, field.name)
             if field.name == "stats":
@@ -213,13 +229,18 @@ def path_statistics(paths: np.ndarray, probabilities, levels, tails: bool) -> di
 # simulation
 
 
+def _simulates_ahead(model: Model) -> bool:
+    """Whether ``model`` has a ``simulate_ahead`` hook of its own kind: a model whose transition
+    uses the data (leverage) needs one written for that transition, not one it inherits."""
+    if model.transition_uses_data:
+        return any("simulate_ahead" in vars(c) for c in type(model).__mro__
+                   if c is not Model and issubclass(c, Model) and getattr(c, "transition_uses_data", False))
+    return type(model).simulate_ahead is not Model.simulate_ahead
+
+
 def forecast_models() -> list[str]:
     """Registered models that simulate beyond the data (define ``simulate_ahead``)."""
-    def forecastable(model):
-        return (type(model).simulate_ahead is not Model.simulate_ahead and model.state_dim <= 1
-                and not getattr(model, "transition_uses_data", False))
-
-    return [n for n in model_names() if forecastable(get_model(n))]
+    return [n for n in model_names() if get_model(n).state_dim <= 1 and _simulates_ahead(get_model(n))]
 
 
 def check_forecast_model(model: Model) -> None:
@@ -227,8 +248,7 @@ def check_forecast_model(model: Model) -> None:
     if model.state_dim > 1:
         raise SmleInputError(f"forecasts need a one-dimensional latent state (or none): model '{model.name}' has a "
                              f"{model.state_dim}-dimensional state; accepted models: {', '.join(forecast_models())}")
-    if type(model).simulate_ahead is Model.simulate_ahead or getattr(model, "transition_uses_data", False):
-        # a transition that uses the data (leverage) needs its own filter start and forward simulation
+    if not _simulates_ahead(model):
         raise SmleInputError(f"model '{model.name}' does not simulate beyond the data; accepted models: "
                              f"{', '.join(forecast_models())}")
 
@@ -241,14 +261,16 @@ def end_state_draws(model: Model, params: dict, y, n_paths: int, key, run=None, 
     if model.state_dim == 0:
         return jnp.zeros(n_paths), "no latent state: the GARCH recursion continues from the last period's variance"
     from smle.engine.exact_smoothing import predicted_masses
-    from smle.exact_likelihood import exact_run, log_g_on
+    from smle.exact_likelihood import exact_run, log_g_on, transition_of
 
     run = exact_run(model, params, y) if run is None else run
     mean, sd = float(run.filtered_mean[row]), float(run.filtered_sd[row])
     if run.spec is None:
         draws = mean + sd * jax.random.normal(key, (n_paths,))
         return draws, f"x_T drawn from its Kalman-filtered law N({mean:.5g}, {sd:.5g}^2)"
-    _, filtered = predicted_masses(model.latent(params), log_g_on(model, params, y, run.spec), run.spec)
+    moves = transition_of(model, params, y)  # a transition that uses the data (leverage), or None
+    _, filtered = predicted_masses(model.latent(params), log_g_on(model, params, y, run.spec), run.spec,
+                                   None if moves is None else moves(run.spec.points()))
     return _grid_draws(run.spec.points(), filtered[row], key, n_paths), (
         f"x_T drawn from its filtered law on the exact grid ({run.spec.size} points; mean {mean:.5g}, sd {sd:.5g})")
 
@@ -284,6 +306,18 @@ def simulate_paths(model: Model, params: dict, y, horizon: int, n_paths: int, se
             "variance": np.asarray(variance)}, how
 
 
+def pooled_paths(model: Model, sample: list, y, horizon: int, n_paths: int, seed: int) -> tuple[dict, str]:
+    """:func:`simulate_paths` for each parameter vector of ``sample`` (about n_paths / N paths each,
+    draw i with seed :func:`sub_seed` (seed, 1, i)), pooled: ``(paths, how)``."""
+    parts, how = [], ""
+    for i, (params, size) in enumerate(zip(sample, draw_sizes(n_paths, len(sample)))):
+        part, how_i = simulate_paths(model, jax_params(params), y, horizon, size, sub_seed(seed, 1, i))
+        parts.append(part)
+        how = how or how_i
+    paths = {q: np.concatenate([part[q] for part in parts], axis=1) for q in QUANTITIES}
+    return paths, f"{how} (at the first of {len(sample)} parameter draws; the same way at each)"
+
+
 def check_levels(levels) -> tuple:
     try:
         values = tuple(float(p) for p in levels)
@@ -296,7 +330,7 @@ def check_levels(levels) -> tuple:
 
 
 def forecast(result: FitResult, horizon: int, levels=(0.01, 0.05), n_paths: int = 20000, seed: int = 0,
-             y=None) -> Forecast:
+             y=None, parameter_draws: int = 0) -> Forecast:
     """h-step predictive distributions of returns and of the variance after the end of a fit's data.
 
     Args:
@@ -307,6 +341,10 @@ def forecast(result: FitResult, horizon: int, levels=(0.01, 0.05), n_paths: int 
       seed: every random result is a function of it.
       y: the observations to start from (default: those stored in ``result``); the same model's
         data, possibly extended by later periods.
+      parameter_draws: 0 (default): the estimates are taken as known. N >= 2: N parameter
+        vectors drawn from the estimates' asymptotic normal law on the fit's unconstrained scale
+        (Krinsky and Robb 1986; :mod:`smle.decision.parameter_draws`), the paths pooled over
+        them, so that the bands include the parameter error; needs the fit's covariance.
 
     Returns:
       A :class:`Forecast` (``summary()``, ``to_frame()``, ``to_json()``, ``figure()``).
@@ -324,14 +362,25 @@ def forecast(result: FitResult, horizon: int, levels=(0.01, 0.05), n_paths: int 
                                  "forecast from")
         y = result.observations
     same_data = result.dates is not None and len(result.dates) == np.shape(y)[0]
-    return forecast_at(saved_model(result.model, result.model_options), result.params, y, horizon, levels=levels,
-                       n_paths=n_paths, seed=seed, last_date=result.dates[-1] if same_data else None)
+    model = saved_model(result.model, result.model_options)
+    n_paths = check_integer("n_paths", n_paths, MIN_PATHS)
+    sample, note = None, ""
+    if check_parameter_draws(parameter_draws, n_paths):
+        check_forecast_model(model)
+        sample, note = parameter_sample(model, result.params, result.covariance, result.fixed, parameter_draws,
+                                        check_integer("seed", seed, 0))
+        if note:
+            warnings.warn(f"parameter_draws: {note}", UserWarning, stacklevel=2)
+    outcome = forecast_at(model, result.params, y, horizon, levels=levels, n_paths=n_paths, seed=seed,
+                          last_date=result.dates[-1] if same_data else None, parameter_sample=sample)
+    return dataclasses.replace(outcome, parameter_note=note) if note else outcome
 
 
 def forecast_at(model, params, y, horizon: int, levels=(0.01, 0.05), n_paths: int = 20000, seed: int = 0,
-                last_date: str | None = None) -> Forecast:
+                last_date: str | None = None, parameter_sample: list | None = None) -> Forecast:
     """:func:`forecast` for a model (name or instance) at given parameters (a mapping by name) after
-    observations ``y``; ``last_date`` labels the last period. Used by backtests and tests."""
+    observations ``y``; ``last_date`` labels the last period; ``parameter_sample``: parameter
+    vectors to pool the paths over (None: ``params`` taken as known). Used by backtests and tests."""
     model = get_model(model)
     check_forecast_model(model)
     horizon = check_integer("horizon", horizon, 1)
@@ -342,9 +391,17 @@ def forecast_at(model, params, y, horizon: int, levels=(0.01, 0.05), n_paths: in
     levels = check_levels(levels)
     checked = checked_params(model, params)
     y = check_observations(model, y)
-    paths, how = simulate_paths(model, jax_params(checked), y, horizon, n_paths, seed)
+    if parameter_sample:
+        sample = [checked_params(model, draw) for draw in parameter_sample]
+        paths, how = pooled_paths(model, sample, y, horizon, n_paths, seed)
+    else:
+        paths, how = simulate_paths(model, jax_params(checked), y, horizon, n_paths, seed)
     probabilities = tuple(sorted({round(p, 12) for p in (*FAN_PROBABILITIES, *levels, *(1.0 - p for p in levels))}))
     stats = {q: path_statistics(paths[q], probabilities, levels, tails=q != "variance") for q in QUANTITIES}
+    if parameter_sample:
+        for q in QUANTITIES:
+            stats[q]["mean_se"] = cluster_mean_se(paths[q], draw_sizes(n_paths, len(parameter_sample)))
     first = y if y.ndim == 1 else y[:, 0]
     return Forecast(model.name, model_options(model), dict(checked), int(y.shape[0]), last_date, horizon, levels,
-                    probabilities, n_paths, seed, how, stats, np.asarray(first[-HISTORY:], float), paths)
+                    probabilities, n_paths, seed, how, stats, np.asarray(first[-HISTORY:], float), paths,
+                    len(parameter_sample or ()), [dict(d) for d in parameter_sample] if parameter_sample else None)

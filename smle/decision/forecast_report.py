@@ -49,6 +49,10 @@ def _monte_carlo_block(forecast) -> list[str]:
         lines.append(layout.field(f"largest standard error over steps, {quantity}", "; ".join(errors)))
     lines.append(layout.field("largest standard error over steps, variance mean",
                               f"{np.max(forecast.stats['variance']['mean_se']):.2g}"))
+    if forecast.parameter_draws:
+        lines.append(f"paths pooled over {forecast.parameter_draws} parameter draws: the means' errors are "
+                     "cluster-robust (one cluster per draw); the VaR and ES errors treat the paths as independent "
+                     "and understate")
     return layout.block(f"Monte Carlo ({forecast.n_paths} paths, seed {forecast.seed})", lines)
 
 
@@ -58,8 +62,12 @@ def summary_text(forecast) -> str:
     parameters = ", ".join(f"{k} {v:.5g}" for k, v in forecast.params.items())
     start = layout.block("Start", [
         forecast.start,
-        layout.field("parameters (taken as known: their uncertainty is not in the bands)", parameters),
+        layout.field("parameters (taken as known: their uncertainty is not in the bands)" if not
+                     forecast.parameter_draws else f"parameters (estimates; the paths are pooled over "
+                     f"{forecast.parameter_draws} draws from their asymptotic normal law, so the bands include the "
+                     "parameter error)", parameters),
         "VaR_p = -q_p, the loss exceeded with probability p; ES_p = -E[r | r <= q_p]; units of the data",
+        *([layout.warning(forecast.parameter_note)] if forecast.parameter_note else []),
     ])
     blocks = [start] + [_quantity_block(forecast, q) for q in ("return", "cumulative return", "variance")]
     blocks.append(_monte_carlo_block(forecast))

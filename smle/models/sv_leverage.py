@@ -73,6 +73,28 @@ class LeverageStochasticVolatility(LogVarianceState):
         _, (x, y) = jax.lax.scan(step, x1, (eps, eta))
         return y, x
 
+    def simulate_ahead(self, params, y, x_last, n_periods, key):
+        """Returns exp(x_t / 2) eps_t, variances exp(x_t) and states for T+1..T+n, one path per
+        draw ``x_last`` of x_T. The first transition uses the data: eps_T = y_T exp(-x_T / 2) at
+        each draw, so x_{T+1} | x_T, y_T is the Gaussian of the module docstring; later steps
+        draw eta_{t+1} = delta eps_t + sqrt(1 - delta^2) z_{t+1} with the simulated eps_t, as in
+        :meth:`simulate`. The random streams are those of ``sv``'s hook, so delta = 0 gives its paths."""
+        mu, phi, sigma, delta = (jnp.asarray(params[k], float) for k in ("mu", "phi", "sigma_eta", "delta"))
+        state_key, error_key = jax.random.split(key)
+        x_last = jnp.asarray(x_last, float)
+        z = jax.random.normal(state_key, (n_periods,) + x_last.shape)
+        eps = self.return_errors(params, error_key, z.shape)
+        eps_last = jnp.ravel(jnp.asarray(y, float))[-1] * jnp.exp(-0.5 * x_last)
+        previous = jnp.concatenate([eps_last[None], eps[:-1]])  # eps_t paired with the step to x_{t+1}
+
+        def step(x, shocks):
+            e, noise = shocks
+            following = mu + phi * (x - mu) + sigma * (delta * e + jnp.sqrt(1.0 - delta**2) * noise)
+            return following, following
+
+        x = jax.lax.scan(step, x_last, (previous, z))[1]
+        return jnp.exp(0.5 * x) * eps, jnp.exp(x), x
+
     def start_params(self, y):
         y = np.asarray(y, float)
         return {"mu": float(np.log(np.var(y))), "phi": 0.95, "sigma_eta": 0.25, "delta": -0.3}

@@ -108,6 +108,9 @@ def check_compatible(path, study: Study | None = None, allow_new_version: bool =
         meta = _read_meta(connection, path)
         if "schema_version" not in meta:
             raise SmleInputError(f"store {str(path)!r} is not an smle study store (no schema_version)")
+        if meta.get("store_kind", "study") != "study":
+            raise SmleInputError(f"store {str(path)!r} is a {meta['store_kind']} store, not a study store; "
+                                 "accepted: a store written by a study (smle study run)")
         if meta["schema_version"] != str(SCHEMA_VERSION):
             raise SmleInputError(
                 f"store {str(path)!r} has store schema version {meta['schema_version']} (written by smle "
@@ -135,36 +138,41 @@ def check_compatible(path, study: Study | None = None, allow_new_version: bool =
         connection.close()
 
 
-class Store:
-    """A study store opened for writing by the (single) runner.
+class SingleWriter:
+    """An SQLite store file opened for writing by one process (WAL, full synchronous commits).
 
-    A new store is built complete (tables, meta, designs) in a temporary file of the same
-    folder and then linked into place, so a reader never sees a store file without its tables.
+    A new file is built complete by ``define(connection)`` in a temporary file of the same folder
+    and then linked into place, so a reader never sees a store file without its tables; ``check()``
+    refuses an existing file that cannot take this writer's results (called before anything is
+    written). The base of the study :class:`Store` and of the backtest store
+    (:mod:`smle.study.backtest_runs`); ``kind`` names what writes it in messages.
     """
 
-    def __init__(self, path, study: Study, allow_new_version: bool = False):
+    kind = "study"
+
+    def __init__(self, path, define, check):
         self.path = Path(path)
-        check_compatible(self.path, study, allow_new_version)
+        check()
         self.path.parent.mkdir(parents=True, exist_ok=True)
-        if not self.path.exists() and not _create_atomically(self.path, study):
-            check_compatible(self.path, study, allow_new_version)  # another process created it meanwhile
+        if not self.path.exists() and not _create_atomically(self.path, define):
+            check()  # another process created it meanwhile
         self.connection = _connect(self.path, read_only=False)
         c = self.connection
         c.execute("PRAGMA journal_mode=WAL")
         c.execute("PRAGMA synchronous=FULL")
         c.execute("PRAGMA foreign_keys=ON")
-        _write_definition(c, study)
+        define(c)
 
     def transaction(self):
         return _Transaction(self.connection)
 
     def claim(self) -> None:
-        """Record this process as the study's runner; refuse if another live runner holds the store."""
+        """Record this process as the store's writer; refuse if another live writer holds it."""
         meta = {r["key"]: r["value"] for r in self.connection.execute("SELECT key, value FROM meta")}
         pid, host = meta.get("runner_pid"), meta.get("runner_host")
         if pid and host == socket.gethostname() and int(pid) != os.getpid() and _alive(int(pid)):
-            raise SmleInputError(f"store {str(self.path)!r} is being written by a running study (process {pid} on {host}); "
-                                 "wait for it or stop it first")
+            raise SmleInputError(f"store {str(self.path)!r} is being written by a running {self.kind} (process {pid} "
+                                 f"on {host}); wait for it or stop it first")
         with self.transaction():
             self.connection.execute("INSERT OR REPLACE INTO meta VALUES ('runner_pid', ?)", (str(os.getpid()),))
             self.connection.execute("INSERT OR REPLACE INTO meta VALUES ('runner_host', ?)", (socket.gethostname(),))
@@ -172,6 +180,17 @@ class Store:
     def release(self) -> None:
         with self.transaction():
             self.connection.execute("DELETE FROM meta WHERE key IN ('runner_pid', 'runner_host')")
+
+    def close(self) -> None:
+        self.connection.close()
+
+
+class Store(SingleWriter):
+    """A study store opened for writing by the (single) runner."""
+
+    def __init__(self, path, study: Study, allow_new_version: bool = False):
+        super().__init__(path, lambda connection: _write_definition(connection, study),
+                         lambda: check_compatible(path, study, allow_new_version))
 
     def done_keys(self, include_failed: bool = True) -> set:
         query = "SELECT design, replication FROM replications" + ("" if include_failed else " WHERE status = 'ok'")
@@ -203,9 +222,6 @@ class Store:
                            for e in row["estimates"]])
             c.execute("INSERT OR REPLACE INTO meta VALUES ('last_activity', ?)", (_now(),))
 
-    def close(self) -> None:
-        self.connection.close()
-
 
 def _write_definition(c: sqlite3.Connection, study: Study) -> None:
     """Tables (if missing), meta and design rows; the identity of existing designs is kept."""
@@ -229,8 +245,9 @@ def _write_definition(c: sqlite3.Connection, study: Study) -> None:
                 (design.name, position, design.replications, canonical_json(design.identity())))
 
 
-def _create_atomically(path: Path, study: Study) -> bool:
-    """Write a complete new store to a temporary file beside ``path``, then link it to ``path``.
+def _create_atomically(path: Path, define) -> bool:
+    """Write a complete new store (``define(connection)``) to a temporary file beside ``path``,
+    then link it to ``path``.
 
     Returns False if ``path`` appeared meanwhile (``os.link`` refuses to replace it: another
     runner won the race), and the caller checks that store instead.
@@ -241,7 +258,7 @@ def _create_atomically(path: Path, study: Study) -> bool:
         connection = sqlite3.connect(temporary, isolation_level=None)
         try:
             connection.execute("PRAGMA journal_mode=WAL")
-            _write_definition(connection, study)
+            define(connection)
         finally:
             connection.close()
         try:
