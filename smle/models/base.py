@@ -36,8 +36,9 @@ With a k-dimensional state (``state_dim = k > 1``) the state is a Gaussian VAR(1
   fewer regressors, fewer draws needed. The basis must cover every entry where the Hessian of
   log g_t in x_t can be non-zero.
 
-The health check, the particle filter and goodness of fit (``check``, ``filter_factor``,
-``diagnose``) and control variates are not yet available for k > 1 (a clear error says so).
+``check``, ``filter_factor`` (a guided particle filter in k dimensions) and ``diagnose`` work for
+k > 1; control variates are not yet available there (a clear error says so). ``component_names()``
+names the components (default ``x1 .. xk``).
 
 Optional hooks (each has a default here):
 
@@ -280,6 +281,13 @@ class Model:
         (the posterior band stays a band). Default: the state itself, labelled ``factor_name``.
         """
         return np.asarray(x, float), self.factor_name
+
+    def component_names(self) -> tuple[str, ...]:
+        """A short name per state component, in state order (figures, filter and test labels):
+        ``(factor_name,)`` for a one-dimensional state, ``("x1", ..., "xk")`` by default for k > 1."""
+        if self.state_dim <= 1:
+            return (self.factor_name,)
+        return tuple(f"x{j + 1}" for j in range(self.state_dim))
 
 
 def model_options(model: Model) -> dict:
