@@ -325,7 +325,7 @@ def resolve_filter_method(model: Model, method) -> str:
 
 def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000, seed=0,
                   resample_threshold: float = 0.5, method: str = "auto",
-                  exact_tol: float = EXACT_TOL) -> FilterResult:
+                  exact_tol: float = EXACT_TOL, smooth: bool = True) -> FilterResult:
     """Filter the latent factor of ``model`` at ``params``: exactly, or with a guided particle filter.
 
     Args:
@@ -343,6 +343,8 @@ def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000
         k > 1 in k dimensions, with the smoothed factor per component from one EIS run at
         ``params`` seeded by ``seed``, :mod:`smle.diagnostics.filtering_multi`).
       exact_tol: accuracy of the exact method's log-likelihood (log-likelihood units).
+      smooth: for a k-dimensional state, whether to add the smoothed factor (one EIS run; False
+        leaves the smoothed fields None). The exact route always smooths.
 
     Returns:
       A :class:`FilterResult`; its ``method`` and ``engine`` say which filter ran.
@@ -364,10 +366,11 @@ def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000
         return FilterResult(model=model.name, factor_name=model.factor_name, method="exact", ess=None,
                             resample_count=None, n_particles=None, seed=None, resample_threshold=None,
                             factor_names=model.component_names(), **out._asdict())
-    return particle_result(model, checked, y, n_particles, seed, key, resample_threshold)
+    return particle_result(model, checked, y, n_particles, seed, key, resample_threshold, smooth)
 
 
-def particle_result(model: Model, checked, y, n_particles: int, seed, key, resample_threshold: float) -> FilterResult:
+def particle_result(model: Model, checked, y, n_particles: int, seed, key, resample_threshold: float,
+                    smooth: bool = True) -> FilterResult:
     """The guided particle filter's :class:`FilterResult` (inputs checked by :func:`filter_factor`)."""
     from smle.diagnostics.filtering_multi import compiled_filter_multi, smoothed_by_eis
 
@@ -399,5 +402,5 @@ def particle_result(model: Model, checked, y, n_particles: int, seed, key, resam
         seed=seed if isinstance(seed, int) else -1,
         resample_threshold=resample_threshold,
         factor_names=model.component_names(),
-        **(smoothed_by_eis(model, checked, y, seed) if model.state_dim > 1 else {}),
+        **(smoothed_by_eis(model, checked, y, seed) if smooth and model.state_dim > 1 else {}),
     )

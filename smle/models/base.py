@@ -63,6 +63,8 @@ state-space methods ``loglik_closed_form(params, y)`` (the exact log-likelihood,
   depends on the data (leverage), for the exact method; EIS refuses such a model;
 * ``gaussian_measurement(params)``: for a linear Gaussian model, ``y_t = x_t + N(0, v)``, the
   variance ``v``; the exact method then runs the Kalman filter (default None: not linear Gaussian).
+  With a k-dimensional state, the (k, k) covariance H of ``y_t = x_t + N(0, H)`` (the health
+  check's Kalman reference).
 * ``simulate_ahead(params, y, x_last, n_periods, key)``: paths beyond the end of the data ``y``
   from draws ``x_last`` (S,) of the state at T (``smle.forecast``); default: a clear error.
 
