@@ -99,7 +99,7 @@ def test_bad_options_and_unavailable_features_are_refused():
         smle.loglik(model, params, y, n_draws=6, method="eis")
     with pytest.raises(SmleInputError, match="method = 'exact' needs a one-dimensional latent state"):
         smle.filter_factor(model, params, y, method="exact")
-    with pytest.raises(SmleInputError, match="smle.check is not yet available"):
-        smle.check(model, params, y)
+    with pytest.raises(SmleInputError, match="n_draws=6 is too few"):
+        smle.check(model, params, y, n_draws=6)
     with pytest.raises(SmleInputError, match=r"expects shape \(T, 2\)"):
         smle.loglik(model, params, y[:, 0])
