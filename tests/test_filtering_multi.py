@@ -15,12 +15,15 @@ Tolerances are measured with experiments/filter_multi_accuracy.py (results/filte
 T = 300, 1000 particles, 20 seeds) and stated beside each check.
 """
 
+import json
+
 import jax.numpy as jnp
 import numpy as np
 import pytest
 from scipy.stats import norm
 
 import smle
+from smle import cli
 from smle.errors import SmleInputError
 from smle.reference import grid2d_loglik
 from smle.reference.kalman_var import kalman_filter_var
@@ -160,6 +163,13 @@ def test_diagnose_a_k_dimensional_fit(tmp_path):
     assert len(report.write(tmp_path)) == 6 and "x_2" in (tmp_path / "diagnostics.txt").read_text()
     with pytest.raises(SmleInputError, match="method = 'exact' needs a one-dimensional latent state"):
         smle.diagnose(fit, method="exact")
+    # the command line: `smle diagnose` of the saved fit writes the same report (same seed and particles)
+    fit.to_json(tmp_path / "result.json")
+    assert cli.main(["diagnose", str(tmp_path / "result.json"), "--particles", str(N), "--quiet", "--report",
+                     str(tmp_path / "cli")]) == 0
+    saved = json.loads((tmp_path / "cli" / "diagnostics.json").read_text())
+    np.testing.assert_allclose(saved["pit"], report.pit, rtol=1e-12)
+    assert np.shape(saved["filtered_mean"]) == (100, 2)
 
 
 def test_check_of_k_dimensional_states_against_their_exact_references():

@@ -51,7 +51,7 @@ from __future__ import annotations
 import dataclasses
 import functools
 import math
-from typing import Callable, Mapping, NamedTuple
+from typing import Callable, Mapping
 
 import jax
 import jax.numpy as jnp
@@ -60,6 +60,8 @@ import numpy as np
 from smle.errors import SmleInputError
 from smle.engine.posterior import weighted_quantiles
 from smle.diagnostics.filtering_exact import exact_factor
+from smle.diagnostics.filtering_multi import compiled_filter_multi, smoothed_by_eis
+from smle.diagnostics.particles import FilterOutput, has_obs_cdf, systematic_ancestors  # noqa: F401 (public names)
 from smle.exact_likelihood import EXACT_TOL, check_exact_tol, resolve_method
 from smle.validation import as_key, check_integer, check_memory, checked_inputs, jax_params, memory_needed
 from smle.models import Model
@@ -70,38 +72,10 @@ MIN_CURVATURE = 1e-8
 QUANTILES = (0.05, 0.95)
 
 
-class FilterOutput(NamedTuple):
-    """What the compiled filter returns (JAX arrays, leading dimension T).
-
-    Attributes:
-      filtered_mean: E[x_t | y_1..y_t], shape (T,) ((T, k) for a k-dimensional state, as for
-        every state summary); filtered_sd: its standard deviation.
-      filtered_quantiles: 5% and 95% quantiles of x_t given y_1..y_t, shape (2, T) (or (2, T, k)).
-      log_predictive: log p(y_t | y_1..y_{t-1}), shape (T,).
-      pit: PIT of each series under its one-step predictive law, shape (T, n_series)
-        (zeros when the model has no ``obs_cdf``).
-      ess: effective sample size of the weights after period t's observation, shape (T,).
-      resampled: whether the particles were resampled after period t, shape (T,).
-    """
-
-    filtered_mean: jax.Array
-    filtered_sd: jax.Array
-    filtered_quantiles: jax.Array
-    log_predictive: jax.Array
-    pit: jax.Array
-    ess: jax.Array
-    resampled: jax.Array
-
-
 def no_state_message(model: Model) -> str:
     """Why a model without a latent state has nothing to filter, and where its PITs are."""
     return (f"model '{model.name}' has no latent state to filter (state_dim = 0); its one-step predictive "
             "densities and PITs are exact: model.log_predictive(params, y) and model.predictive_cdf(params, y)")
-
-
-def has_obs_cdf(model: Model) -> bool:
-    """Whether the model supplies its conditional CDF (needed for PITs)."""
-    return type(model).obs_cdf is not Model.obs_cdf
 
 
 def proposal_kernels(model: Model, params: Mapping, data, n_steps: int = NEWTON_STEPS,
@@ -137,20 +111,6 @@ def proposal_kernels(model: Model, params: Mapping, data, n_steps: int = NEWTON_
     c = jnp.maximum(-second, min_curvature)
     b = first + c * mode
     return b, c
-
-
-def systematic_ancestors(log_weights: jax.Array, uniform: jax.Array) -> jax.Array:
-    """Ancestor indices of systematic resampling, shape (N,), from normalised log weights.
-
-    The j-th stratum point ``(uniform + j) / N`` takes the first particle whose cumulative
-    weight exceeds it; counting by a scatter-add keeps the cost O(N).
-    """
-    n = log_weights.shape[0]
-    cdf = jnp.cumsum(jnp.exp(log_weights - jnp.max(log_weights)))
-    cdf = cdf / cdf[-1]
-    position = jnp.clip(jnp.ceil(n * cdf - uniform), 0, n).astype(jnp.int32)
-    marks = jnp.zeros((n + 1,), jnp.int32).at[position].add(1)
-    return jnp.minimum(jnp.cumsum(marks[:n]), n - 1)
 
 
 def guided_filter(model: Model, params: Mapping, y, key, n_particles: int,
@@ -372,8 +332,6 @@ def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000
 def particle_result(model: Model, checked, y, n_particles: int, seed, key, resample_threshold: float,
                     smooth: bool = True) -> FilterResult:
     """The guided particle filter's :class:`FilterResult` (inputs checked by :func:`filter_factor`)."""
-    from smle.diagnostics.filtering_multi import compiled_filter_multi, smoothed_by_eis
-
     run = compiled_filter_multi if model.state_dim > 1 else compiled_filter
     out = run(model, n_particles)(jax_params(checked), jnp.asarray(y), key, resample_threshold)
     log_predictive = np.asarray(out.log_predictive)

@@ -45,6 +45,8 @@ from jax.scipy.linalg import solve_triangular
 from smle.engine.eis_multi import _period_derivatives
 from smle.engine.multi_basis import SMALL_DIM, small_cholesky, small_solve_lower
 from smle.engine.posterior import path_quantiles, weighted_quantiles
+from smle.likelihood import loglik
+from smle.diagnostics.particles import FilterOutput, has_obs_cdf, systematic_ancestors
 
 NEWTON_STEPS = 8
 MIN_CURVATURE = 1e-8
@@ -125,10 +127,8 @@ def _weighted_summary(current, weights):
 
 def guided_filter_multi(model, params: Mapping, y, key, n_particles: int, resample_threshold=0.5):
     """Pure JAX guided particle filter in k dimensions; returns a
-    :class:`~smle.diagnostics.filtering.FilterOutput` whose per-period state summaries carry a
+    :class:`~smle.diagnostics.particles.FilterOutput` whose per-period state summaries carry a
     trailing component axis (filtered_mean (T, k), filtered_quantiles (2, T, k))."""
-    from smle.diagnostics.filtering import FilterOutput, has_obs_cdf, systematic_ancestors
-
     data = model.prepare(params, y)
     state = model.latent_var(params)
     b, c = proposal_kernels_multi(model, params, data)
@@ -185,8 +185,6 @@ def smoothed_by_eis(model, params: Mapping, y, seed: int, n_paths: int = SMOOTHI
     ``smoothed_mean``, ``smoothed_sd``, ``smoothed_lower``, ``smoothed_upper``, each (T, k), the
     importance-weighted moments and 5%/95% quantiles of ``n_paths`` scoring paths (EIS defaults
     otherwise: 64 fitting draws, antithetic). ``seed``: a non-negative integer."""
-    from smle.likelihood import loglik
-
     lik = loglik(model, params, y, n_draws=64, seed=seed, n_score_draws=max(n_paths, 64), method="eis")
     weights = np.exp(lik.log_weights - lik.log_weights.max())
     weights = weights / weights.sum()
