@@ -141,7 +141,7 @@ def k_dimensional_reference(model, checked, y):
             return None, f"no exact reference: {error}"
         bound = abs(fine - coarse)
         return ReferenceValue(fine, bound), f"two-dimensional grid filter, error bound {bound:.1e}"
-    return None, f"no exact reference: {model.state_dim}-dimensional state (no grid covers it); spread over seeds only"
+    return None, f"no exact reference: {model.state_dim}-dimensional state (no grid covers it)"
 
 
 def reference(model, checked, y):
