@@ -61,15 +61,14 @@ from smle.errors import SmleInputError
 from smle.engine.posterior import weighted_quantiles
 from smle.diagnostics.filtering_exact import exact_factor
 from smle.diagnostics.filtering_multi import compiled_filter_multi, smoothed_by_eis
-from smle.diagnostics.particles import FilterOutput, has_obs_cdf, systematic_ancestors  # noqa: F401 (public names)
+from smle.diagnostics.particles import (  # noqa: F401 (public names of filtering)
+    MIN_CURVATURE, NEWTON_STEPS, QUANTILES, FilterOutput, has_obs_cdf, systematic_ancestors,
+)
 from smle.exact_likelihood import EXACT_TOL, check_exact_tol, resolve_method
 from smle.validation import as_key, check_integer, check_memory, checked_inputs, jax_params, memory_needed
 from smle.models import Model
 
 MIN_PARTICLES = 100
-NEWTON_STEPS = 8
-MIN_CURVATURE = 1e-8
-QUANTILES = (0.05, 0.95)
 
 
 def no_state_message(model: Model) -> str:
@@ -202,7 +201,7 @@ class FilterResult:
       smoothed_mean, smoothed_sd, smoothed_lower, smoothed_upper: the same given y_1..y_T (exact
         method; for a k-dimensional state, the importance-weighted EIS scoring paths at the same
         parameters, :func:`smle.diagnostics.filtering_multi.smoothed_by_eis`; None for particles
-        with a one-dimensional state, which the exact route smooths).
+        with a one-dimensional state, which the exact route smooths, and with ``smooth=False``).
       grid_size: points of the grid (0 for the Kalman filter; None for particles).
       error_bound: the exact method's accuracy estimate of ``loglik`` against a coarser grid (0 for
         the Kalman filter, exact to rounding; None for particles).

@@ -46,11 +46,10 @@ from smle.engine.eis_multi import _period_derivatives
 from smle.engine.multi_basis import SMALL_DIM
 from smle.engine.posterior import path_quantiles, weighted_quantiles
 from smle.likelihood import loglik
-from smle.diagnostics.particles import FilterOutput, has_obs_cdf, systematic_ancestors
+from smle.diagnostics.particles import (
+    MIN_CURVATURE, NEWTON_STEPS, QUANTILES, FilterOutput, has_obs_cdf, systematic_ancestors,
+)
 
-NEWTON_STEPS = 8
-MIN_CURVATURE = 1e-8
-QUANTILES = (0.05, 0.95)
 SMOOTHING_PATHS = 2000
 """EIS scoring paths behind the smoothed factor of :func:`smoothed_by_eis`."""
 

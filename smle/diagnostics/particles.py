@@ -11,6 +11,13 @@ import jax.numpy as jnp
 
 from smle.models import Model
 
+NEWTON_STEPS = 8
+"""Newton steps to each period's mode behind the proposal kernels (both filters)."""
+MIN_CURVATURE = 1e-8
+"""Floor of the proposal kernels' curvature (an integrable kernel where log g_t is flat)."""
+QUANTILES = (0.05, 0.95)
+"""The filtered band's probabilities."""
+
 
 class FilterOutput(NamedTuple):
     """What the compiled filter returns (JAX arrays, leading dimension T).
