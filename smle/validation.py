@@ -210,16 +210,6 @@ def check_state_settings(model: Model, settings: eis.EISSettings) -> None:
         eis_multi.check_draws(settings.n_score_draws, 0, (), settings.antithetic)
 
 
-def require_scalar_state(model: Model, what: str) -> None:
-    """Raise SmleInputError if ``what`` (a function name) is asked of a model with k > 1."""
-    if model.state_dim > 1:
-        raise SmleInputError(
-            f"{what} is not yet available for a k-dimensional state: model '{model.name}' has k = "
-            f"{model.state_dim}; accepted: models with a one-dimensional state (smle.loglik and smle.fit "
-            "work for both)"
-        )
-
-
 def checked_params(model: Model, params) -> dict[str, float]:
     """``params`` checked against the model's constraints and joint constraints (floats by name)."""
     checked = check_params(model.name, model.constraints(), params)

@@ -42,13 +42,6 @@ def test_every_registered_model_has_a_conditional_cdf():
             assert callable(getattr(model, "predictive_cdf", None)), name
             with pytest.raises(smle.SmleInputError, match="no latent state to filter.*predictive_cdf"):
                 smle.filter_factor(model, model.start_params(np.linspace(-1, 1, 50)), np.linspace(-1, 1, 50))
-        elif model.state_dim > 1:
-            # the particle filter and the PITs are not yet available for a k-dimensional state;
-            # filter_factor says so instead of failing inside the filter
-            data = np.random.default_rng(0).normal(size=(50, model.n_series)).squeeze()
-            for method in ("auto", "exact", "particles"):
-                with pytest.raises(smle.SmleInputError, match="not yet available for a .*dimensional state"):
-                    smle.filter_factor(model, model.start_params(data), data, method=method)
         else:
             assert has_obs_cdf(model), name
 

@@ -372,13 +372,15 @@ def test_understated_nse_is_found(garch_data):
 
 
 def test_no_exact_reference_for_a_k_dimensional_state(healthy_report):
-    model = smle.get_model("sv-2factor")
+    # sv-2factor (the two-dimensional grid) and var1-noise (the Kalman filter) have references, tested
+    # in tests/test_filtering_multi.py; factor-sv's state of dimension N + 1 has none
+    model = smle.get_model("factor-sv", n_series=2)
     exact, note = health_exact.reference(model, {}, np.zeros(3))
-    assert exact is None and note == "no exact reference: 2-dimensional state"
-    # the report without a reference says so and judges the spread only (today's behaviour)
+    assert exact is None and note == "no exact reference: 3-dimensional state (no grid covers it)"
+    # the report without a reference says so and judges the spread only
     plain = dataclasses.replace(healthy_report, exact=None, reference=note)
     text = plain.summary()
-    assert "no exact reference: 2-dimensional state: the error is judged from the spread over seeds" in text
+    assert "no exact reference: 3-dimensional state (no grid covers it): the error is judged from the spread over seeds" in text
     assert "error per seed" not in text
     evidence_finding = health_findings.exact_error_finding(_evidence(plain, note))
     assert evidence_finding[0].severity is None and note in evidence_finding[0].text

@@ -97,9 +97,28 @@ def test_bad_options_and_unavailable_features_are_refused():
         smle.loglik(model, params, y, control_variates="draws", method="eis")
     with pytest.raises(SmleInputError, match="n_draws=6 is too few"):
         smle.loglik(model, params, y, n_draws=6, method="eis")
-    with pytest.raises(SmleInputError, match="smle.filter_factor is not yet available for a k-dimensional state"):
-        smle.filter_factor(model, params, y)
-    with pytest.raises(SmleInputError, match="smle.check is not yet available"):
-        smle.check(model, params, y)
+    with pytest.raises(SmleInputError, match="method = 'exact' needs a one-dimensional latent state"):
+        smle.filter_factor(model, params, y, method="exact")
+    with pytest.raises(SmleInputError, match="n_draws=6 is too few"):
+        smle.check(model, params, y, n_draws=6)
     with pytest.raises(SmleInputError, match=r"expects shape \(T, 2\)"):
         smle.loglik(model, params, y[:, 0])
+
+
+def test_a_study_replication_of_a_k_dimensional_model():
+    # one replication of a study design (smle.study): simulate, fit by EIS (the shape and settings of
+    # the fit above, one compiled program); EIS is exact here, so the row's log-likelihood is the
+    # Kalman filter's at the row's estimates
+    from smle.study.replication import run_replication
+
+    model = smle.get_model("var1-noise", n_series=2)
+    truth = {"mu_1": 0.5, "mu_2": -1.0, "phi_1": 0.8, "phi_2": 0.4, "sigma_eta_1": 0.5, "sigma_eta_2": 0.7,
+             "sigma_eps_1": 0.4, "sigma_eps_2": 0.6}
+    design = dict(name="var1", model="var1-noise", model_options={"n_series": 2}, params=truth, n_periods=T,
+                  replications=1, estimator={"n_draws": N_DRAWS, "start": "truth"})
+    row = run_replication(design, 7, 0)
+    assert row["status"] == "ok", row["error"]
+    estimates = {e["parameter"]: e["estimate"] for e in row["estimates"]}
+    assert set(estimates) == set(model.param_names)
+    y, _ = smle.simulate(model, truth, T, seed=row["data_seed"])
+    assert abs(row["loglik"] - _kalman(model, estimates, y)) < 1e-6

@@ -11,7 +11,8 @@ Two routes:
   the tests look at its increments). A draw of the discrete chain whose filter gives the
   likelihood to its reported accuracy.
 * simulated: one of the EIS scoring paths picked by its importance weight (sampling importance
-  resampling; Rubin 1988, Bayesian Statistics 3): only approximately a posterior draw.
+  resampling; Rubin 1988, Bayesian Statistics 3): only approximately a posterior draw. The only
+  route for a k-dimensional state, whose path has shape (T, k).
 """
 
 from __future__ import annotations
@@ -21,6 +22,7 @@ import functools
 import jax
 import jax.numpy as jnp
 import numpy as np
+from scipy.linalg import solve_triangular
 
 from smle.engine.exact_smoothing import backward_sample, gaussian_backward_sample, path_grid
 from smle.engine.kalman import kalman_filter
@@ -84,7 +86,18 @@ def exact_posterior_path(model, params, y, seed, tol: float = EXACT_TOL) -> tupl
 
 
 def factor_innovations(model, params, path) -> np.ndarray:
-    """Standardised AR(1) innovations of a factor path, ``(x_t - a - phi x_{t-1}) / sigma_eta``."""
-    state = model.latent({k: jnp.asarray(v, float) for k, v in params.items()})
+    """Standardised AR(1) innovations of a factor path, ``(x_t - a - phi x_{t-1}) / sigma_eta``, shape
+    (T - 1,); for a k-dimensional VAR(1) state, path (T, k), the whitened innovations
+    ``L^{-1} (x_t - c - Phi x_{t-1})`` with ``L L' = Q`` (Cholesky), shape (T - 1, k): i.i.d.
+    N(0, I) under the model, and for a diagonal Q (every model so far) each column is the
+    standardised innovation of its own component."""
+    values = {k: jnp.asarray(v, float) for k, v in params.items()}
+    if model.state_dim > 1:
+        state = model.latent_var(values)
+        x = np.asarray(path, float)
+        residual = x[1:] - np.asarray(state.intercept) - x[:-1] @ np.asarray(state.transition).T
+        root = np.linalg.cholesky(np.asarray(state.innovation_cov))
+        return solve_triangular(root, residual.T, lower=True).T
+    state = model.latent(values)
     x = np.asarray(path, float)
     return (x[1:] - float(state.intercept) - float(state.phi) * x[:-1]) / float(state.sigma_eta)

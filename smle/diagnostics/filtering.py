@@ -41,7 +41,9 @@ proposal moves away from the prediction (informative realized measures). Multi-s
 give one PIT per series, each of its marginal one-step predictive law.
 
 Everything is pure JAX: ``lax.scan`` over time, arrays over particles, one compiled program per
-(model, number of particles, data shape).
+(model, number of particles, data shape). A state of k > 1 dimensions (a Gaussian VAR(1)) has the
+same filter in k dimensions, :mod:`smle.diagnostics.filtering_multi`, which also gives its
+smoothed factor per component.
 """
 
 from __future__ import annotations
@@ -49,7 +51,7 @@ from __future__ import annotations
 import dataclasses
 import functools
 import math
-from typing import Callable, Mapping, NamedTuple
+from typing import Callable, Mapping
 
 import jax
 import jax.numpy as jnp
@@ -58,48 +60,21 @@ import numpy as np
 from smle.errors import SmleInputError
 from smle.engine.posterior import weighted_quantiles
 from smle.diagnostics.filtering_exact import exact_factor
+from smle.diagnostics.filtering_multi import compiled_filter_multi, smoothed_by_eis
+from smle.diagnostics.particles import (  # noqa: F401 (public names of filtering)
+    MIN_CURVATURE, NEWTON_STEPS, QUANTILES, FilterOutput, has_obs_cdf, systematic_ancestors,
+)
 from smle.exact_likelihood import EXACT_TOL, check_exact_tol, resolve_method
-from smle.validation import (as_key, check_integer, check_memory, checked_inputs, jax_params, memory_needed,
-                             require_scalar_state)
+from smle.validation import as_key, check_integer, check_memory, checked_inputs, jax_params, memory_needed
 from smle.models import Model
 
 MIN_PARTICLES = 100
-NEWTON_STEPS = 8
-MIN_CURVATURE = 1e-8
-QUANTILES = (0.05, 0.95)
-
-
-class FilterOutput(NamedTuple):
-    """What the compiled filter returns (JAX arrays, leading dimension T).
-
-    Attributes:
-      filtered_mean: E[x_t | y_1..y_t], shape (T,); filtered_sd: its standard deviation.
-      filtered_quantiles: 5% and 95% quantiles of x_t given y_1..y_t, shape (2, T).
-      log_predictive: log p(y_t | y_1..y_{t-1}), shape (T,).
-      pit: PIT of each series under its one-step predictive law, shape (T, n_series)
-        (zeros when the model has no ``obs_cdf``).
-      ess: effective sample size of the weights after period t's observation, shape (T,).
-      resampled: whether the particles were resampled after period t, shape (T,).
-    """
-
-    filtered_mean: jax.Array
-    filtered_sd: jax.Array
-    filtered_quantiles: jax.Array
-    log_predictive: jax.Array
-    pit: jax.Array
-    ess: jax.Array
-    resampled: jax.Array
 
 
 def no_state_message(model: Model) -> str:
     """Why a model without a latent state has nothing to filter, and where its PITs are."""
     return (f"model '{model.name}' has no latent state to filter (state_dim = 0); its one-step predictive "
             "densities and PITs are exact: model.log_predictive(params, y) and model.predictive_cdf(params, y)")
-
-
-def has_obs_cdf(model: Model) -> bool:
-    """Whether the model supplies its conditional CDF (needed for PITs)."""
-    return type(model).obs_cdf is not Model.obs_cdf
 
 
 def proposal_kernels(model: Model, params: Mapping, data, n_steps: int = NEWTON_STEPS,
@@ -135,20 +110,6 @@ def proposal_kernels(model: Model, params: Mapping, data, n_steps: int = NEWTON_
     c = jnp.maximum(-second, min_curvature)
     b = first + c * mode
     return b, c
-
-
-def systematic_ancestors(log_weights: jax.Array, uniform: jax.Array) -> jax.Array:
-    """Ancestor indices of systematic resampling, shape (N,), from normalised log weights.
-
-    The j-th stratum point ``(uniform + j) / N`` takes the first particle whose cumulative
-    weight exceeds it; counting by a scatter-add keeps the cost O(N).
-    """
-    n = log_weights.shape[0]
-    cdf = jnp.cumsum(jnp.exp(log_weights - jnp.max(log_weights)))
-    cdf = cdf / cdf[-1]
-    position = jnp.clip(jnp.ceil(n * cdf - uniform), 0, n).astype(jnp.int32)
-    marks = jnp.zeros((n + 1,), jnp.int32).at[position].add(1)
-    return jnp.minimum(jnp.cumsum(marks[:n]), n - 1)
 
 
 def guided_filter(model: Model, params: Mapping, y, key, n_particles: int,
@@ -223,6 +184,9 @@ class FilterResult:
     """Filtered (and, for the exact method, smoothed) factor and one-step predictive quantities
     (NumPy arrays, leading dimension T).
 
+    For a state of k > 1 dimensions every state summary (filtered_*, smoothed_*) has a trailing
+    component axis, shape (T, k), in the order of ``factor_names``; for k = 1 they are (T,).
+
     Attributes:
       model: the model's registry name; factor_name: what the latent state is.
       method: "exact" (no simulation: the Kalman filter or the grid filter) or "particles" (the
@@ -235,7 +199,9 @@ class FilterResult:
       log_predictive: log p(y_t | y_1..y_{t-1}) per period.
       pit: PITs, shape (T, n_series), or None when the model has no conditional CDF.
       smoothed_mean, smoothed_sd, smoothed_lower, smoothed_upper: the same given y_1..y_T (exact
-        method; None for particles, which do not smooth).
+        method; for a k-dimensional state, the importance-weighted EIS scoring paths at the same
+        parameters, :func:`smle.diagnostics.filtering_multi.smoothed_by_eis`; None for particles
+        with a one-dimensional state, which the exact route smooths, and with ``smooth=False``).
       grid_size: points of the grid (0 for the Kalman filter; None for particles).
       error_bound: the exact method's accuracy estimate of ``loglik`` against a coarser grid (0 for
         the Kalman filter, exact to rounding; None for particles).
@@ -243,6 +209,7 @@ class FilterResult:
         which the particles were resampled; n_particles, seed, resample_threshold: the particle
         filter's settings. All None for the exact method: there are no particles, every grid point
         carries its exact mass, so no effective sample size applies.
+      factor_names: the name of each state component (one entry for k = 1).
     """
 
     model: str
@@ -267,6 +234,12 @@ class FilterResult:
     smoothed_upper: np.ndarray | None = None
     grid_size: int | None = None
     error_bound: float | None = None
+    factor_names: tuple = ()
+
+    @property
+    def state_dim(self) -> int:
+        """Dimension k of the filtered state (1: the state summaries have shape (T,))."""
+        return 1 if self.filtered_mean.ndim == 1 else self.filtered_mean.shape[1]
 
     @property
     def simulated(self) -> bool:
@@ -274,11 +247,11 @@ class FilterResult:
         return self.method == "particles"
 
 
-def check_filter_settings(n_particles, resample_threshold) -> tuple[int, float]:
-    """Validate the filter's settings; return them as (int, float)."""
+def check_filter_settings(n_particles, resample_threshold, state_dim: int = 1) -> tuple[int, float]:
+    """Validate the filter's settings (``state_dim``: values per particle); return them as (int, float)."""
     check_integer("n_particles", n_particles, MIN_PARTICLES, "2000 is a good default")
-    check_memory("filter", memory_needed("filter", 1, n_particles, 1), f"{n_particles} particles", "n_particles",
-                 n_particles)
+    check_memory("filter", memory_needed("filter", 1, n_particles, max(state_dim, 1)), f"{n_particles} particles",
+                 "n_particles", n_particles)
     if isinstance(resample_threshold, bool) or not isinstance(resample_threshold, (int, float)) \
             or not 0.0 < resample_threshold <= 1.0:
         raise SmleInputError(
@@ -289,10 +262,17 @@ def check_filter_settings(n_particles, resample_threshold) -> tuple[int, float]:
 
 
 def resolve_filter_method(model: Model, method) -> str:
-    """"exact" or "particles": ``auto`` is exact for a one-dimensional state (no simulation noise)."""
+    """"exact" or "particles": ``auto`` is exact for a one-dimensional state (no simulation noise)
+    and particles for a k-dimensional one, which no grid covers."""
     if method not in FILTER_METHODS:
         raise SmleInputError(f"method = {method!r} is not accepted; accepted: 'auto', 'exact' or 'particles' "
                              "(the guided particle filter)")
+    if model.state_dim > 1:
+        if method == "exact":
+            raise SmleInputError(f"method = 'exact' needs a one-dimensional latent state; model '{model.name}' has a "
+                                 f"{model.state_dim}-dimensional state, which no grid filter covers; accepted for "
+                                 "this model: 'particles' or 'auto'")
+        return "particles"
     if method == "particles":
         if model.transition_uses_data:
             raise SmleInputError(f"method = 'particles' is not available for model '{model.name}': its state's "
@@ -304,7 +284,7 @@ def resolve_filter_method(model: Model, method) -> str:
 
 def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000, seed=0,
                   resample_threshold: float = 0.5, method: str = "auto",
-                  exact_tol: float = EXACT_TOL) -> FilterResult:
+                  exact_tol: float = EXACT_TOL, smooth: bool = True) -> FilterResult:
     """Filter the latent factor of ``model`` at ``params``: exactly, or with a guided particle filter.
 
     Args:
@@ -315,11 +295,15 @@ def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000
       seed: non-negative integer or JAX PRNG key (the draws and resampling uniforms derive from it;
         particles only, but checked for every method).
       resample_threshold: resample when the ESS falls below this fraction of the particles.
-      method: "auto" (default: "exact" for a one-dimensional state; a state of k > 1 dimensions is
-        refused for now by every method), "exact" (the Kalman filter for a linear Gaussian model, the checked grid
-        filter otherwise, and the backward smoothing pass: no simulation noise) or "particles"
-        (the guided particle filter, the independent check on the exact route).
+      method: "auto" (default: "exact" for a one-dimensional state, "particles" for a state of
+        k > 1 dimensions), "exact" (the Kalman filter for a linear Gaussian model, the checked grid
+        filter otherwise, and the backward smoothing pass: no simulation noise; k = 1 only) or
+        "particles" (the guided particle filter, the independent check on the exact route; for
+        k > 1 in k dimensions, with the smoothed factor per component from one EIS run at
+        ``params`` seeded by ``seed``, :mod:`smle.diagnostics.filtering_multi`).
       exact_tol: accuracy of the exact method's log-likelihood (log-likelihood units).
+      smooth: for a k-dimensional state, whether to add the smoothed factor (one EIS run; False
+        leaves the smoothed fields None). The exact route always smooths.
 
     Returns:
       A :class:`FilterResult`; its ``method`` and ``engine`` say which filter ran.
@@ -333,21 +317,22 @@ def filter_factor(model, params: Mapping[str, float], y, n_particles: int = 2000
     model, checked, y = checked_inputs(model, params, y)
     if model.state_dim == 0:
         raise SmleInputError(no_state_message(model))
-    require_scalar_state(model, "smle.filter_factor")
     method = resolve_filter_method(model, method)
-    n_particles, resample_threshold = check_filter_settings(n_particles, resample_threshold)
+    n_particles, resample_threshold = check_filter_settings(n_particles, resample_threshold, model.state_dim)
     key = as_key(seed)
     if method == "exact":
         out = exact_factor(model, jax_params(checked), y, check_exact_tol(exact_tol), has_obs_cdf(model))
         return FilterResult(model=model.name, factor_name=model.factor_name, method="exact", ess=None,
                             resample_count=None, n_particles=None, seed=None, resample_threshold=None,
-                            **out._asdict())
-    return particle_result(model, checked, y, n_particles, seed, key, resample_threshold)
+                            factor_names=model.component_names(), **out._asdict())
+    return particle_result(model, checked, y, n_particles, seed, key, resample_threshold, smooth)
 
 
-def particle_result(model: Model, checked, y, n_particles: int, seed, key, resample_threshold: float) -> FilterResult:
+def particle_result(model: Model, checked, y, n_particles: int, seed, key, resample_threshold: float,
+                    smooth: bool = True) -> FilterResult:
     """The guided particle filter's :class:`FilterResult` (inputs checked by :func:`filter_factor`)."""
-    out = compiled_filter(model, n_particles)(jax_params(checked), jnp.asarray(y), key, resample_threshold)
+    run = compiled_filter_multi if model.state_dim > 1 else compiled_filter
+    out = run(model, n_particles)(jax_params(checked), jnp.asarray(y), key, resample_threshold)
     log_predictive = np.asarray(out.log_predictive)
     if not np.all(np.isfinite(log_predictive)):
         bad = np.flatnonzero(~np.isfinite(log_predictive))
@@ -373,4 +358,6 @@ def particle_result(model: Model, checked, y, n_particles: int, seed, key, resam
         n_particles=n_particles,
         seed=seed if isinstance(seed, int) else -1,
         resample_threshold=resample_threshold,
+        factor_names=model.component_names(),
+        **(smoothed_by_eis(model, checked, y, seed) if smooth and model.state_dim > 1 else {}),
     )

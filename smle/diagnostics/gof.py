@@ -36,7 +36,10 @@ is common practice, not a property of the tests):
   (:mod:`smle.diagnostics.factor_path`), and these tests are flagged at 5% (``EXACT_PATH_LEVEL``);
   on the particle route it is an EIS scoring path picked by importance weight, only approximately
   a posterior draw, and they are flagged at ``FACTOR_PATH_LEVEL`` (1%). Either way they are counted
-  apart from the tests of the observations: another seed draws another path.
+  apart from the tests of the observations: another seed draws another path. A k-dimensional
+  state (a Gaussian VAR(1)) takes the particle route (the filter in k dimensions gives one PIT per
+  series) and its path tests run per component on the whitened innovations
+  ``L^{-1}(x_t - c - Phi x_{t-1})``, ``L L' = Q``.
 """
 
 from __future__ import annotations
@@ -57,10 +60,10 @@ from smle.diagnostics.factor_path import (  # noqa: F401 (public names of gof)
     PATH_CANDIDATES, exact_posterior_path, factor_innovations, posterior_path,
 )
 from smle.diagnostics.filtering import (
-    FilterResult, check_filter_settings, filter_factor, has_obs_cdf, no_state_message,
+    FilterResult, check_filter_settings, filter_factor, has_obs_cdf, no_state_message, resolve_filter_method,
 )
 from smle.exact_likelihood import EXACT_TOL, check_exact_tol, resolve_method
-from smle.validation import check_observations, require_scalar_state
+from smle.validation import check_observations
 from smle.models import saved_model
 from smle import report_text as layout
 from smle.results import CAUTION, FitResult, exact_engine_text, low_ess_warning
@@ -136,7 +139,9 @@ class Diagnostics:
       filter: the :class:`~smle.diagnostics.filtering.FilterResult` at the estimates.
       pit, scores: PITs and normal scores, shape (T, n_series).
       factor_path: one path of the factor drawn from the smoothing distribution, shape (T,);
-      factor_innovations: its standardised AR(1) innovations, shape (T - 1,).
+      factor_innovations: its standardised AR(1) innovations, shape (T - 1,). For a k-dimensional
+        state these and the smoothed factor below have a trailing component axis ((T, k), (T - 1, k))
+        and the factor-path tests are run per component (``Model.component_names``).
       smoothed_mean, smoothed_lower, smoothed_upper: the smoothed factor (for figures): the exact
         smoother's at the estimates on the exact route, the fit's own on the particle route.
       tests: the :class:`TestResult` list; fit_loglik, fit_nse: the fit's log-likelihood and its NSE
@@ -322,14 +327,13 @@ def diagnose(
     """
     result = _check_fit_result(fit_result)
     model = saved_model(result.model, result.model_options)
-    require_scalar_state(model, "smle.diagnose")
     y = _checked_observations(model, result, y)
     if model.state_dim == 0:
         raise SmleInputError(no_state_message(model))
     if not has_obs_cdf(model):
         raise SmleInputError(f"model '{model.name}' has no conditional CDF (obs_cdf), so no PITs can be formed")
     route = _diagnose_route(model, result, method)
-    check_filter_settings(n_particles, 0.5)
+    check_filter_settings(n_particles, 0.5, model.state_dim)
     exact_tol = check_exact_tol(exact_tol)
     lags = check_lags(lags, y.shape[0])
     check_lags(arch_lags, y.shape[0] - 1)
@@ -337,7 +341,7 @@ def diagnose(
         progress(f"filtering {y.shape[0]} periods " + ("exactly" if route == "exact" else f"with {n_particles} "
                  "particles") + " (the first call compiles)")
     filtered = filter_factor(model, result.params, y, n_particles=n_particles, seed=seed, method=route,
-                             exact_tol=exact_tol)
+                             exact_tol=exact_tol, smooth=False)  # the figures use the fit's smoothed factor
     pit = filtered.pit
     scores = normal_scores(pit)
     series = list(model.series_labels[:model.n_series])
@@ -351,7 +355,9 @@ def diagnose(
                  + ("(backward simulation after the exact filter)" if route == "exact" else "(EIS at the estimates)"))
     path, path_source, level = _factor_path(model, result, y, seed, route, exact_tol)
     innovations = factor_innovations(model, result.params, path)
-    tests += _factor_tests(innovations, lags, level)
+    names = [f" of {name}" for name in model.component_names()] if model.state_dim > 1 else [""]
+    for column, name in zip(innovations.reshape(innovations.shape[0], -1).T, names):
+        tests += _factor_tests(column, lags, level, name)
     smoothed = filtered if route == "exact" else result
     return Diagnostics(
         model=model.name, series=series, filter=filtered, pit=pit, scores=scores,
@@ -384,6 +390,8 @@ def _diagnose_route(model, result: FitResult, method) -> str:
     if method not in DIAGNOSE_METHODS:
         raise SmleInputError(f"method = {method!r} is not accepted; accepted: 'auto' (the fit's route), 'exact' or "
                              "'particles' (the particle filter and an EIS-drawn factor path)")
+    if model.state_dim > 1:  # particles: no grid covers k dimensions
+        return resolve_filter_method(model, method)
     if method == "particles" or (method == "auto" and result.simulated):
         return "particles"
     return resolve_method(model, "exact")
@@ -431,10 +439,12 @@ def _series_tests(label: str, z, pit, lags, arch_lags: int, tail_probability: fl
     return tests
 
 
-def _factor_tests(innovations, lags, level: float = FACTOR_PATH_LEVEL) -> list[TestResult]:
+def _factor_tests(innovations, lags, level: float = FACTOR_PATH_LEVEL, component: str = "") -> list[TestResult]:
     """The tests of the standardised innovations of a factor path drawn from the smoother, flagged below
-    ``level`` and marked as tests on the path."""
-    tests = (_ljung_box_tests(innovations, lags, "factor innovations", level)
-             + _ljung_box_tests(innovations**2, lags, "squared factor innovations", level)
-             + [TestResult("Durbin-Watson", "factor innovations", durbin_watson(innovations), None, None, level)])
+    ``level`` and marked as tests on the path; ``component``: " of <name>" for one component of a
+    k-dimensional state."""
+    subject = f"factor innovations{component}"
+    tests = (_ljung_box_tests(innovations, lags, subject, level)
+             + _ljung_box_tests(innovations**2, lags, f"squared {subject}", level)
+             + [TestResult("Durbin-Watson", subject, durbin_watson(innovations), None, None, level)])
     return [dataclasses.replace(t, factor_path=True) for t in tests]

@@ -2,7 +2,8 @@
 
 Where the latent state is one-dimensional smle computes log L without simulation (the Kalman
 filter for a linear Gaussian model, the checked grid filter of :mod:`smle.exact_likelihood`
-otherwise). :func:`reference` computes it once, to ``REFERENCE_TOL``; :func:`compare` measures
+otherwise); for a k-dimensional state where a reference covers it (a linear Gaussian model: the
+k-dimensional Kalman filter; two independent AR(1) components: the two-dimensional grid filter). :func:`reference` computes it once, to ``REFERENCE_TOL``; :func:`compare` measures
 the actual error of each seed's estimate, ``e_r = log L_hat_r - log L`` (r = 1..R), and the
 statistics that judge it (:mod:`smle.diagnostics.health_findings`):
 
@@ -106,10 +107,47 @@ class ExactComparison(NamedTuple):
         return abs(self.bias_t) > self.bias_critical
 
 
+class ReferenceValue(NamedTuple):
+    """An exact log-likelihood of a k-dimensional state (what :func:`compare` reads of a result)."""
+
+    value: float
+    error_bound: float
+
+
+GRID2D_POINTS = ((121, 41), (161, 61))
+"""Nodes per component of the two-dimensional grid reference and of its refinement; the change
+between them is the reference's error bound (5e-9 on the designs of tests/test_model_sv_2factor.py)."""
+
+
+def k_dimensional_reference(model, checked, y):
+    """``(ReferenceValue or None, note)`` for a state of k > 1 dimensions: the Kalman filter of
+    :mod:`smle.reference.kalman_var` for a linear Gaussian model (``gaussian_measurement``), the
+    two-dimensional grid filter of :mod:`smle.reference.grid2d` (checked against its refinement)
+    for two independent AR(1) components; otherwise none, no grid covering k dimensions."""
+    import jax.numpy as jnp
+
+    from smle.reference.grid2d import grid2d_loglik
+    from smle.reference.kalman_var import kalman_loglik_var
+
+    values = {k: jnp.asarray(v, float) for k, v in checked.items()}
+    measurement = model.gaussian_measurement(values)
+    if measurement is not None:
+        value = float(kalman_loglik_var(jnp.asarray(y), model.latent_var(values), measurement))
+        return ReferenceValue(value, 0.0), "Kalman filter (k-dimensional state), exact to rounding"
+    if model.state_dim == 2:
+        try:
+            coarse, fine = (grid2d_loglik(model, checked, y, points) for points in GRID2D_POINTS)
+        except SmleInputError as error:  # components that are not independent
+            return None, f"no exact reference: {error}"
+        bound = abs(fine - coarse)
+        return ReferenceValue(fine, bound), f"two-dimensional grid filter, error bound {bound:.1e}"
+    return None, f"no exact reference: {model.state_dim}-dimensional state (no grid covers it)"
+
+
 def reference(model, checked, y):
     """``(exact LoglikResult or None, note)``: the exact log-likelihood once, or why there is none."""
     if model.state_dim > 1:
-        return None, f"no exact reference: {model.state_dim}-dimensional state"
+        return k_dimensional_reference(model, checked, y)
     try:
         exact = loglik(model, checked, y, method="exact", exact_tol=REFERENCE_TOL)
     except SmleInputError as error:

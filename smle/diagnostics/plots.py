@@ -53,21 +53,36 @@ def factor_shown(model_name: str, options: dict | None, params: dict | None, *st
     return (shown[0][1], *(values for values, _ in shown))
 
 
+def component_panels(model_name: str, options: dict | None, params: dict | None, *states):
+    """Per panel of a factor figure: ``(label, shown_1, shown_2, ...)``. One panel as the model shows
+    its factor (:func:`factor_shown`) for a one-dimensional state; for states of shape (T, k), one
+    panel per component, labelled by ``Model.component_names``."""
+    from smle.models import saved_model
+
+    if np.ndim(states[0]) == 1:
+        return [factor_shown(model_name, options, params, *states)]
+    names = saved_model(model_name, options).component_names()
+    return [(names[j], *(np.asarray(x, float)[:, j] for x in states)) for j in range(np.shape(states[0])[1])]
+
+
 def data_and_factor(result, y, label: str, path) -> Path | Figure:
-    """Two panels: the data, and the smoothed factor with its 90% band, as the model shows it
-    (``Model.factor_display``: the mixing factor of garch-mix, the volatility of the sv family).
-    With ``path=None`` the figure is returned instead of written."""
+    """The data, and the smoothed factor with its 90% band, as the model shows it
+    (``Model.factor_display``: the mixing factor of garch-mix, the volatility of the sv family),
+    one panel per component for a k-dimensional state. With ``path=None`` the figure is returned
+    instead of written."""
     y = np.asarray(y)
     t = np.arange(len(result.smoothed_mean))
-    name, mean, lower, upper = factor_shown(result.model, result.model_options, result.params,
-                                            result.smoothed_mean, result.smoothed_lower, result.smoothed_upper)
-    figure, (top, bottom) = _subplots(2, 1, figsize=(10, 6.5), sharex=True)
+    panels = component_panels(result.model, result.model_options, result.params, result.smoothed_mean,
+                              result.smoothed_lower, result.smoothed_upper)
+    figure, axes = _subplots(1 + len(panels), 1, figsize=(10, 3.25 * (1 + len(panels))), sharex=True)
+    top = axes[0]
     top.plot(t, y if y.ndim == 1 else y[:, 0], lw=0.6, color="#33506e")
     top.set_ylabel(label)
     top.set_title(f"Data and smoothed factor ({result.model}, {result.n_obs} periods)")
-    bottom.fill_between(t, lower, upper, color="#e3a857", alpha=0.45, label="5%-95% posterior band")
-    bottom.plot(t, mean, color="#8c3b1e", lw=0.9, label="at the posterior mean of the state")
-    bottom.set_ylabel(name)
+    for bottom, (name, mean, lower, upper) in zip(axes[1:], panels):
+        bottom.fill_between(t, lower, upper, color="#e3a857", alpha=0.45, label="5%-95% posterior band")
+        bottom.plot(t, mean, color="#8c3b1e", lw=0.9, label="at the posterior mean of the state")
+        bottom.set_ylabel(name)
     time_axis(bottom, len(t), getattr(result, "dates", None))
     _figure_legend_below(bottom, 2)
     if path is None:
@@ -136,7 +151,7 @@ def _qq_scores(d) -> Figure:
     upper = stats.norm.ppf(stats.beta.ppf(0.975, ranks, n + 1 - ranks))
     for k, axis in enumerate(axes[0]):
         axis.fill_between(theoretical, lower, upper, color="#cccccc", alpha=0.7, label="95% pointwise band")
-        axis.plot(theoretical, np.sort(d.scores[:, k]), ".", ms=2.5, color=_COLOURS[k], label="normal scores")
+        axis.plot(theoretical, np.sort(d.scores[:, k]), ".", ms=2.5, color=_COLOURS[k % len(_COLOURS)], label="normal scores")
         axis.plot(theoretical, theoretical, color="black", lw=0.8, label="45-degree line")
         axis.set_xlabel("standard normal quantile (no unit)")
         axis.set_ylabel("ordered normal score (no unit)")
@@ -155,7 +170,7 @@ def _pit_histogram(d) -> Figure:
     figure, axes = _subplots(1, n_series, figsize=(5.2 * n_series, 4.2), squeeze=False)
     low, high = stats.binom.ppf([0.025, 0.975], n, 1.0 / bins) * bins / n
     for k, axis in enumerate(axes[0]):
-        axis.hist(d.pit[:, k], bins=bins, range=(0, 1), density=True, color=_COLOURS[k], alpha=0.75,
+        axis.hist(d.pit[:, k], bins=bins, range=(0, 1), density=True, color=_COLOURS[k % len(_COLOURS)], alpha=0.75,
                   edgecolor="white", label="PITs")
         axis.axhspan(low, high, color="#e3a857", alpha=0.35, label="95% band per bin (uniform PITs)")
         axis.axhline(1.0, color="black", lw=0.8)
@@ -176,7 +191,7 @@ def _autocorrelation_scores(d) -> Figure:
     for k in range(n_series):
         for j, (values, what) in enumerate(((d.scores[:, k], "normal scores"), (d.scores[:, k] ** 2, "squared scores"))):
             axis = axes[k, j]
-            axis.vlines(lags, 0, autocorrelations(values, max_lag), color=_COLOURS[k], lw=2)
+            axis.vlines(lags, 0, autocorrelations(values, max_lag), color=_COLOURS[k % len(_COLOURS)], lw=2)
             axis.axhspan(-band, band, color="#cccccc", alpha=0.6, label="95% band, i.i.d. (1.96 / sqrt(T))")
             axis.axhline(0, color="black", lw=0.6)
             axis.set_xlabel("lag (periods)")
@@ -190,16 +205,17 @@ def _factor_filtered_smoothed(d) -> Figure:
     """Factor paths: filtered (data up to t) and smoothed (all data), as the model shows its factor."""
     f = d.filter
     t = np.arange(d.scores.shape[0])
-    name, low, high, filtered, smoothed = factor_shown(d.model, d.model_options, d.params, f.filtered_lower,
-                                                       f.filtered_upper, f.filtered_mean, d.smoothed_mean)
-    figure, axis = _subplots(figsize=(10, 4.8))
-    axis.fill_between(t, low, high, color="#9fb8d0", alpha=0.5, label="filtered 5%-95%")
-    axis.plot(t, filtered, color="#33506e", lw=0.8, label="at the filtered mean (data up to t)")
-    axis.plot(t, smoothed, color="#8c3b1e", lw=0.8, label="at the smoothed mean (all data)")
+    panels = component_panels(d.model, d.model_options, d.params, f.filtered_lower, f.filtered_upper,
+                              f.filtered_mean, d.smoothed_mean)
+    figure, axes = _subplots(len(panels), 1, figsize=(10, 1.4 + 3.4 * len(panels)), sharex=True, squeeze=False)
+    for axis, (name, low, high, filtered, smoothed) in zip(axes[:, 0], panels):
+        axis.fill_between(t, low, high, color="#9fb8d0", alpha=0.5, label="filtered 5%-95%")
+        axis.plot(t, filtered, color="#33506e", lw=0.8, label="at the filtered mean (data up to t)")
+        axis.plot(t, smoothed, color="#8c3b1e", lw=0.8, label="at the smoothed mean (all data)")
+        axis.set_ylabel(name)
+        axis.grid(alpha=0.3)
     time_axis(axis, len(t), d.dates)
-    axis.set_ylabel(name)
     how = f"{f.n_particles} particles" if f.simulated else f"exact, {f.engine}"
-    axis.set_title(f"Filtered and smoothed factor ({d.model}, {how})")
+    axes[0, 0].set_title(f"Filtered and smoothed factor ({d.model}, {how})")
     _figure_legend_below(axis, 3)
-    axis.grid(alpha=0.3)
     return figure

@@ -135,15 +135,19 @@ def mean_path(sampler: SamplerMulti) -> jax.Array:
     return draw_paths(sampler, jnp.zeros((n_periods, 1, k), sampler.scale.dtype))[:, 0]
 
 
-def log_weights(sampler: SamplerMulti, log_obs: jax.Array, paths: jax.Array) -> jax.Array:
-    """Log importance weights (S,) given log g_t at the paths (T, S) and the paths (T, S, k)."""
+def period_log_weights(sampler: SamplerMulti, log_obs: jax.Array, paths: jax.Array) -> jax.Array:
+    """Per-period terms of the log weights, (T, S): ``log w = log_chi_first + sum_t term_t``."""
     quadratic = quadratic_forms(paths, sampler.weight_quadratic)
-    per_period = (
+    return (
         log_obs
         + sampler.weight_const[:, None]
         + jnp.sum(paths * sampler.weight_linear[:, None, :], axis=-1)
         - 0.5 * quadratic
     )
-    return sampler.log_chi_first + jnp.sum(per_period, axis=0)
+
+
+def log_weights(sampler: SamplerMulti, log_obs: jax.Array, paths: jax.Array) -> jax.Array:
+    """Log importance weights (S,) given log g_t at the paths (T, S) and the paths (T, S, k)."""
+    return sampler.log_chi_first + jnp.sum(period_log_weights(sampler, log_obs, paths), axis=0)
 
 

@@ -36,8 +36,9 @@ With a k-dimensional state (``state_dim = k > 1``) the state is a Gaussian VAR(1
   fewer regressors, fewer draws needed. The basis must cover every entry where the Hessian of
   log g_t in x_t can be non-zero.
 
-The health check, the particle filter and goodness of fit (``check``, ``filter_factor``,
-``diagnose``) and control variates are not yet available for k > 1 (a clear error says so).
+``check``, ``filter_factor`` (a guided particle filter in k dimensions) and ``diagnose`` work for
+k > 1; control variates are not yet available there (a clear error says so). ``component_names()``
+names the components (default ``x1 .. xk``).
 
 Optional hooks (each has a default here):
 
@@ -62,6 +63,8 @@ state-space methods ``loglik_closed_form(params, y)`` (the exact log-likelihood,
   depends on the data (leverage), for the exact method; EIS refuses such a model;
 * ``gaussian_measurement(params)``: for a linear Gaussian model, ``y_t = x_t + N(0, v)``, the
   variance ``v``; the exact method then runs the Kalman filter (default None: not linear Gaussian).
+  With a k-dimensional state, the (k, k) covariance H of ``y_t = x_t + N(0, H)`` (the health
+  check's Kalman reference).
 * ``simulate_ahead(params, y, x_last, n_periods, key)``: paths beyond the end of the data ``y``
   from draws ``x_last`` (S,) of the state at T (``smle.forecast``); default: a clear error.
 
@@ -280,6 +283,13 @@ class Model:
         (the posterior band stays a band). Default: the state itself, labelled ``factor_name``.
         """
         return np.asarray(x, float), self.factor_name
+
+    def component_names(self) -> tuple[str, ...]:
+        """A short name per state component, in state order (figures, filter and test labels):
+        ``(factor_name,)`` for a one-dimensional state, ``("x1", ..., "xk")`` by default for k > 1."""
+        if self.state_dim <= 1:
+            return (self.factor_name,)
+        return tuple(f"x{j + 1}" for j in range(self.state_dim))
 
 
 def model_options(model: Model) -> dict:

@@ -98,6 +98,14 @@ class FactorSV(Model):
         log_var = self.log_variance(params, x)
         return -0.5 * jnp.sum(LOG_2PI + log_var + data[:, None, :] ** 2 * jnp.exp(-log_var), axis=-1)
 
+    def obs_cdf(self, params, data, x):
+        from smle.distributions import normal_cdf
+
+        return normal_cdf(data[:, None, :] * jnp.exp(-0.5 * self.log_variance(params, x)))
+
+    def component_names(self):
+        return ("f",) + tuple(f"g_{i + 1}" for i in range(self.n_series))
+
     def simulate(self, params, n_periods, key):
         state_key, noise_key = jax.random.split(key)
         x = latent_var.sample_path(self.latent_var(params), state_key, n_periods)

@@ -95,6 +95,14 @@ class TwoFactorSV(Model):
         log_var = params["mu"] + jnp.sum(x, axis=-1)
         return -0.5 * (LOG_2PI + log_var + data[:, None] ** 2 * jnp.exp(-log_var))
 
+    def obs_cdf(self, params, data, x):
+        from smle.distributions import normal_cdf
+
+        return normal_cdf(data[:, None] * jnp.exp(-0.5 * (params["mu"] + jnp.sum(x, axis=-1))))
+
+    def component_names(self):
+        return ("x1 (persistent)", "x2 (fast)")
+
     def simulate(self, params, n_periods, key):
         state_key, noise_key = jax.random.split(key)
         x = latent_var.sample_path(self.latent_var(params), state_key, n_periods)

@@ -125,6 +125,18 @@ class VAR1Noise(Model):
         variance = _vector(params, "sigma_eps", self.n_series) ** 2
         return jnp.sum(log_normal_density(data[:, None, :], x, variance), axis=-1)
 
+    def gaussian_measurement(self, params):
+        """The measurement covariance H = diag(sigma_eps^2), shape (k, k): y_t = x_t + N(0, H)."""
+        return jnp.diag(_vector(params, "sigma_eps", self.n_series) ** 2)
+
+    def obs_cdf(self, params, data, x):
+        from smle.distributions import normal_cdf
+
+        return normal_cdf((data[:, None, :] - x) / _vector(params, "sigma_eps", self.n_series))
+
+    def component_names(self):
+        return tuple(f"x_{i + 1}" for i in range(self.n_series))
+
     def mode_guess(self, params, data):
         return jnp.asarray(data, float)
 
