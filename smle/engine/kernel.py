@@ -10,7 +10,7 @@ from __future__ import annotations
 import functools
 from typing import Mapping
 
-from smle.engine import eis, eis_multi
+from smle.engine import eis, eis_multi, eis_pairs
 
 
 def eis_output(model, settings: eis.EISSettings, params: Mapping, y, key) -> eis.EISOutput:
@@ -28,6 +28,27 @@ def eis_output_multi(model, settings: eis.EISSettings, params: Mapping, y, key) 
         model.latent_var(params), _log_obs_function(model), (params, data), model.mode_guess(params, data), key,
         settings, model.pairs(),
     )
+
+
+def eis_output_pairs(model, settings: eis.EISSettings, params: Mapping, y, key) -> eis_pairs.EISPairsOutput:
+    """Pure, differentiable EIS evaluation of a model whose transition depends on the data (its
+    ``path_transition`` hook), with kernels over two consecutive states."""
+    data = model.prepare(params, y)
+    return eis_pairs.eis_loglik_pairs(
+        model.latent(params), _log_obs_function(model), _transition_function(model), (params, data),
+        model.mode_guess(params, data), key, settings,
+    )
+
+
+@functools.lru_cache(maxsize=None)
+def _transition_function(model):
+    """``(obs_args, x_from) -> the law of x_{t+1}``: one function object per model (as below)."""
+
+    def transition(obs_args, x_from):
+        params, data = obs_args
+        return model.path_transition(params, data, x_from)
+
+    return transition
 
 
 @functools.lru_cache(maxsize=None)
