@@ -39,7 +39,7 @@ from smle.engine.gaussian import log_normal_density
 from smle.engine.implicit import implicit_fixed_point
 from smle.engine.latent import LatentAR1
 from smle.engine.sampler import (
-    Auxiliary, EISSettings, Sampler, assemble, draw_paths, period_log_weights, standard_normals,
+    Auxiliary, EISSettings, Sampler, assemble, draw_paths, fit_quadratic, period_log_weights, standard_normals,
 )
 
 PAIR_BASIS = multi_basis.full_pairs(2)
@@ -127,14 +127,13 @@ def eis_map(state: LatentAR1, log_h_fn, normals: jax.Array, auxiliary: Auxiliary
     log_h = log_h_fn(paths)
     residual = log_h - _current(auxiliary, paths)
     total_var = jnp.var(log_h, axis=1)
-    b_first, c_first, r2_first = multi_basis.fit_quadratic(
-        paths[:1, :, None], residual[:1], ((0, 0),), total_var[:1], antithetic)
+    b_first, c_first, r2_first = fit_quadratic(paths[:1], residual[:1], total_var[:1])
     pairs = jnp.stack([paths[:-1], paths[1:]], axis=-1)
     b_pair, c_pair, r2_pair = multi_basis.fit_quadratic(pairs, residual[1:], PAIR_BASIS, total_var[1:], antithetic)
     zero = jnp.zeros((1,), paths.dtype)
     step = AuxiliaryPairs(
-        b_obs=jnp.concatenate([b_first[:, 0], b_pair[:, 1]]),
-        c_obs=jnp.concatenate([c_first[:, 0], c_pair[:, 2]]),
+        b_obs=jnp.concatenate([b_first, b_pair[:, 1]]),
+        c_obs=jnp.concatenate([c_first, c_pair[:, 2]]),
         cross=jnp.concatenate([zero, c_pair[:, 1]]),
         b_prev=jnp.concatenate([zero, b_pair[:, 0]]),
         c_prev=jnp.concatenate([zero, c_pair[:, 0]]),
