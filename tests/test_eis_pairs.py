@@ -128,6 +128,8 @@ def test_fit_by_eis_on_sp500_finds_negative_leverage_near_the_exact_fit(sp500_re
     assert result.eis["loss_against_exact"] < 0.1, result.eis
     for name, value in result.eis["exact_estimates"].items():
         assert abs(result.params[name] - value) < 0.2 * result.std_errors[name], name
+    # its goodness of fit takes the exact route: the particle filter does not model the leverage transition
+    assert smle.diagnose(result, sp500_returns[:T_TEST]).filter.method == "exact"
 
 
 @pytest.mark.parametrize("route", ["control_variates", "check", "no_hook"])

@@ -308,7 +308,8 @@ def diagnose(
       tail_probability: probability of each tail in the censored tail test.
       progress: optional callback receiving short progress messages.
       method: "auto" (default: the route of the fit: exact for an exact fit, which ``smle.fit``
-        makes by default for a one-dimensional state, particles for an EIS fit), "exact" (the
+        makes by default for a one-dimensional state, particles for an EIS fit, exact for an EIS fit
+        of a model whose transition uses the data, which the particle filter does not model), "exact" (the
         exact filter's PITs and predictive densities and a path drawn exactly from the smoothing
         distribution, whatever the fit) or "particles" (the guided particle filter's PITs and a
         path picked among EIS scoring draws: the simulated routes).
@@ -384,7 +385,9 @@ def _diagnose_route(model, result: FitResult, method) -> str:
     if method not in DIAGNOSE_METHODS:
         raise SmleInputError(f"method = {method!r} is not accepted; accepted: 'auto' (the fit's route), 'exact' or "
                              "'particles' (the particle filter and an EIS-drawn factor path)")
-    if method == "particles" or (method == "auto" and result.simulated):
+    # a simulated fit's route is the particle filter, except where it does not model the transition
+    # (one that uses the data: leverage), which the exact filter covers
+    if method == "particles" or (method == "auto" and result.simulated and not model.transition_uses_data):
         return "particles"
     return resolve_method(model, "exact")
 

@@ -34,7 +34,7 @@ from jax.scipy.special import logsumexp
 
 from smle.engine import multi_basis
 from smle.engine.eis import rounding_scale
-from smle.engine.fixed_point import EISInfo, newton_start
+from smle.engine.fixed_point import EISInfo, eis_info, newton_start
 from smle.engine.gaussian import log_normal_density
 from smle.engine.implicit import implicit_fixed_point
 from smle.engine.latent import LatentAR1
@@ -167,15 +167,7 @@ def fit_auxiliary(state: LatentAR1, log_obs_fn, transition_fn, obs_args, normals
         functools.partial(_eis_map_of_inputs, log_obs_fn, transition_fn, settings.antithetic), settings,
         (state, obs_args), normals, start,
     )
-    info = EISInfo(
-        iterations=jax.lax.stop_gradient(iterations).astype(jnp.int32),
-        converged=jax.lax.stop_gradient(change) <= settings.tol,
-        last_change=jax.lax.stop_gradient(change),
-        r_squared=jax.lax.stop_gradient(r_squared),
-        failed_regressions=jax.lax.stop_gradient(failed).astype(jnp.int32),
-        step=jax.lax.stop_gradient(step),
-    )
-    return auxiliary, info
+    return auxiliary, eis_info(iterations, change, r_squared, failed, step, settings.tol)
 
 
 def eis_loglik_pairs(state: LatentAR1, log_obs_fn, transition_fn, obs_args, guess: jax.Array, key: jax.Array,
