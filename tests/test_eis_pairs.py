@@ -26,7 +26,8 @@ TRUTH = dict(mu=-0.4, phi=0.97, sigma_eta=0.2, delta=-0.5)
 T_TEST = 500  # one data length for every sv-leverage call here: one compiled program per setting
 
 
-def test_linear_gaussian_transition_with_data_is_exact_against_statsmodels():
+@pytest.mark.parametrize("antithetic", [True, False])
+def test_linear_gaussian_transition_with_data_is_exact_against_statsmodels(antithetic):
     # y_t = x_t + N(0, v); x_{t+1} | x_t, y_t ~ N(a + (phi + lam) x_t + kappa y_t, s2^2) written as the
     # AR(1) chain N(a + phi x_t, s^2) times r_t: log g_t and log r_t are exactly quadratic, so the
     # regressions are exact and every weight equal: EIS is the Kalman filter log-likelihood (statsmodels'
@@ -55,7 +56,7 @@ def test_linear_gaussian_transition_with_data_is_exact_against_statsmodels():
         return PeriodTransition(a + (phi + lam) * x_from + kappa * args[0][:-1, None], jnp.full((n - 1,), s2))
 
     out = eis_pairs.eis_loglik_pairs(state, log_obs, transition, (jnp.asarray(y),), jnp.zeros(n),
-                                     jax.random.PRNGKey(0), EISSettings(n_draws=12))
+                                     jax.random.PRNGKey(0), EISSettings(n_draws=12, antithetic=antithetic))
     assert float(out.value) == pytest.approx(ssm.loglike(), abs=1e-8)
     assert np.ptp(np.asarray(out.log_weights)) < 1e-8
 
@@ -103,12 +104,14 @@ def test_leverage_eis_agrees_with_the_exact_likelihood(sp500_returns, case):
 
 def test_gradient_is_the_gradient_of_the_evaluated_function(sp500_returns):
     # the implicit gradient of the fixed point against central differences of the same function
-    # (same seed, fit's settings: tol 1e-8); the objective is minus log L per observation
+    # (same seed, fit's settings: tol 1e-8); the objective is minus log L per observation, at a point
+    # away from the maximum where its gradient components are about 1e-2 (measured: they differ from
+    # central differences with steps 1e-3 to 1e-5 by at most 2e-9, seeds 7 and 8)
     model = smle.get_model("sv-leverage")
     y = jnp.asarray(sp500_returns[:T_TEST])
     settings = check_settings(32, True, 1e-8, 100, None, model, T_TEST, "fit")
     evaluate = compiled_value_and_grad(model, settings, NO_CONTROL, Restriction.of(model, check_fixed(model, None)))
-    u = model.to_real({k: jnp.asarray(v) for k, v in SP500_ESTIMATE.items()})
+    u = model.to_real({k: jnp.asarray(v) for k, v in dict(mu=0.0, phi=0.95, sigma_eta=0.3, delta=-0.3).items()})
     key = jax.random.PRNGKey(7)
     (_, _), gradient = evaluate(u, y, key)
     step = 1e-4
@@ -116,7 +119,7 @@ def test_gradient_is_the_gradient_of_the_evaluated_function(sp500_returns):
         shift = jnp.zeros_like(u).at[i].set(step)
         (up, _), _ = evaluate(u + shift, y, key)
         (down, _), _ = evaluate(u - shift, y, key)
-        assert float(gradient[i]) == pytest.approx(float(up - down) / (2 * step), rel=1e-4, abs=1e-6), i
+        assert float(gradient[i]) == pytest.approx(float(up - down) / (2 * step), rel=1e-5, abs=1e-7), i
 
 
 def test_fit_by_eis_on_sp500_finds_negative_leverage_near_the_exact_fit(sp500_returns):

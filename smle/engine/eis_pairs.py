@@ -116,6 +116,74 @@ def _current(auxiliary: AuxiliaryPairs, paths: jax.Array) -> jax.Array:
     return own.at[1:].add(previous)
 
 
+def _least_squares(columns, response):
+    """Per period, least squares of ``response`` (T, n) on ``columns`` (p arrays (T, n), centred), no
+    intercept: ``(coefficients, explained)``, p arrays (T,) and the mean square of the fit (T,).
+
+    The normal equations are written out entry by entry over arrays of periods (p is at most 5 here)
+    and solved by an unrolled Cholesky factorisation: on CPU this is several times faster than a
+    batched solve of tiny matrices (measured: 0.3 against 2 ms per 3-column fit at T = 2000, S = 64).
+    Columns are scaled to unit mean square first (accuracy when the state is far from zero)."""
+    spread = [jnp.sqrt(jnp.mean(c * c, axis=1)) for c in columns]
+    spread = [jnp.where(v > 0.0, v, 1.0) for v in spread]
+    scaled = [c / v[:, None] for c, v in zip(columns, spread)]
+    p = len(scaled)
+    factor = [[None] * p for _ in range(p)]
+    half = [None] * p
+    for j in range(p):
+        # a relative ridge of 1e-12 on the unit diagonal keeps an exactly collinear column finite
+        diagonal = jnp.mean(scaled[j] * scaled[j], axis=1) + 1e-12 - sum(factor[j][m] ** 2 for m in range(j))
+        factor[j][j] = jnp.sqrt(diagonal)
+        for i in range(j + 1, p):
+            entry = jnp.mean(scaled[i] * scaled[j], axis=1) - sum(factor[i][m] * factor[j][m] for m in range(j))
+            factor[i][j] = entry / factor[j][j]
+        moment = jnp.mean(scaled[j] * response, axis=1)
+        half[j] = (moment - sum(factor[j][m] * half[m] for m in range(j))) / factor[j][j]
+    solution = [None] * p
+    for i in reversed(range(p)):
+        solution[i] = (half[i] - sum(factor[m][i] * solution[m] for m in range(i + 1, p))) / factor[i][i]
+    return [x / v for x, v in zip(solution, spread)], sum(h * h for h in half)
+
+
+def _centred(values):
+    return values - jnp.mean(values, axis=1, keepdims=True)
+
+
+def fit_pair_quadratic(previous: jax.Array, current: jax.Array, targets: jax.Array, total_var, antithetic: bool):
+    """Least squares of ``targets ~ a + b_p x_p + b_c x_c - (c_p x_p^2 + 2 f x_p x_c + c_c x_c^2) / 2``
+    per period across draws of the pair ``(x_p, x_c)`` = (previous, current), each (T, S).
+
+    With antithetic draws (pairs (s, s + S/2) mirrored about the mean path) the problem splits exactly
+    into the pair differences on the linear terms and the pair means on the centred products, as in
+    :func:`smle.engine.multi_basis.fit_quadratic`. Returns ``(b_p, b_c, c_p, f, c_c, r_squared)``, (T,) each;
+    R^2 relative to ``total_var``.
+    """
+    centre_p, centre_c = jnp.mean(previous, axis=1), jnp.mean(current, axis=1)
+    if antithetic:
+        half = previous.shape[1] // 2
+        odd_p, odd_c = (0.5 * (v[:, :half] - v[:, half:]) for v in (previous, current))
+        odd_target = 0.5 * (targets[:, :half] - targets[:, half:])
+        even_target = _centred(0.5 * (targets[:, :half] + targets[:, half:]))
+        (lin_p, lin_c), explained_odd = _least_squares([odd_p, odd_c], odd_target)
+        products, explained_even = _least_squares(
+            [_centred(odd_p * odd_p), _centred(odd_p * odd_c), _centred(odd_c * odd_c)], even_target)
+        explained = explained_odd + explained_even
+        response_var = jnp.mean(even_target**2 + odd_target**2, axis=1)
+    else:
+        d_p, d_c = previous - centre_p[:, None], current - centre_c[:, None]
+        response = _centred(targets)
+        (lin_p, lin_c, *products), explained = _least_squares(
+            [_centred(d) for d in (d_p, d_c, d_p * d_p, d_p * d_c, d_c * d_c)], response)
+        response_var = jnp.mean(response * response, axis=1)
+    c_p, f, c_c = -2.0 * products[0], -products[1], -2.0 * products[2]
+    b_p = lin_p + c_p * centre_p + f * centre_c
+    b_c = lin_c + f * centre_p + c_c * centre_c
+    residual_var = jnp.maximum(response_var - explained, 0.0)
+    safe_total = jnp.where(total_var > 1e-300, total_var, 1.0)
+    r_squared = jnp.clip(jnp.where(total_var > 1e-300, 1.0 - residual_var / safe_total, 1.0), 0.0, 1.0)
+    return b_p, b_c, c_p, f, c_c, r_squared
+
+
 def eis_map(state: LatentAR1, log_h_fn, normals: jax.Array, auxiliary: AuxiliaryPairs, antithetic: bool):
     """One EIS iteration: draw, regress the residual of ``log h_t`` from the current quadratic on the
     pair basis (period 1 on x_1's), add the coefficients; returns ``(new, (R^2, failed))``.
@@ -128,15 +196,14 @@ def eis_map(state: LatentAR1, log_h_fn, normals: jax.Array, auxiliary: Auxiliary
     residual = log_h - _current(auxiliary, paths)
     total_var = jnp.var(log_h, axis=1)
     b_first, c_first, r2_first = fit_quadratic(paths[:1], residual[:1], total_var[:1])
-    pairs = jnp.stack([paths[:-1], paths[1:]], axis=-1)
-    b_pair, c_pair, r2_pair = multi_basis.fit_quadratic(pairs, residual[1:], PAIR_BASIS, total_var[1:], antithetic)
+    b_p, b_c, c_p, f, c_c, r2_pair = fit_pair_quadratic(paths[:-1], paths[1:], residual[1:], total_var[1:], antithetic)
     zero = jnp.zeros((1,), paths.dtype)
     step = AuxiliaryPairs(
-        b_obs=jnp.concatenate([b_first, b_pair[:, 1]]),
-        c_obs=jnp.concatenate([c_first, c_pair[:, 2]]),
-        cross=jnp.concatenate([zero, c_pair[:, 1]]),
-        b_prev=jnp.concatenate([zero, b_pair[:, 0]]),
-        c_prev=jnp.concatenate([zero, c_pair[:, 0]]),
+        b_obs=jnp.concatenate([b_first, b_c]),
+        c_obs=jnp.concatenate([c_first, c_c]),
+        cross=jnp.concatenate([zero, f]),
+        b_prev=jnp.concatenate([zero, b_p]),
+        c_prev=jnp.concatenate([zero, c_p]),
     )
     # a period whose regression is not finite keeps its current parameters
     usable = jnp.all(jnp.stack([jnp.isfinite(leaf) for leaf in step]), axis=0)
