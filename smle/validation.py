@@ -209,7 +209,11 @@ def check_state_settings(model: Model, settings: eis.EISSettings) -> None:
     data, that the fitting draws identify the regression on the pair of consecutive states."""
     k = model.state_dim
     if k == 1 and model.transition_uses_data:
-        eis_multi.check_draws(settings.n_draws, 2, eis_multi.full_pairs(2), settings.antithetic)
+        try:
+            eis_multi.check_draws(settings.n_draws, 2, eis_multi.full_pairs(2), settings.antithetic)
+        except SmleInputError as error:
+            raise SmleInputError(f"{error} (model '{model.name}': EIS over two consecutive states regresses on "
+                                 "the pair (x_{t-1}, x_t), as for a 2-dimensional state)") from None
     if k <= 1:
         return
     pairs = eis_multi.check_pairs(model.pairs() or eis_multi.full_pairs(k), k)

@@ -138,10 +138,13 @@ def test_fit_by_eis_on_sp500_finds_negative_leverage_near_the_exact_fit(sp500_re
     assert smle.diagnose(result, sp500_returns[:T_TEST]).filter.method == "exact"
 
 
-@pytest.mark.parametrize("route", ["control_variates", "check", "no_hook"])
+@pytest.mark.parametrize("route", ["control_variates", "check", "no_hook", "few_draws"])
 def test_what_is_not_covered_is_refused_clearly(route):
     y, _ = smle.simulate("sv-leverage", TRUTH, 50, seed=1)
-    if route == "control_variates":
+    if route == "few_draws":  # six regressors per period: 10 antithetic draws at least
+        with pytest.raises(SmleInputError, match=r"n_draws=8 is too few .* two consecutive states"):
+            smle.loglik("sv-leverage", TRUTH, y, method="eis", n_draws=8)
+    elif route == "control_variates":
         with pytest.raises(SmleInputError, match="not yet available for EIS over two consecutive states"):
             smle.loglik("sv-leverage", TRUTH, y, method="eis", control_variates="draws")
     elif route == "check":
