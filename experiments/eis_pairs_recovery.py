@@ -38,15 +38,16 @@ def main() -> None:
     for replication in range(args.replications):
         y, _ = smle.simulate("sv-leverage", TRUTH, args.periods, seed=replication)
         fit = smle.fit("sv-leverage", y, method="eis", n_draws=args.draws)
-        exact = fit.eis["exact_estimates"]
+        # the exact reference is missing where the grid cannot reach its accuracy (it says why)
         rows.append({
             "replication": replication, "converged": fit.converged, "params": fit.params,
             "std_errors": fit.std_errors, "conf_int": {k: list(v) for k, v in fit.conf_int.items()},
-            "exact_estimates": exact, "loss_against_exact": fit.eis["loss_against_exact"],
-            "simulation_error": fit.eis["simulation_error"], "nse": fit.nse,
+            "exact_estimates": fit.eis.get("exact_estimates"), "loss_against_exact": fit.eis.get("loss_against_exact"),
+            "simulation_error": fit.eis.get("simulation_error"), "nse": fit.nse,
+            "exact_reference_error": fit.eis.get("exact_reference_error"),
         })
-        print(replication, {k: round(v, 3) for k, v in fit.params.items()}, round(fit.eis["loss_against_exact"], 4),
-              flush=True)
+        print(replication, {k: round(v, 3) for k, v in fit.params.items()}, fit.eis.get("loss_against_exact"),
+              fit.eis.get("exact_reference_error", ""), flush=True)
     out = {"date": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"), "truth": TRUTH,
            "periods": args.periods, "draws": args.draws, "rows": rows}
     (HERE / "results" / "eis_pairs_recovery.json").write_text(json.dumps(out, indent=1))
@@ -57,18 +58,21 @@ def main() -> None:
 def report(out) -> str:
     rows = out["rows"]
     n = len(rows)
+    referenced = [r for r in rows if r["exact_estimates"] is not None]
     lines = [f"# sv-leverage by EIS over two consecutive states: {n} replications, T = {out['periods']}, "
              f"S = {out['draws']} ({out['date']})", "",
-             f"converged: {sum(r['converged'] for r in rows)} of {n}; exact log-likelihood lost at the EIS estimate: "
-             f"median {np.median([r['loss_against_exact'] for r in rows]):.4f}, "
-             f"largest {max(r['loss_against_exact'] for r in rows):.4f}", "",
+             f"converged: {sum(r['converged'] for r in rows)} of {n}; exact reference available in {len(referenced)} "
+             f"(the others: {'; '.join(r['exact_reference_error'] for r in rows if r['exact_estimates'] is None)}); "
+             f"exact log-likelihood lost at the EIS estimate: "
+             f"median {np.median([r['loss_against_exact'] for r in referenced]):.4f}, "
+             f"largest {max(r['loss_against_exact'] for r in referenced):.4f}", "",
              "| parameter | truth | mean estimate | mean s.e. | sd of estimates | 95% coverage (s.e.) | "
              "largest abs(EIS - exact) / s.e. |", "|---|---|---|---|---|---|---|"]
     for name, truth in out["truth"].items():
         estimates = np.array([r["params"][name] for r in rows])
         errors = np.array([r["std_errors"][name] for r in rows])
         covered = np.mean([r["conf_int"][name][0] <= truth <= r["conf_int"][name][1] for r in rows])
-        distance = max(abs(r["params"][name] - r["exact_estimates"][name]) / r["std_errors"][name] for r in rows)
+        distance = max(abs(r["params"][name] - r["exact_estimates"][name]) / r["std_errors"][name] for r in referenced)
         lines.append(f"| {name} | {truth} | {estimates.mean():.4f} | {errors.mean():.4f} | {estimates.std(ddof=1):.4f} | "
                      f"{covered:.2f} ({math.sqrt(0.95 * 0.05 / n):.2f}) | {distance:.3f} |")
     return "\n".join(lines) + "\n"
