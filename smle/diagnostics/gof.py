@@ -313,7 +313,8 @@ def diagnose(
       tail_probability: probability of each tail in the censored tail test.
       progress: optional callback receiving short progress messages.
       method: "auto" (default: the route of the fit: exact for an exact fit, which ``smle.fit``
-        makes by default for a one-dimensional state, particles for an EIS fit), "exact" (the
+        makes by default for a one-dimensional state, particles for an EIS fit, exact for an EIS fit
+        of a model whose transition uses the data, which the particle filter does not model), "exact" (the
         exact filter's PITs and predictive densities and a path drawn exactly from the smoothing
         distribution, whatever the fit) or "particles" (the guided particle filter's PITs and a
         path picked among EIS scoring draws: the simulated routes).
@@ -392,7 +393,9 @@ def _diagnose_route(model, result: FitResult, method) -> str:
                              "'particles' (the particle filter and an EIS-drawn factor path)")
     if model.state_dim > 1:  # particles: no grid covers k dimensions
         return resolve_filter_method(model, method)
-    if method == "particles" or (method == "auto" and result.simulated):
+    # a simulated fit's route is the particle filter, except where it does not model the transition
+    # (one that uses the data: leverage), which the exact filter covers
+    if method == "particles" or (method == "auto" and result.simulated and not model.transition_uses_data):
         return "particles"
     return resolve_method(model, "exact")
 

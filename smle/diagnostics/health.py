@@ -175,6 +175,10 @@ def _checked_arguments(model, params, y, n_draws, n_seeds, seed, tail_draws, dra
     """The arguments of :func:`check`, validated: ``(model, params, y, settings, n_seeds, seed,
     tail_draws, grid, labels)``."""
     resolved, checked, y_array = checked_inputs(model, params, y)
+    if resolved.transition_uses_data:  # its per-period weight terms need the pair kernels' cross terms
+        raise SmleInputError(f"smle.check is not yet available for model '{resolved.name}', whose state's transition "
+                             "uses the data (EIS over two consecutive states); accepted: smle.loglik(..., "
+                             "method='eis') with several seeds, or the exact method")
     settings = check_settings(n_draws, antithetic, tol, max_iter)
     check_state_settings(resolved, settings)
     n_seeds = check_integer("n_seeds", n_seeds, MIN_SEEDS, "independent seeds for the spread; 20 or more is better")

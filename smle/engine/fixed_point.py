@@ -153,12 +153,17 @@ def fit_auxiliary(
     auxiliary, ((r_squared, failed), iterations, change, step) = implicit_fixed_point(
         functools.partial(_eis_map_of_inputs, log_obs_fn), settings, (state, obs_args), normals, start
     )
-    info = EISInfo(
+    return auxiliary, eis_info(iterations, change, r_squared, failed, step, settings.tol)
+
+
+def eis_info(iterations, change, r_squared, failed, step, tol: float) -> EISInfo:
+    """The :class:`EISInfo` of a fixed point found by :func:`~smle.engine.implicit.implicit_fixed_point`
+    (every field stop-gradient: diagnostics)."""
+    return EISInfo(
         iterations=jax.lax.stop_gradient(iterations).astype(jnp.int32),
-        converged=jax.lax.stop_gradient(change) <= settings.tol,
+        converged=jax.lax.stop_gradient(change) <= tol,
         last_change=jax.lax.stop_gradient(change),
         r_squared=jax.lax.stop_gradient(r_squared),
         failed_regressions=jax.lax.stop_gradient(failed).astype(jnp.int32),
         step=jax.lax.stop_gradient(step),
     )
-    return auxiliary, info

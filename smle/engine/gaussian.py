@@ -42,20 +42,27 @@ class SamplerMoments(NamedTuple):
     precision: jnp.ndarray
 
 
-def kernel_integral(b, c, d, phi, v) -> ChiCoefficients:
-    """Coefficients of log chi, the log integrating constant of the kernel, as a quadratic in x_prev."""
+def kernel_integral(b, c, d, phi, v, cross=0.0) -> ChiCoefficients:
+    """Coefficients of log chi, the log integrating constant of the kernel, as a quadratic in x_prev.
+
+    ``cross`` (f) adds the factor ``exp(-f x_prev x)`` to the kernel (a kernel over two consecutive
+    states, :mod:`smle.engine.eis_pairs`): it is the linear coefficient ``b - f x_prev``, so
+
+        beta  = (phi (b - c d) - f (d + v b)) / (v P),   gamma = (phi^2 c + f (2 phi - v f)) / (v P).
+    """
     precision = 1.0 / v + c
     vp = v * precision
     alpha = -0.5 * jnp.log(vp) + (-c * d * d + 2.0 * b * d + v * b * b) / (2.0 * vp)
-    beta = phi * (b - c * d) / vp
-    gamma = phi * phi * c / vp
+    beta = (phi * (b - c * d) - cross * (d + v * b)) / vp
+    gamma = (phi * phi * c + cross * (2.0 * phi - v * cross)) / vp
     return ChiCoefficients(alpha, beta, gamma)
 
 
-def sampler_moments(b, c, d, phi, v) -> SamplerMoments:
-    """Mean (as intercept and slope in x_prev) and precision of the normalised kernel."""
+def sampler_moments(b, c, d, phi, v, cross=0.0) -> SamplerMoments:
+    """Mean (as intercept and slope in x_prev) and precision of the normalised kernel (``cross``:
+    as in :func:`kernel_integral`, it lowers the slope by ``f / P``)."""
     precision = 1.0 / v + c
-    return SamplerMoments((d / v + b) / precision, phi / (v * precision), precision)
+    return SamplerMoments((d / v + b) / precision, phi / (v * precision) - cross / precision, precision)
 
 
 def log_normal_density(x, mean, var):

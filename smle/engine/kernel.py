@@ -10,7 +10,7 @@ from __future__ import annotations
 import functools
 from typing import Mapping
 
-from smle.engine import eis, eis_multi
+from smle.engine import eis, eis_multi, eis_pairs
 
 
 def eis_output(model, settings: eis.EISSettings, params: Mapping, y, key) -> eis.EISOutput:
@@ -30,12 +30,24 @@ def eis_output_multi(model, settings: eis.EISSettings, params: Mapping, y, key) 
     )
 
 
+def eis_output_pairs(model, settings: eis.EISSettings, params: Mapping, y, key) -> eis_pairs.EISPairsOutput:
+    """Pure, differentiable EIS evaluation of a model whose transition depends on the data (its
+    ``path_transition`` hook), with kernels over two consecutive states."""
+    data = model.prepare(params, y)
+    return eis_pairs.eis_loglik_pairs(
+        model.latent(params), _log_obs_function(model), _log_obs_function(model, "path_transition"), (params, data),
+        model.mode_guess(params, data), key, settings,
+    )
+
+
 @functools.lru_cache(maxsize=None)
-def _log_obs_function(model):
-    """``(obs_args, paths) -> log g_t``: one function object per model, so compiled code is reused."""
+def _log_obs_function(model, hook: str = "log_obs_density"):
+    """``(obs_args, paths) -> model.<hook>(params, data, paths)``: log g_t (or, with ``path_transition``,
+    the law of x_{t+1}); one function object per model and hook, so compiled code is reused."""
+    method = getattr(model, hook)
 
     def log_obs(obs_args, paths):
         params, data = obs_args
-        return model.log_obs_density(params, data, paths)
+        return method(params, data, paths)
 
     return log_obs

@@ -4,8 +4,9 @@ variates), reused for every data set of the same shape.
 This is the one place a method is dispatched from. The methods: EIS (:func:`compiled_eis`:
 :mod:`smle.engine.eis` through :mod:`smle.engine.kernel`, with the control variates of
 :mod:`smle.engine.control`), its form for a k-dimensional VAR(1) state
-(:func:`compiled_eis_multi`: :mod:`smle.engine.eis_multi`, no control variates yet), chosen by
-:func:`eis_entry` from the model's ``state_dim``, and the closed form of models without a latent
+(:func:`compiled_eis_multi`: :mod:`smle.engine.eis_multi`, no control variates yet), and with
+kernels over two consecutive states for a transition that uses the data (:mod:`smle.engine.eis_pairs`,
+through the same entry), chosen by :func:`eis_entry` from the model's ``state_dim`` and transition, and the closed form of models without a latent
 state (:func:`compiled_closed_form`, ``state_dim == 0``). A new method lives in its own module
 ``smle/engine/<method>.py`` and gets its compiled entry here, beside :func:`compiled_eis`.
 """
@@ -19,7 +20,7 @@ import jax
 from smle.engine import eis
 from smle.engine.control import ControlSpec, controlled_output
 from smle.errors import SmleInputError
-from smle.engine.kernel import eis_output_multi
+from smle.engine.kernel import eis_output_multi, eis_output_pairs
 
 
 @functools.lru_cache(maxsize=None)
@@ -49,16 +50,22 @@ def compiled_closed_form(model):
     return jax.jit(model.loglik_closed_form)
 
 
+def uses_pairs(model) -> bool:
+    """Whether EIS runs with kernels over two consecutive states (a transition that uses the data)."""
+    return model.state_dim == 1 and model.transition_uses_data
+
+
 def multi_output(model, settings: eis.EISSettings, params, y, key):
-    """``(out, extra)`` of EIS with a k-dimensional state, in the form of ``controlled_output``
-    (``extra["value"]`` is the estimate; there are no control variates for k > 1 yet)."""
-    out = eis_output_multi(model, settings, params, y, key)
+    """``(out, extra)`` of EIS with a k-dimensional state or with pair kernels, in the form of
+    ``controlled_output`` (``extra["value"]`` is the estimate; no control variates for these yet)."""
+    out = (eis_output_pairs if uses_pairs(model) else eis_output_multi)(model, settings, params, y, key)
     return out, {"value": out.value}
 
 
 @functools.lru_cache(maxsize=None)
 def compiled_eis_multi(model, settings: eis.EISSettings):
-    """The JIT-compiled EIS kernel for a model with ``state_dim > 1`` (same outputs as :func:`compiled_eis`)."""
+    """The JIT-compiled EIS kernel for a model with ``state_dim > 1`` or pair kernels (same outputs
+    as :func:`compiled_eis`)."""
 
     def run(params, y, key):
         out, extra = multi_output(model, settings, params, y, key)
@@ -68,14 +75,14 @@ def compiled_eis_multi(model, settings: eis.EISSettings):
 
 
 def eis_entry(model, settings: eis.EISSettings, control: ControlSpec = ControlSpec()):
-    """The compiled EIS kernel for the model's state dimension."""
-    if model.state_dim > 1:
+    """The compiled EIS kernel for the model's state dimension and transition."""
+    if model.state_dim > 1 or uses_pairs(model):
         return compiled_eis_multi(model, settings)
     return compiled_eis(model, settings, control)
 
 
 def eis_evaluation(model, settings: eis.EISSettings, control: ControlSpec, params, y, key):
-    """``(out, extra)``, uncompiled and differentiable, for the model's state dimension (what fit traces)."""
-    if model.state_dim > 1:
+    """``(out, extra)``, uncompiled and differentiable, for the model's state (what fit traces)."""
+    if model.state_dim > 1 or uses_pairs(model):
         return multi_output(model, settings, params, y, key)
     return controlled_output(model, settings, control, params, y, key)

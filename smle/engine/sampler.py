@@ -89,22 +89,27 @@ def _period_coefficients(state: LatentAR1, n_periods: int):
     return intercept, slope, variance
 
 
-def assemble(state: LatentAR1, auxiliary: Auxiliary) -> Sampler:
+def assemble(state: LatentAR1, auxiliary: Auxiliary, cross: jax.Array | None = None) -> Sampler:
     """Build the sampler from the observation-part auxiliary parameters by a backward scan.
 
     At period t the kernel's quadratic is the observation part plus the exact log chi_{t+1}
     coefficients. The precision of each conditional is kept above 1% of the transition's own
     precision, a guard that only acts for a regression that produced a non-integrable kernel.
+    ``cross`` (T,), if given, adds ``-cross_t x_{t-1} x_t`` to the kernel of period t (kernels over
+    two consecutive states, :mod:`smle.engine.eis_pairs`; ``cross[0]`` is not used): the log
+    weight then carries ``+cross_t x_{t-1} x_t``, which the caller adds.
     """
     n_periods = auxiliary.b_obs.shape[0]
     intercept, slope, variance = _period_coefficients(state, n_periods)
+    if cross is None:
+        cross = jnp.zeros((n_periods,), intercept.dtype)
 
     def step(chi_next, inputs):
-        b_obs, c_obs, d, phi, v = inputs
+        b_obs, c_obs, f, d, phi, v = inputs
         b = b_obs + chi_next.beta
         c = jnp.maximum(c_obs + chi_next.gamma, -0.99 / v)
-        chi = gaussian.kernel_integral(b, c, d, phi, v)
-        moments = gaussian.sampler_moments(b, c, d, phi, v)
+        chi = gaussian.kernel_integral(b, c, d, phi, v, f)
+        moments = gaussian.sampler_moments(b, c, d, phi, v, f)
         weight = (chi_next.alpha, chi_next.beta - b, chi_next.gamma - c)
         return chi, (moments, weight, chi.alpha)
 
@@ -112,7 +117,7 @@ def assemble(state: LatentAR1, auxiliary: Auxiliary) -> Sampler:
     _, (moments, weight, alpha) = jax.lax.scan(
         step,
         gaussian.ChiCoefficients(zero, zero, zero),
-        (auxiliary.b_obs, auxiliary.c_obs, intercept, slope, variance),
+        (auxiliary.b_obs, auxiliary.c_obs, cross.at[0].set(0.0), intercept, slope, variance),
         reverse=True,
     )
     return Sampler(

@@ -60,7 +60,9 @@ state-space methods ``loglik_closed_form(params, y)`` (the exact log-likelihood,
 ``factor_path(params, y)``: the path a fit reports in place of a smoothed factor.
 * ``factor_display(params, x)``: the quantity figures show for the factor (default: x itself).
 * ``transition_uses_data`` with ``period_transition(params, data, grid)``: a transition that
-  depends on the data (leverage), for the exact method; EIS refuses such a model;
+  depends on the data (leverage), for the exact method; with ``path_transition(params, data,
+  x_from)`` as well (the same law at states of any shape), EIS over two consecutive states
+  (:mod:`smle.engine.eis_pairs`) covers it too; without it EIS refuses such a model;
 * ``gaussian_measurement(params)``: for a linear Gaussian model, ``y_t = x_t + N(0, v)``, the
   variance ``v``; the exact method then runs the Kalman filter (default None: not linear Gaussian).
   With a k-dimensional state, the (k, k) covariance H of ``y_t = x_t + N(0, H)`` (the health
@@ -105,8 +107,8 @@ class Model:
     ``("return", "realized measure")``."""
     transition_uses_data: ClassVar[bool] = False
     """Whether the state's transition depends on the data (leverage): then :meth:`period_transition`
-    gives it, the exact method uses it, and EIS (whose sampler assumes :meth:`latent`'s AR(1)
-    transition) refuses the model."""
+    gives it and the exact method uses it; EIS runs with kernels over two consecutive states where
+    the model also defines :meth:`path_transition`, and refuses the model otherwise."""
     state_dim: ClassVar[int] = 1
     """Dimension of the latent state: 1 for the AR(1) factor every model has today; 0 means no
     latent state (the likelihood in closed form); above 1 the state is the Gaussian VAR(1) of
@@ -145,6 +147,18 @@ class Model:
         data of period t, as :class:`smle.engine.exact.PeriodTransition` (means (T - 1, G), sds
         (T - 1,) or (T - 1, G)); None (default): the AR(1) transition of :meth:`latent`."""
         return None
+
+    def path_transition(self, params: Mapping, data, x_from: jax.Array):
+        """For a model whose transition uses the data: the Gaussian law of x_{t+1} given x_t =
+        ``x_from[t - 1]`` (shape (T - 1, S), periods t = 1..T-1) and the data of period t, as
+        :class:`smle.engine.exact.PeriodTransition` (means (T - 1, S), sds (T - 1,) or (T - 1, S)).
+        Defining it makes the model's likelihood available to EIS (:mod:`smle.engine.eis_pairs`)."""
+        raise NotImplementedError(f"model '{self.name}' has no path_transition hook")
+
+    @property
+    def has_path_transition(self) -> bool:
+        """Whether the model defines :meth:`path_transition` (EIS over two consecutive states)."""
+        return type(self).path_transition is not Model.path_transition
 
     def gaussian_measurement(self, params: Mapping):
         """The measurement variance v of a linear Gaussian model y_t = x_t + N(0, v), or None."""

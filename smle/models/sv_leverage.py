@@ -12,10 +12,10 @@ period's log variance. Given x_t and y_t the next state is Gaussian:
     x_{t+1} | x_t, y_t ~ N(mu + phi (x_t - mu) + delta sigma_eta y_t exp(-x_t / 2),
                            sigma_eta^2 (1 - delta^2)),
 
-a transition that depends on the data and, non-linearly, on x_t. The exact grid filter takes it
-as a per-period transition (:meth:`period_transition`); the EIS engine, whose sampler assumes the
-linear Gaussian AR(1) transition of :meth:`latent`, does not apply, and the model says so
-(``transition_uses_data``): EIS over two consecutive states is not built yet.
+a transition that depends on the data and, non-linearly, on x_t (``transition_uses_data``). The
+exact grid filter takes it as a per-period transition (:meth:`period_transition`); EIS takes it at
+its draws (:meth:`path_transition`) with kernels over two consecutive states
+(:mod:`smle.engine.eis_pairs`).
 """
 
 from __future__ import annotations
@@ -50,13 +50,17 @@ class LeverageStochasticVolatility(LogVarianceState):
     def log_obs_density(self, params, data, x):
         return -0.5 * (LOG_2PI + x + data[:, None] ** 2 * jnp.exp(-x))
 
-    def period_transition(self, params, data, grid) -> PeriodTransition:
-        """x_{t+1} given x_t = grid[j] and y_t, for t = 1..T-1: means (T - 1, G), sds (T - 1,)."""
+    def path_transition(self, params, data, x_from) -> PeriodTransition:
+        """x_{t+1} given x_t = x_from[t - 1] (T - 1, S) and y_t, t = 1..T-1: means (T - 1, S), sds (T - 1,)."""
         mu, phi, sigma, delta = params["mu"], params["phi"], params["sigma_eta"], params["delta"]
-        shock = data[:-1, None] * jnp.exp(-0.5 * grid[None, :])  # eps_t at each grid point
-        mean = mu + phi * (grid[None, :] - mu) + delta * sigma * shock
+        shock = data[:-1, None] * jnp.exp(-0.5 * x_from)  # eps_t at each state
+        mean = mu + phi * (x_from - mu) + delta * sigma * shock
         sd = jnp.broadcast_to(sigma * jnp.sqrt(1.0 - delta**2), (data.shape[0] - 1,))
         return PeriodTransition(mean, sd)
+
+    def period_transition(self, params, data, grid) -> PeriodTransition:
+        """x_{t+1} given x_t = grid[j] and y_t, for t = 1..T-1: means (T - 1, G), sds (T - 1,)."""
+        return self.path_transition(params, data, jnp.broadcast_to(grid, (data.shape[0] - 1, grid.shape[0])))
 
     def simulate(self, params, n_periods, key):
         mu, phi, sigma, delta = (jnp.asarray(params[k], float) for k in ("mu", "phi", "sigma_eta", "delta"))
