@@ -57,7 +57,7 @@ from smle.diagnostics.residual_tests import (  # noqa: F401 (public names of gof
     PIT_CLIP, arch_lm, autocorrelations, check_lags, berkowitz_test, durbin_watson, ljung_box, normal_scores, tail_test,
 )
 from smle.diagnostics.factor_path import (  # noqa: F401 (public names of gof)
-    PATH_CANDIDATES, exact_posterior_path, factor_innovations, posterior_path,
+    EXACT_PATH_LEVEL, FACTOR_PATH_LEVEL, PATH_CANDIDATES, exact_posterior_path, factor_innovations, posterior_path,
 )
 from smle.diagnostics.filtering import (
     FilterResult, check_filter_settings, filter_factor, has_obs_cdf, no_state_message, resolve_filter_method,
@@ -74,27 +74,6 @@ FILTER_LOW_ESS_FRACTION = 0.01
 """A period whose particle-filter ESS is below this fraction of the particles is flagged (common
 practice, a rule of thumb: fewer than 20 of 2000 particles then carry that period's PIT; dips to
 a few per cent after an outlier are ordinary for a filter that resamples at one half)."""
-
-FACTOR_PATH_LEVEL = 0.01
-"""Flagging level of the tests on the drawn factor path. The path is one of the EIS scoring paths
-picked by its importance weight: only approximately a posterior draw, so its innovations are not
-exactly i.i.d. under a correct model. Measured with ``experiments/factor_path_size.py``
-(results/factor_path_size*.json), sv at the README design, T = 2000, samples from the model: picked
-among the 64 fitting draws, the lag-10 Ljung-Box test of the innovations rejected at 5% in 18 of 200
-samples (9.0%, binomial se 2.0%) against 10 (5.0%) for an exact grid posterior draw (forward
-filtering, backward sampling); picked among ``PATH_CANDIDATES`` scoring draws (what diagnose now
-does), 3 of 100 on the same first 100 samples (exact draw: 4), and over the six path tests 0.5% of
-p-values fell below 1% (exact draw: 1.2%). The size is then near nominal for sv, but this is one
-design (garch-mix was measured with 64 candidates only: 9 of 100 at lag 5, exact draw 3), so the
-path tests stay counted apart from the tests of the observations and are flagged below 1%."""
-
-EXACT_PATH_LEVEL = SIGNIFICANCE
-"""Flagging level of the factor-path tests when the path is drawn exactly (backward simulation after
-the exact filter): such a draw has the law of the true path under a correct model, so the tests have
-their nominal size. Measured in ``experiments/factor_path_size.py`` (the "ffbs" rows, an exact grid
-posterior draw): sv, 200 samples of T = 2000, lag-5/10/20 Ljung-Box of the innovations rejected at 5%
-in 7, 10 and 11 samples (3.5-5.5%), of their squares in 10, 9 and 8; garch-mix, 100 samples: 3, 1, 4
-and 3, 1, 3. The grid the path is drawn on is checked in ``experiments/factor_path_exact.py``."""
 
 DIAGNOSE_METHODS = ("auto", "exact", "particles")
 
