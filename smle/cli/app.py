@@ -166,14 +166,18 @@ def _demo_simulated_against_exact(model, observations, args, held) -> None:
                          max_steps=args.max_steps, fixed=held or None, method="eis", source=observations.source,
                          dates=observations.dates)
     print(simulated.summary())
-    report = smle.check(model, simulated.params, observations.values, n_draws=args.draws, n_seeds=5, seed=args.seed,
-                        tail_draws=500, draws_grid=None, dates=observations.dates)
-    print()
-    print(report.summary())
     folder = Path(args.report) / "eis"
     folder.mkdir(parents=True, exist_ok=True)
     simulated.to_json(folder / "result.json")
     (folder / "summary.txt").write_text(simulated.summary() + "\n")
+    if model.transition_uses_data:  # smle.check does not cover pair kernels yet; the summary has the exact comparison
+        print(f"\nEIS fit written to {folder}/ (result.json, summary.txt); smle.check is not yet available for a "
+              "transition that uses the data")
+        return
+    report = smle.check(model, simulated.params, observations.values, n_draws=args.draws, n_seeds=5, seed=args.seed,
+                        tail_draws=500, draws_grid=None, dates=observations.dates)
+    print()
+    print(report.summary())
     written = report.write(folder / "check")
     print(f"\nEIS fit and its check written to {folder}/ (result.json, summary.txt, check/: {len(written)} files)")
 
