@@ -16,6 +16,43 @@ from smle.engine import gaussian
 from smle.engine.latent import LatentAR1
 
 
+# ---------------------------------------------------------------------------------------------
+# Default settings: the one place they are written (smle.loglik, smle.fit, smle.check, compare,
+# studies and the command line read them from here). Measured against the exact grid value in
+# experiments/results/eis_accuracy.md: a small fitting set, a few iterations and a large scoring
+# set are 2.5x more accurate at T = 2000 than 64 draws for both sets iterated to 1e-6, at about
+# the same time per call. Importance sampling is unbiased for any sampler and the scoring draws
+# are independent of the fitting draws, so a sampler short of the fixed point costs variance
+# only, and 3, 5 and 12 iterations gave the same spread.
+
+DRAWS = 32
+"""Default paths of the fitting set."""
+
+SCORE_DRAWS = 512
+"""Default paths of the scoring set (one pass: cheap next to the fitting iterations)."""
+
+TOL = 1e-2
+"""Default tolerance of a likelihood evaluation: EIS iterates until the largest relative change
+of the auxiliary parameters is at most this (3-5 iterations for sv and garch-mix at T = 2000),
+and ``converged`` says whether it got there within ``MAX_ITER``."""
+
+MAX_ITER = 50
+"""Default cap on EIS iterations (reached only where EIS does not settle: then ``converged`` is False)."""
+
+FIT_DRAWS = 64
+"""Default paths of each draw set (fitting and scoring) inside a fit: every evaluation carries a
+gradient, whose reverse pass through a scoring set of ``SCORE_DRAWS`` cost more than the
+accuracy it bought (experiments/results/bench_fit.md)."""
+
+FIT_TOL = 1e-8
+"""Default tolerance of the EIS fixed point inside a fit. The fit's gradient is the implicit
+gradient at the fixed point, which is the gradient of the evaluated function only when the fixed
+point is reached: with ``TOL`` the two differ (measured in experiments/results/eis_accuracy.md)."""
+
+FIT_MAX_ITER = 100
+"""Default cap on EIS iterations at each evaluation of a fit."""
+
+
 class EISSettings(NamedTuple):
     """Static settings of the EIS estimator.
 
@@ -33,10 +70,10 @@ class EISSettings(NamedTuple):
         weight-tail tests need one.
     """
 
-    n_draws: int = 64
+    n_draws: int = DRAWS
     antithetic: bool = True
-    tol: float = 1e-6
-    max_iter: int = 50
+    tol: float = TOL
+    max_iter: int = MAX_ITER
     n_newton: int = 200
     max_tangent_iter: int = 200
     tangent_tol: float = 1e-5
