@@ -39,7 +39,9 @@ class LoglikResult:
         antithetic draws, over the independent pairs); with control variates, the corrected NSE.
       ess: effective sample size of the scoring weights, (sum w)^2 / sum w^2.
       iterations: EIS iterations used after the Newton start.
-      converged: whether the auxiliary parameters stopped moving within ``tol``.
+      converged: whether the last relative change of the auxiliary parameters was at most ``tol``
+        (by default 1e-2: a sampler close enough to the EIS fixed point for the scoring set,
+        not the fixed point to many digits; see ``smle.engine.sampler.TOL``).
       last_change: largest relative change of the auxiliary parameters at the last iteration.
       n_draws, antithetic, seed: the estimator settings used.
       log_weights: log importance weights of the scoring paths, shape (S,).
