@@ -40,9 +40,10 @@ MAX_ITER = 50
 """Default cap on EIS iterations (reached only where EIS does not settle: then ``converged`` is False)."""
 
 FIT_DRAWS = 64
-"""Default paths of each draw set (fitting and scoring) inside a fit: every evaluation carries a
-gradient, whose reverse pass through a scoring set of ``SCORE_DRAWS`` cost more than the
-accuracy it bought (experiments/results/bench_fit.md)."""
+"""Default paths of each draw set (fitting and scoring) inside a fit. Every evaluation of a fit
+carries a gradient, whose reverse pass runs through the scoring set: with 32 fitting and 512
+scoring draws an sv fit (T = 2000) took 2.5-3x the time of 64 and 64 (experiments/results/bench_fit.md);
+how the estimates' simulation error compares was not measured, so fits keep 64."""
 
 FIT_TOL = 1e-8
 """Default tolerance of the EIS fixed point inside a fit. The fit's gradient is the implicit
