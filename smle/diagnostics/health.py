@@ -52,7 +52,6 @@ from smle.diagnostics.health_report import (  # noqa: F401 (the report's names a
     TOP_PERIODS, HealthReport, Period, ScalingRow,
 )
 from smle.engine import eis
-from smle.engine.sampler import MAX_ITER, TOL
 from smle.errors import SmleInputError, describe
 from smle.likelihood import LoglikResult, loglik
 from smle.models.base import model_options
@@ -229,8 +228,8 @@ def check(
     draws_grid: Sequence[int] | None = (16, 32, 64, 128, 256),
     dates=None,
     antithetic: bool = True,
-    tol: float = TOL,
-    max_iter: int = MAX_ITER,
+    tol: float = 1e-6,
+    max_iter: int = 50,
     level: float = 0.05,
     control_variates: str | None = None,
     progress: Callable[[str], None] | None = None,
@@ -251,7 +250,7 @@ def check(
       draws_grid: numbers of draws at which the NSE is measured from R seeds (at least 2
         values), or None to skip that part. ``n_draws`` may be among them (its runs are shared).
       dates: one label per period, overriding the index of ``y``.
-      antithetic, tol, max_iter: EIS settings, as in :func:`smle.loglik` (the same defaults).
+      antithetic, tol, max_iter: EIS settings, as in :func:`smle.loglik`.
       level: significance level of the tail tests.
       control_variates: None, "independent", "draws" or "both" (as in :func:`smle.loglik`): the seed
         and grid runs then use the corrected estimator, and the report adds the spread without
