@@ -3,10 +3,12 @@
 The objective is minus the EIS log-likelihood per observation, in the unconstrained
 parameterisation each model declares, with the auxiliary sampler re-fitted at every parameter
 value and the common random numbers held fixed. Its gradient is exact: the EIS fixed point is
-differentiated implicitly (see :mod:`smle.engine.eis`). The optimiser is L-BFGS (optax's two-loop
-recursion) with a weak Wolfe line search; every evaluation of the objective and its gradient is
-one JIT-compiled program, compiled once per (model, settings, data shape). Standard errors come from the inverse
-Hessian of minus the log-likelihood (central differences of the exact gradient), mapped to the
+differentiated implicitly (see :mod:`smle.engine.eis`), and each evaluation starts the EIS
+iteration from the previous evaluation's auxiliary parameters (half the iterations near the
+estimate; the fixed point, so the objective, does not depend on the start). The optimiser is
+L-BFGS (optax's two-loop recursion) with a weak Wolfe line search; every evaluation of the
+objective and its gradient is one JIT-compiled program, compiled once per (model, settings, data
+shape). Standard errors come from the inverse Hessian of minus the log-likelihood (central differences of the exact gradient), mapped to the
 natural parameters by the delta method. A model without a latent state is fitted the same way
 on its closed-form likelihood; ``fixed`` parameters are held through :mod:`smle.restricted`.
 
