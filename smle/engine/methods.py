@@ -81,8 +81,15 @@ def eis_entry(model, settings: eis.EISSettings, control: ControlSpec = ControlSp
     return compiled_eis(model, settings, control)
 
 
-def eis_evaluation(model, settings: eis.EISSettings, control: ControlSpec, params, y, key):
-    """``(out, extra)``, uncompiled and differentiable, for the model's state (what fit traces)."""
+def warm_starts(model) -> bool:
+    """Whether a fit can start each evaluation's EIS iteration from the previous one's auxiliary
+    parameters: the one-dimensional engine (not the k-dimensional one, not pair kernels)."""
+    return model.state_dim == 1 and not uses_pairs(model)
+
+
+def eis_evaluation(model, settings: eis.EISSettings, control: ControlSpec, params, y, key, warm=None):
+    """``(out, extra)``, uncompiled and differentiable, for the model's state (what fit traces);
+    ``warm`` (the one-dimensional engine only: :func:`warm_starts`) starts the EIS iteration."""
     if model.state_dim > 1 or uses_pairs(model):
         return multi_output(model, settings, params, y, key)
-    return controlled_output(model, settings, control, params, y, key)
+    return controlled_output(model, settings, control, params, y, key, warm)
