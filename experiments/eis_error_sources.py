@@ -29,7 +29,7 @@ import numpy as np
 from jax.scipy.special import logsumexp
 
 import smle
-from smle.diagnostics.weight_tail import pareto_k_hat
+from smle.pareto_tail import pareto_k_hat
 from smle.engine import eis
 from smle.engine.kernel import _log_obs_function
 from smle.errors import SmleInputError
