@@ -3,10 +3,12 @@
 The objective is minus the EIS log-likelihood per observation, in the unconstrained
 parameterisation each model declares, with the auxiliary sampler re-fitted at every parameter
 value and the common random numbers held fixed. Its gradient is exact: the EIS fixed point is
-differentiated implicitly (see :mod:`smle.engine.eis`). The optimiser is L-BFGS (optax's two-loop
-recursion) with a weak Wolfe line search; every evaluation of the objective and its gradient is
-one JIT-compiled program, compiled once per (model, settings, data shape). Standard errors come from the inverse
-Hessian of minus the log-likelihood (central differences of the exact gradient), mapped to the
+differentiated implicitly (see :mod:`smle.engine.eis`), and each evaluation starts the EIS
+iteration from the previous evaluation's auxiliary parameters (half the iterations near the
+estimate; the fixed point, so the objective, does not depend on the start). The optimiser is
+L-BFGS (optax's two-loop recursion) with a weak Wolfe line search; every evaluation of the
+objective and its gradient is one JIT-compiled program, compiled once per (model, settings, data
+shape). Standard errors come from the inverse Hessian of minus the log-likelihood (central differences of the exact gradient), mapped to the
 natural parameters by the delta method. A model without a latent state is fitted the same way
 on its closed-form likelihood; ``fixed`` parameters are held through :mod:`smle.restricted`.
 
@@ -30,6 +32,7 @@ from smle.engine import eis
 from smle.engine.control import ControlSpec, control_facts
 from smle.engine.methods import compiled_closed_form, eis_evaluation
 from smle.engine.posterior import path_quantiles
+from smle.engine.sampler import FIT_DRAWS, FIT_MAX_ITER, FIT_TOL
 from smle.errors import SmleInputError
 from smle.exact_likelihood import EXACT_TOL, check_exact_tol, resolve_method, warn_unused_settings
 from smle.fit_exact import exact_reference as fit_exact_reference
@@ -55,12 +58,17 @@ def objective(model: Model, settings: eis.EISSettings, y, key, control: ControlS
     With control variates it is the corrected log-likelihood. Returns ``(value, aux)`` where
     ``aux`` carries the EIS output, weight diagnostics and the control-variate facts at that
     point (the scoring paths and weights give the smoothed factor at the optimum).
+
+    ``warm``: auxiliary parameters to start the EIS iteration from (a fit passes its previous
+    evaluation's; None or NaN: the Newton start). The fixed point, so the value to the tolerance
+    and the implicit gradient, does not depend on the start: the objective stays a function of
+    the parameters (measured in experiments/results/bench_fit.md).
     """
     n_periods = y.shape[0]
 
-    def negative_loglik(unconstrained):
+    def negative_loglik(unconstrained, warm=None):
         params = model.from_real(unconstrained) if restriction is None else restriction.natural(unconstrained)
-        out, extra = eis_evaluation(model, settings, control, params, y, key)
+        out, extra = eis_evaluation(model, settings, control, params, y, key, warm)
         diagnostics = eis.weight_diagnostics(jax.lax.stop_gradient(out.log_weights), settings.antithetic)
         return -extra["value"] / n_periods, (out, diagnostics, jax.lax.stop_gradient(extra))
 
@@ -78,8 +86,8 @@ def compiled_value_and_grad(model: Model, settings: eis.EISSettings, control: Co
     against 6 s for sv at T = 2000.)
     """
 
-    def run(u, y, key):
-        return jax.value_and_grad(objective(model, settings, y, key, control, restriction), has_aux=True)(u)
+    def run(u, y, key, warm=None):
+        return jax.value_and_grad(objective(model, settings, y, key, control, restriction), has_aux=True)(u, warm)
 
     return jax.jit(run)
 
@@ -117,12 +125,12 @@ def check_fit_data(model: Model, y) -> np.ndarray:
 def fit(
     model,
     y,
-    n_draws: int = 64,
+    n_draws: int = FIT_DRAWS,
     seed: int = 0,
     start: Mapping[str, float] | None = None,
     antithetic: bool = True,
-    tol: float = 1e-8,
-    max_iter: int = 100,
+    tol: float = FIT_TOL,
+    max_iter: int = FIT_MAX_ITER,
     max_steps: int = 200,
     gtol: float = 1e-6,
     n_seeds: int = 1,
@@ -241,14 +249,27 @@ def _start_values(model, start, y) -> dict:
         raise SmleInputError(f"start values: {error}") from None
 
 
-def _evaluator(restriction, settings, control, y, key):
+def _evaluator(restriction, settings, control, y, key, warm=None):
+    """``u -> (value, aux, gradient)`` of the compiled objective. With a one-dimensional state each
+    evaluation starts EIS from the auxiliary parameters of the previous one (``warm`` for the
+    first; None: the Newton start), which cuts the iterations a small step needs."""
     compiled = compiled_value_and_grad(restriction.model, settings, control, restriction)
+    if restriction.model.state_dim != 1:
+        def evaluate(u):
+            (value, aux), grad = compiled(jnp.asarray(u), y, key)
+            return value, aux, grad
 
-    def evaluate(u):
-        (value, aux), grad = compiled(jnp.asarray(u), y, key)
+        return evaluate
+    nan = jnp.full((y.shape[0],), jnp.nan)
+    last = {"warm": eis.Auxiliary(nan, nan) if warm is None else warm}
+
+    def evaluate_warm(u):
+        (value, aux), grad = compiled(jnp.asarray(u), y, key, last["warm"])
+        if np.isfinite(float(value)):
+            last["warm"] = aux[0].auxiliary
         return value, aux, grad
 
-    return evaluate
+    return evaluate_warm
 
 
 def _fit_one(restriction, settings, control, y, key, start_params, max_steps, gtol, verbose):
@@ -301,7 +322,8 @@ def _assemble(restriction, settings, control, y, y_jax, key, seed, first, extra,
     model = restriction.model
     names = model.param_names
     n_periods = y.shape[0]
-    hessian = hessian_by_differences(_evaluator(restriction, settings, control, y_jax, key), first["u"], n_periods)
+    warm = first["aux"][0].auxiliary if model.state_dim == 1 else None
+    hessian = hessian_by_differences(_evaluator(restriction, settings, control, y_jax, key, warm), first["u"], n_periods)
     params, covariance, std_errors, conf_int, converged, message = estimates_at(restriction, first, hessian, level)
 
     out, diagnostics, cv_extra = first["aux"]

@@ -22,6 +22,22 @@ def returns_csv(tmp_path_factory):
     return path, frame
 
 
+def test_draws_defaults_are_the_library_defaults():
+    """The command line writes its --draws defaults out (importing the engine at parse time would
+    slow every command's start); they must stay those of smle.fit and smle.check."""
+    import inspect
+
+    from smle.cli.app import build_parser
+
+    commands = {"fit": smle.fit, "demo": smle.fit, "check": smle.check, "compare": smle.fit, "backtest": smle.fit,
+                "forecast": smle.fit}
+    parser = build_parser()
+    subparsers = next(a for a in parser._actions if a.dest == "command").choices
+    for command, entry in commands.items():
+        expected = inspect.signature(entry).parameters["n_draws"].default
+        assert subparsers[command].get_default("draws") == expected, command
+
+
 def test_help_everywhere(capsys):
     for argv in (["--help"], ["fit", "--help"], ["models", "--help"], ["demo", "--help"], ["prepare", "--help"]):
         with pytest.raises(SystemExit) as exit_info:

@@ -4,6 +4,8 @@ Tolerances come from numerical standard errors measured across independent seeds
 the single-run NSE alone.
 """
 
+import inspect
+
 import numpy as np
 import pytest
 
@@ -13,7 +15,7 @@ from smle.reference import grid_loglik
 from conftest import JPR_DESIGNS
 
 N_SEEDS = 20
-N_DRAWS = 64
+N_DRAWS = inspect.signature(smle.loglik).parameters["n_draws"].default  # the defaults are what is checked here
 
 
 def _across_seeds(params, y, n_seeds=N_SEEDS, first_seed=0):

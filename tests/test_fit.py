@@ -80,6 +80,28 @@ def test_sv_on_sp500_agrees_with_the_grid_likelihood_maximiser(sp500_returns):
     assert grid_loglik("sv", exact, sp500_returns) - grid_loglik("sv", result.params, sp500_returns) < 0.05
 
 
+def test_a_warm_start_gives_the_same_objective(sp500_returns):
+    # a fit starts each evaluation's EIS iteration from the previous evaluation's auxiliary
+    # parameters; at the fit's tolerance (1e-8) the objective must stay the same function of the
+    # parameters whatever the start, or line searches would compare values of different functions
+    # (measured on sv at T = 2000: value 2e-11, gradient 2e-10 log-likelihood units apart)
+    model = smle.get_model("sv")
+    settings = fit_module.check_settings(64, True, fit_module.FIT_TOL, fit_module.FIT_MAX_ITER)
+    restriction = fit_module.Restriction.of(model, {})
+    y, key = jnp.asarray(sp500_returns), jax.random.PRNGKey(0)  # the program of the SP500 fit above
+    first = dict(mu=-0.4, phi=0.98, sigma_eta=0.15)
+    second = dict(mu=-0.38, phi=0.975, sigma_eta=0.16)
+    warm = fit_module._evaluator(restriction, settings, fit_module.NO_CONTROL, y, key)
+    cold = fit_module._evaluator(restriction, settings, fit_module.NO_CONTROL, y, key)
+    warm(restriction.free_start(first))
+    value_warm, aux_warm, grad_warm = warm(restriction.free_start(second))
+    value_cold, aux_cold, grad_cold = cold(restriction.free_start(second))
+    assert int(aux_warm[0].info.iterations) < int(aux_cold[0].info.iterations)
+    n_obs = sp500_returns.shape[0]
+    assert abs(float(value_warm) - float(value_cold)) * n_obs < 1e-7
+    assert np.allclose(np.asarray(grad_warm), np.asarray(grad_cold), rtol=1e-6, atol=1e-8 / n_obs)
+
+
 N_REPLICATIONS = {"phi=0.95": 20, "phi=0.90": 8, "phi=0.98": 8}
 
 

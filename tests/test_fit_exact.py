@@ -151,7 +151,7 @@ def test_eis_settings_unused_by_the_exact_method_are_said():
     params = dict(mu=-0.4, phi=0.98, sigma_eta=0.15)
     y, _ = smle.simulate("sv", params, 100, seed=2)
     with pytest.warns(UserWarning, match=r"n_draws, seed are not used: model 'sv' is computed by the exact method"):
-        smle.loglik("sv", params, y, n_draws=32, seed=4)
+        smle.loglik("sv", params, y, n_draws=64, seed=4)
     import warnings
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # defaults, or method="eis", say nothing

@@ -13,6 +13,7 @@ minus ``smle.loglik(method="exact")``.
 from __future__ import annotations
 
 import dataclasses
+import inspect
 import json
 
 import numpy as np
@@ -32,6 +33,10 @@ from conftest import JPR_DESIGNS
 
 PARAMS = JPR_DESIGNS["phi=0.95"]
 N_SEEDS = 10
+# the check's seed runs are smle.loglik with both draw sets of n_draws paths and the check's own
+# iteration rule (its defaults, not loglik's): the direct computations below use the same
+CHECK_RUN = {"n_score_draws": None, **{name: inspect.signature(smle.check).parameters[name].default
+                                       for name in ("tol", "max_iter")}}
 
 
 @pytest.fixture(scope="module")
@@ -60,7 +65,7 @@ def test_well_specified_sv_is_healthy(healthy_report, sv_data):
     exact = grid_loglik("sv", PARAMS, sv_data.to_numpy(), n_grid=1000)
     assert abs(report.loglik_bias_corrected - exact) < 4 * report.nse_of_mean
     # the seed runs are smle.loglik at seeds 0..9, untouched
-    again = smle.loglik("sv", PARAMS, sv_data.to_numpy(), n_draws=64, seed=3, method="eis")
+    again = smle.loglik("sv", PARAMS, sv_data.to_numpy(), n_draws=64, seed=3, method="eis", **CHECK_RUN)
     assert report.values[3] == again.value and report.single_nse[3] == again.nse
     assert report.loglik_sd == pytest.approx(np.std(report.values, ddof=1), rel=1e-12)
     # the agreement range of single-run NSE / spread is the chi-square law of a sample sd
@@ -75,7 +80,7 @@ def test_well_specified_sv_is_healthy(healthy_report, sv_data):
 
 def test_period_terms_rebuild_the_engine_weights(sv_data):
     y = sv_data.to_numpy()
-    result = smle.loglik("sv", PARAMS, y, n_draws=64, seed=5, method="eis")
+    result = smle.loglik("sv", PARAMS, y, n_draws=64, seed=5, method="eis", **CHECK_RUN)
     terms = health.period_terms("sv", PARAMS, y, result)
     total = terms.sum(axis=0)
     # log w = log chi_1 + sum_t term_t: the terms differ from the engine's weights by one constant
@@ -100,8 +105,8 @@ def test_infinite_variance_sampler_is_not_healthy():
     """
     params = dict(mu=0.0, phi=0.0, sigma_eta=2.0)
     y, _ = smle.simulate("sv", params, 500, seed=3)
-    tail_run = smle.loglik("sv", params, y, n_draws=64, n_score_draws=2000, seed=0, method="eis",  # the check's tail run
-                           on_breakdown="return")  # loglik itself refuses this run (EISBreakdownError)
+    tail_run = smle.loglik("sv", params, y, n_draws=64, seed=0, method="eis",  # the check's tail run
+                           on_breakdown="return", **{**CHECK_RUN, "n_score_draws": 2000})  # loglik itself refuses this run (EISBreakdownError)
     assert tail_run.c_obs.max() * params["sigma_eta"] ** 2 >= 1.0  # infinite variance by the derivation above
     report = smle.check("sv", params, y, n_draws=64, n_seeds=N_SEEDS, seed=0, tail_draws=2000, draws_grid=None)
     # measured: k-hat 2.95, spread 2.9 against single-run NSE 0.8
@@ -127,9 +132,10 @@ def test_control_variates_report_the_measured_reduction(sv_data):
     report = smle.check("sv", PARAMS, y, n_draws=64, n_seeds=N_SEEDS, tail_draws=200, draws_grid=None,
                         control_variates="both")
     # the uncorrected values are the plain estimator at the same seeds (seed runs of healthy_report)
-    plain = np.array([smle.loglik("sv", PARAMS, y, n_draws=64, seed=s, method="eis").value for s in range(N_SEEDS)])
+    plain = np.array([smle.loglik("sv", PARAMS, y, n_draws=64, seed=s, method="eis", **CHECK_RUN).value
+                      for s in range(N_SEEDS)])
     np.testing.assert_allclose(report.values_uncorrected, plain, rtol=0, atol=1e-9)
-    corrected = smle.loglik("sv", PARAMS, y, n_draws=64, seed=4, control_variates="both", method="eis")
+    corrected = smle.loglik("sv", PARAMS, y, n_draws=64, seed=4, control_variates="both", method="eis", **CHECK_RUN)
     assert report.values[4] == corrected.value
     factor = np.var(plain, ddof=1) / np.var(report.values, ddof=1)
     assert report.variance_reduction == pytest.approx(factor, rel=1e-9)
@@ -313,7 +319,7 @@ def garch_data():
 def _direct_errors(model, params, y, n_draws, n_seeds):
     """EIS at seeds 0..R-1 minus the exact value, computed without the check."""
     exact = smle.loglik(model, params, y, method="exact", exact_tol=health_exact.REFERENCE_TOL).value
-    runs = [smle.loglik(model, params, y, n_draws=n_draws, seed=s, method="eis", on_breakdown="return")
+    runs = [smle.loglik(model, params, y, n_draws=n_draws, seed=s, method="eis", on_breakdown="return", **CHECK_RUN)
             for s in range(n_seeds)]
     return np.array([r.value for r in runs]) - exact, np.array([r.nse for r in runs])
 

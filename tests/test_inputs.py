@@ -197,7 +197,7 @@ def test_sizes_beyond_the_machine_are_refused_before_allocating(returns, no_engi
         smle.simulate("sv", SV, 10**11)
     long = np.tile(returns, 25_000)  # T = 10**6 periods: 10**4 draws of it need about 745 GiB
     with pytest.raises(SmleInputError, match=r"T = 1000000 periods x \(10000 fitting \+ 10000 scoring draws\)"):
-        smle.loglik("sv", SV, long, n_draws=10**4)
+        smle.loglik("sv", SV, long, n_draws=10**4, n_score_draws=None)  # a scoring set of n_draws too
 
 
 def test_particles_and_study_designs_beyond_the_machine_are_refused(returns, no_engine):
@@ -218,7 +218,7 @@ def test_the_memory_estimate_against_a_fixed_cap(returns, monkeypatch, no_engine
     # 40 bytes x T = 40 x (n_draws fitting + n_draws scoring paths): 10**4 draws need 3.2e7 bytes
     with pytest.raises(SmleInputError, match=rf"needs about {needed} of memory and 1 MiB is available "
                                              r"\(a cap set by this test\)"):
-        smle.loglik("sv", SV, returns, n_draws=n_draws)
+        smle.loglik("sv", SV, returns, n_draws=n_draws, n_score_draws=None)
     with pytest.raises(AssertionError, match="reached the engine"):  # a small run goes on to the engine
         smle.loglik("sv", SV, returns, n_draws=4, method="eis")
 

@@ -50,7 +50,7 @@ def test_eis_equals_the_kalman_filter(k, transition):
     params = _params(model, seed=k)
     y, x = smle.simulate(model, params, T, seed=1)
     assert y.shape == (T, k) and x.shape == (T, k)
-    result = smle.loglik(model, params, y, n_draws=N_DRAWS, method="eis")
+    result = smle.loglik(model, params, y, n_draws=N_DRAWS, n_score_draws=None, method="eis")  # a scoring set of N_DRAWS
     assert result.converged
     assert abs(result.value - _kalman(model, params, y)) < 1e-8
     assert result.paths.shape == (T, N_DRAWS, k)

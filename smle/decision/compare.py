@@ -36,6 +36,7 @@ from typing import Mapping, NamedTuple, Sequence
 
 from scipy import stats
 
+from smle.engine.sampler import FIT_DRAWS
 from smle.errors import SmleInputError, describe
 from smle.fit import fit
 from smle.models import Model, get_model
@@ -247,7 +248,7 @@ def _lr_test(i, j, held, big_model, small_fit, big_fit, level) -> NestedTest:
     return NestedTest(i + 1, j + 1, text, statistic, df, p_value, critical, reference, sd, warning)
 
 
-def compare(models, y, n_draws: int = 64, seed: int = 0, level: float = 0.05, **fit_options) -> Comparison:
+def compare(models, y, n_draws: int = FIT_DRAWS, seed: int = 0, level: float = 0.05, **fit_options) -> Comparison:
     """Fit several models to the same observations and compare them.
 
     Args:

@@ -253,7 +253,9 @@ def check(
       params: parameter values by name (natural parameterisation).
       y: observations, shape (T,) (or (T, n_series)); a pandas Series or DataFrame with a
         DatetimeIndex gives the periods their dates.
-      n_draws: EIS draws per set of the runs being checked (as in :func:`smle.loglik`).
+      n_draws: EIS draws of both sets (fitting and scoring) of the runs being checked: the runs
+        are ``smle.loglik(n_draws=n_draws, n_score_draws=None, tol=tol, max_iter=max_iter)``,
+        whose defaults (32 fitting and 512 scoring draws, tol 1e-2) differ from the check's.
       n_seeds: R independent seeds for the spread (at least ``MIN_SEEDS``; 20 or more for
         a spread known to about +-16%).
       seed: base seed; the seed runs use ``seed .. seed + R - 1``, the tail run ``seed``.

@@ -125,14 +125,15 @@ def control_variate_correction(
     return value - jnp.dot(coefficients, errors), nse
 
 
-def controlled_output(model, settings: eis.EISSettings, control: ControlSpec, params: Mapping, y, key):
+def controlled_output(model, settings: eis.EISSettings, control: ControlSpec, params: Mapping, y, key, warm=None):
     """EIS evaluation with control variates: ``(out, extra)``, pure and differentiable.
 
     ``extra`` holds the corrected value and NSE, the coefficients, and with the independent
     control the error of EIS at the independent-factor parameters (same random numbers).
-    Without control variates the corrected value is ``out.value``.
+    Without control variates the corrected value is ``out.value``. ``warm`` starts the main
+    run's EIS iteration (:func:`smle.engine.kernel.eis_output`).
     """
-    out = eis_output(model, settings, params, y, key)
+    out = eis_output(model, settings, params, y, key, warm)
     controls, log_controls, errors, extra = [], [], [], {}
     if control.independent:
         independent = model.independent_params(params)

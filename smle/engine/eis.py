@@ -72,6 +72,7 @@ def eis_loglik(
     guess: jax.Array,
     key: jax.Array,
     settings: EISSettings,
+    warm: Auxiliary | None = None,
 ) -> EISOutput:
     """EIS estimate of the log-likelihood.
 
@@ -83,6 +84,8 @@ def eis_loglik(
       guess: a rough path for the posterior mode, shape (T,), starting the Newton steps.
       key: JAX PRNG key; the fitting and scoring draws are derived from it.
       settings: static estimator settings.
+      warm: optional auxiliary parameters to start the EIS iteration from (see
+        :func:`smle.engine.fixed_point.fit_auxiliary`).
 
     Returns:
       An :class:`EISOutput`.
@@ -92,7 +95,7 @@ def eis_loglik(
     """
     n_periods = guess.shape[0]
     fit_normals, score_normals = standard_normals(key, n_periods, settings)
-    auxiliary, info = fit_auxiliary(state, log_obs_fn, obs_args, fit_normals, guess, settings)
+    auxiliary, info = fit_auxiliary(state, log_obs_fn, obs_args, fit_normals, guess, settings, warm)
     sampler = assemble(state, auxiliary)
     paths = draw_paths(sampler, score_normals)
     log_obs = log_obs_fn(obs_args, paths)

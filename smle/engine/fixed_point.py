@@ -142,14 +142,24 @@ def _eis_map_of_inputs(log_obs_fn, inputs, normals, auxiliary: Auxiliary):
 
 
 def fit_auxiliary(
-    state: LatentAR1, log_obs_fn, obs_args, normals: jax.Array, guess: jax.Array, settings: EISSettings
+    state: LatentAR1, log_obs_fn, obs_args, normals: jax.Array, guess: jax.Array, settings: EISSettings,
+    warm: Auxiliary | None = None,
 ) -> tuple[Auxiliary, EISInfo]:
     """The EIS auxiliary parameters (differentiable by implicit differentiation) and diagnostics.
 
-    ``log_obs_fn(obs_args, paths)`` gives log g_t at paths of shape (T, S).
+    ``log_obs_fn(obs_args, paths)`` gives log g_t at paths of shape (T, S). ``warm``: auxiliary
+    parameters to start the iteration from instead of the Newton start (a fit passes those of its
+    previous evaluation); a ``warm`` with any non-finite entry (a fit's first evaluation passes
+    NaN) falls back to the Newton start. The fixed point and its implicit gradient do not depend on the
+    start; the value does only through the tolerance (see :func:`smle.fit.objective`).
     """
     bound = functools.partial(log_obs_fn, obs_args)
-    start = jax.lax.stop_gradient(newton_start(state, bound, guess, settings.n_newton))
+    if warm is None:
+        start = newton_start(state, bound, guess, settings.n_newton)
+    else:
+        usable = jnp.all(jnp.isfinite(warm.b_obs)) & jnp.all(jnp.isfinite(warm.c_obs))
+        start = jax.lax.cond(usable, lambda: Auxiliary(*warm), lambda: newton_start(state, bound, guess, settings.n_newton))
+    start = jax.lax.stop_gradient(start)
     auxiliary, ((r_squared, failed), iterations, change, step) = implicit_fixed_point(
         functools.partial(_eis_map_of_inputs, log_obs_fn), settings, (state, obs_args), normals, start
     )

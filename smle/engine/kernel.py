@@ -13,11 +13,13 @@ from typing import Mapping
 from smle.engine import eis, eis_multi
 
 
-def eis_output(model, settings: eis.EISSettings, params: Mapping, y, key) -> eis.EISOutput:
-    """Pure, differentiable EIS evaluation of ``model`` at ``params`` (a mapping of JAX scalars)."""
+def eis_output(model, settings: eis.EISSettings, params: Mapping, y, key, warm=None) -> eis.EISOutput:
+    """Pure, differentiable EIS evaluation of ``model`` at ``params`` (a mapping of JAX scalars);
+    ``warm``: auxiliary parameters to start the EIS iteration from (None: the Newton start)."""
     data = model.prepare(params, y)
     return eis.eis_loglik(
-        model.latent(params), _log_obs_function(model), (params, data), model.mode_guess(params, data), key, settings
+        model.latent(params), _log_obs_function(model), (params, data), model.mode_guess(params, data), key, settings,
+        warm,
     )
 
 

@@ -74,8 +74,9 @@ def eis_entry(model, settings: eis.EISSettings, control: ControlSpec = ControlSp
     return compiled_eis(model, settings, control)
 
 
-def eis_evaluation(model, settings: eis.EISSettings, control: ControlSpec, params, y, key):
-    """``(out, extra)``, uncompiled and differentiable, for the model's state dimension (what fit traces)."""
+def eis_evaluation(model, settings: eis.EISSettings, control: ControlSpec, params, y, key, warm=None):
+    """``(out, extra)``, uncompiled and differentiable, for the model's state dimension (what fit
+    traces); ``warm`` (a one-dimensional state only) starts the EIS iteration."""
     if model.state_dim > 1:
         return multi_output(model, settings, params, y, key)
-    return controlled_output(model, settings, control, params, y, key)
+    return controlled_output(model, settings, control, params, y, key, warm)

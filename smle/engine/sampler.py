@@ -16,6 +16,46 @@ from smle.engine import gaussian
 from smle.engine.latent import LatentAR1
 
 
+# ---------------------------------------------------------------------------------------------
+# Default settings: the one place they are written. smle.loglik reads DRAWS, SCORE_DRAWS, TOL and
+# MAX_ITER; smle.fit, compare and studies the FIT_ ones; the command line writes its --draws
+# defaults out and tests/test_cli.py holds them to these. (smle.check keeps its own: both sets of
+# n_draws paths, tol 1e-6, so that its NSE-scaling grid varies one number of draws.)
+# Measured against the exact grid value in experiments/results/eis_accuracy.md: a small fitting
+# set, a few iterations and a large scoring set have an RMSE 2.5x lower at T = 2000 than 64
+# draws for both sets iterated to 1e-6, at 1.1-1.35x the CPU time (2x for sv at T = 8000). Importance sampling is unbiased for any sampler and the scoring draws
+# are independent of the fitting draws, so a sampler short of the fixed point costs variance
+# only, and 3, 5 and 12 iterations gave the same spread.
+
+DRAWS = 32
+"""Default paths of the fitting set."""
+
+SCORE_DRAWS = 512
+"""Default paths of the scoring set (one pass: cheap next to the fitting iterations)."""
+
+TOL = 1e-2
+"""Default tolerance of a likelihood evaluation: EIS iterates until the largest relative change
+of the auxiliary parameters is at most this (3-5 iterations for sv and garch-mix at T = 2000),
+and ``converged`` says whether it got there within ``MAX_ITER``."""
+
+MAX_ITER = 50
+"""Default cap on EIS iterations (reached only where EIS does not settle: then ``converged`` is False)."""
+
+FIT_DRAWS = 64
+"""Default paths of each draw set (fitting and scoring) inside a fit. Every evaluation of a fit
+carries a gradient, whose reverse pass runs through the scoring set: with 32 fitting and 512
+scoring draws an sv fit (T = 2000) took 2.5-3x the time of 64 and 64 (experiments/results/bench_fit.md);
+how the estimates' simulation error compares was not measured, so fits keep 64."""
+
+FIT_TOL = 1e-8
+"""Default tolerance of the EIS fixed point inside a fit. The fit's gradient is the implicit
+gradient at the fixed point, which is the gradient of the evaluated function only when the fixed
+point is reached: with ``TOL`` the two differ (measured in experiments/results/eis_accuracy.md)."""
+
+FIT_MAX_ITER = 100
+"""Default cap on EIS iterations at each evaluation of a fit."""
+
+
 class EISSettings(NamedTuple):
     """Static settings of the EIS estimator.
 
@@ -33,10 +73,10 @@ class EISSettings(NamedTuple):
         weight-tail tests need one.
     """
 
-    n_draws: int = 64
+    n_draws: int = DRAWS
     antithetic: bool = True
-    tol: float = 1e-6
-    max_iter: int = 50
+    tol: float = TOL
+    max_iter: int = MAX_ITER
     n_newton: int = 200
     max_tangent_iter: int = 200
     tangent_tol: float = 1e-5

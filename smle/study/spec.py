@@ -105,6 +105,7 @@ from typing import Mapping
 
 import numpy as np
 
+from smle.engine.sampler import FIT_DRAWS, FIT_MAX_ITER, FIT_TOL
 from smle.errors import SmleInputError
 from smle.study.checks import check_design, check_study
 
@@ -128,15 +129,15 @@ class Estimator:
       method: the likelihood method of :func:`smle.fit`: "eis" (default), "exact" or "auto".
     """
 
-    n_draws: int = 64
+    n_draws: int = FIT_DRAWS
     antithetic: bool = True
     n_seeds: int = 1
     seed_offset: int = 0
     start: str = "data"
     max_steps: int = 200
     gtol: float = 1e-6
-    tol: float = 1e-8
-    max_iter: int = 100
+    tol: float = FIT_TOL
+    max_iter: int = FIT_MAX_ITER
     level: float = 0.95
     method: str = "eis"
 
