@@ -3,7 +3,8 @@ and functions of a readable size.
 
 The layers, lowest first (a module may import from its own layer or any lower one):
 
-  0  foundation    smle._config, smle.errors, smle.params, smle.distributions, smle.report_text
+  0  foundation    smle._config, smle.errors, smle.params, smle.distributions, smle.pareto_tail,
+                   smle.report_text
   1  engine        smle.engine.*  (knows no particular model; may take a model instance)
   2  models        smle.models.*
   3  likelihood    smle.validation, smle.likelihood
@@ -30,7 +31,8 @@ import pytest
 PACKAGE = Path(__file__).resolve().parents[1] / "smle"
 
 LAYERS = [
-    ("foundation", ["smle._config", "smle.errors", "smle.params", "smle.distributions", "smle.report_text"]),
+    ("foundation", ["smle._config", "smle.errors", "smle.params", "smle.distributions", "smle.pareto_tail",
+                    "smle.report_text"]),
     ("engine", ["smle.engine"]),
     ("models", ["smle.models"]),
     ("likelihood", ["smle.validation", "smle.exact_likelihood", "smle.likelihood"]),

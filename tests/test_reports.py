@@ -19,7 +19,7 @@ from smle import report_text
 from smle.diagnostics import gof, health, weight_tail
 from smle.diagnostics.filtering import FilterResult
 from smle.diagnostics.health_report import scaling_statement
-from smle.diagnostics.pareto import GeneralizedParetoFit
+from smle.pareto_tail import GeneralizedParetoFit
 from smle.restricted import with_hessian as _with_hessian
 from smle.models import get_model
 from smle.results import CAUTION, FitResult

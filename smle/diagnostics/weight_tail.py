@@ -6,7 +6,7 @@ fitted by a generalised Pareto distribution (GPD) with shape ``xi`` and scale ``
 finite variance means ``xi < 1/2``.
 
 * :func:`fit_generalized_pareto` -- maximum-likelihood GPD fit to exceedances (own code, in
-  :mod:`smle.diagnostics.pareto`).
+  :mod:`smle.pareto_tail`).
 * :func:`tail_test` -- the Wald and likelihood-ratio tests of Koopman, Shephard and Creal
   (2009) of H0: ``xi <= 1/2`` at several thresholds.
 * :func:`pareto_k_hat` -- the Pareto-smoothed importance sampling k-hat of Vehtari et al.
@@ -32,9 +32,9 @@ from typing import NamedTuple, Sequence
 import numpy as np
 from scipy import stats
 
-from smle.diagnostics.pareto import (  # noqa: F401 (the GPD fit is part of this module's interface)
-    MIN_EXCEEDANCES, GeneralizedParetoFit, _fit_restricted, _observed_information, _vector, fit_generalized_pareto,
-    gpd_loglik,
+from smle.pareto_tail import (  # noqa: F401 (the GPD fit and k-hat are part of this module's interface)
+    K_HAT_LIMIT, MIN_EXCEEDANCES, GeneralizedParetoFit, ParetoKHat, _check_log_weights, _exceedances, _fit_restricted,
+    _observed_information, _vector, fit_generalized_pareto, gpd_loglik, pareto_k_hat,
 )
 from smle.errors import SmleInputError, describe
 
@@ -43,10 +43,6 @@ DEFAULT_THRESHOLDS = (0.01, 0.05, 0.10, 0.20)
 
 FINITE_VARIANCE_XI = 0.5
 """GPD shape at the edge of a finite variance of the weights."""
-
-K_HAT_LIMIT = 0.7
-"""k-hat at and above which an importance-sampling estimate is unusable (Vehtari et al. 2024)."""
-
 
 class ThresholdTest(NamedTuple):
     """The Koopman-Shephard-Creal tests of H0: xi <= 1/2 at one threshold.
@@ -74,24 +70,6 @@ class ThresholdTest(NamedTuple):
     beta_restricted: float
 
 
-class ParetoKHat(NamedTuple):
-    """The PSIS diagnostic of the weights.
-
-    Attributes:
-      k_hat: GPD shape fitted to the M largest weights.
-      good_below: min(1 - 1 / log10(S), 0.7); k_hat below it is reliable for S draws.
-      n_tail: M = ceil(min(S / 5, 3 sqrt(S))).
-      n_weights: S.
-      fit: the GPD fit behind ``k_hat``.
-    """
-
-    k_hat: float
-    good_below: float
-    n_tail: int
-    n_weights: int
-    fit: GeneralizedParetoFit
-
-
 class TailVerdict(NamedTuple):
     """The overall judgement of the weights' tail.
 
@@ -112,26 +90,6 @@ class TailVerdict(NamedTuple):
 
 # ---------------------------------------------------------------------------------------
 # Weights
-
-
-def _check_log_weights(log_weights, argument: str = "log_weights") -> np.ndarray:
-    lw = _vector(log_weights, argument, "log importance weights (e.g. LoglikResult.log_weights)")
-    if not np.all(np.isfinite(lw)):
-        where = int(np.flatnonzero(~np.isfinite(lw))[0])
-        raise SmleInputError(
-            f"{argument}[{where}] = {float(lw[where])!r} is not finite; log weights must all be "
-            "finite (a weight of 0 or infinity points to a failed EIS run)")
-    if lw.size and np.ptp(lw) == 0.0:
-        raise SmleInputError(
-            f"{argument} are all equal ({float(lw[0])!r}); degenerate weights have no tail "
-            "to fit (the importance density is exact, so no diagnostic is needed)")
-    return lw
-
-
-def _exceedances(relative_weights_sorted: np.ndarray, n_tail: int) -> tuple[np.ndarray, float]:
-    """The n_tail largest weights minus the next largest (the threshold)."""
-    threshold = float(relative_weights_sorted[-n_tail - 1])
-    return relative_weights_sorted[-n_tail:] - threshold, threshold
 
 
 def _check_thresholds(thresholds, n_weights: int) -> list[tuple[float, int]]:
@@ -196,40 +154,6 @@ def tail_test(log_weights, thresholds: Sequence[float] = DEFAULT_THRESHOLDS) -> 
         tests.append(ThresholdTest(fraction, threshold, fit, float(wald), wald_p, float(lr),
                                    lr_p, beta_0))
     return tuple(tests)
-
-
-def pareto_k_hat(log_weights) -> ParetoKHat:
-    """The Pareto-smoothed importance sampling diagnostic k-hat.
-
-    The M = ceil(min(S / 5, 3 sqrt(S))) largest weights minus the (M+1)-th largest are
-    fitted by a GPD; k-hat is its shape. Vehtari et al. (2024) estimate it with the
-    Zhang-Stephens posterior-mean estimator and a weak prior; here it is the plain
-    maximum-likelihood fit of :func:`fit_generalized_pareto`, which is somewhat more
-    variable in small tails. Their rule: k-hat below min(1 - 1 / log10(S), 0.7) is good,
-    above 0.7 the estimate is unreliable whatever S.
-
-    Args:
-      log_weights: 1-d array of S log importance weights, finite, not all equal; S must
-        give M >= ``MIN_EXCEEDANCES`` (S >= 100).
-
-    Returns:
-      A :class:`ParetoKHat`.
-
-    References:
-      Vehtari, Simpson, Gelman, Yao and Gabry (2024), JMLR 25(72), 1-58.
-    """
-    lw = _check_log_weights(log_weights)
-    n_weights = lw.size
-    n_tail = int(math.ceil(min(0.2 * n_weights, 3.0 * math.sqrt(n_weights))))
-    if n_tail < MIN_EXCEEDANCES:
-        raise SmleInputError(
-            f"log_weights has {n_weights} weights, leaving a tail of {n_tail}; k-hat needs "
-            f"a tail of at least {MIN_EXCEEDANCES}, that is at least 100 weights")
-    relative = np.sort(np.exp(lw - np.max(lw)))
-    y, _ = _exceedances(relative, n_tail)
-    fit = fit_generalized_pareto(y)
-    good_below = min(1.0 - 1.0 / math.log10(n_weights), 0.7)
-    return ParetoKHat(fit.xi, good_below, n_tail, n_weights, fit)
 
 
 def k_hat_limits(k: ParetoKHat) -> str:
