@@ -64,16 +64,17 @@ class LoglikResult:
         filter or the checked grid filter, see ``exact_engine``); or "closed form" for a model
         without a latent state. For "exact" and "closed form" ``nse`` is 0, no draws were made
         and the draw fields are empty.
-      nse_method: how ``nse`` was computed; it ends with "(a lower bound: ...)" when
-        ``nse_lower_bound``.
+      nse_method: how ``nse`` was computed; it ends with "(not trusted: ...)" when not
+        ``nse_trusted``.
       k_hat: the Pareto k-hat of the scoring weights (:func:`smle.pareto_tail.pareto_k_hat`,
         Vehtari et al. 2024), None with fewer than 100 scoring weights or when every weight is
         equal (an exact sampler).
       nse_trusted: False when ``k_hat`` is at or above :data:`K_HAT_UNTRUSTED` (1): the tail fit
-        then finds no finite mean of the weights, and :func:`loglik` warns. Measured against the
-        exact value, designs whose runs had such k-hat had errors 1.2-2.1 times their NSE (rms),
-        against about 1 where k-hat stayed below 1 (experiments/results/nse_tail.md). A single
-        run's k-hat is noisy (ML fit to 68 of 512 weights): it says what the design is like.
+        then finds no finite mean of the weights, and :func:`loglik` warns. A single run's k-hat
+        is noisy (an ML fit to 68 of 512 weights) and says what the design is like: measured
+        against the exact value, the designs where the flag fired on most runs had errors 1.7-2.1
+        times their NSE (rms), the design where it never fired 1.05
+        (experiments/results/nse_tail.md).
     """
 
     value: float
@@ -304,9 +305,8 @@ K_HAT_MIN_WEIGHTS = 100
 K_HAT_UNTRUSTED = 1.0
 """k-hat at and above which a result says its NSE is not trusted. Vehtari et al. (2024) call
 k-hat above 0.7 unreliable for their regularised estimator; the plain ML fit used here is noisier,
-and measured per run at 0.7 it flagged half the runs of a design whose NSE was honest (garch-mix,
-T = 2000: sd / NSE 1.16), so the flag is set where the fitted tail has no finite mean
-(experiments/results/nse_tail.md)."""
+and at 0.7 it flagged half the runs of garch-mix at T = 2000, whose flagged runs had honest NSEs,
+so the flag is set where the fitted tail has no finite mean (experiments/results/nse_tail.md)."""
 
 
 def untrusted_nse_warning(model, nse: float, k_hat: float) -> str:
@@ -315,7 +315,7 @@ def untrusted_nse_warning(model, nse: float, k_hat: float) -> str:
               "more scoring draws (n_score_draws) lower the error, and smle.check measures its real spread over seeds")
     return (f"the EIS scoring weights of model '{model.name}' have a Pareto k-hat of {k_hat:.2f}, at or above "
             f"{K_HAT_UNTRUSTED:g}: their fitted tail has no finite mean, so the NSE {nse:.3g} likely understates the "
-            f"error (measured 1.2-2.1 times short where runs had such k-hat, experiments/results/nse_tail.md) and "
+            f"error (designs whose runs had such k-hat: errors 1.7-2.1 times the NSE, experiments/results/nse_tail.md) and "
             f"the value is biased low by about NSE^2 / 2 or more; {remedy}")
 
 
