@@ -257,11 +257,9 @@ def check(
       params: parameter values by name (natural parameterisation).
       y: observations, shape (T,) (or (T, n_series)); a pandas Series or DataFrame with a
         DatetimeIndex gives the periods their dates.
-      n_draws: EIS draws of both sets (fitting and scoring) of the runs being checked: the runs
-        are ``smle.loglik(n_draws=n_draws, n_score_draws=None, tol=tol, max_iter=max_iter)``,
-        whose defaults (32 fitting and 512 scoring draws, tol 1e-2) differ from the check's.
-      n_seeds: R independent seeds for the spread (at least ``MIN_SEEDS``; 20 or more for
-        a spread known to about +-16%).
+      n_draws: draws of both EIS sets of the runs checked: ``smle.loglik(n_draws=n_draws,
+        n_score_draws=None, tol=tol, max_iter=max_iter)`` (not loglik's defaults: 32/512, 1e-2).
+      n_seeds: R independent seeds for the spread (at least ``MIN_SEEDS``; 20 or more: +-16%).
       seed: base seed; the seed runs use ``seed .. seed + R - 1``, the tail run ``seed``.
       tail_draws: scoring draws of the tail run (at least ``MIN_TAIL_DRAWS`` for k-hat;
         ``FULL_TAIL_DRAWS`` for the tests at every threshold down to the largest 1%).
