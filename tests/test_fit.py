@@ -113,7 +113,7 @@ def recovery():
         fits = []
         for replication in range(n):
             y, _ = smle.simulate("sv", JPR_DESIGNS[design], 2000, seed=1000 + replication)
-            fits.append(smle.fit("sv", y, n_draws=64, seed=replication, method="eis"))
+            fits.append(smle.fit("sv", y, n_draws=64, seed=replication, method="eis", exact_reference=False))
         out[design] = fits
     return out
 

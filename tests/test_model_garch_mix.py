@@ -166,7 +166,7 @@ def test_fit_recovers_parameters_with_calibrated_intervals():
     misses = total = 0
     for rep in range(2):
         y, _ = smle.simulate(model, truth, 2000, seed=400 + rep)
-        fit = smle.fit(model, y, n_draws=N_DRAWS, seed=rep, method="eis")
+        fit = smle.fit(model, y, n_draws=N_DRAWS, seed=rep, method="eis", exact_reference=False)
         assert fit.converged, fit.message
         for name, value in truth.items():
             misses += abs(fit.params[name] - value) > 1.96 * fit.std_errors[name]
