@@ -23,7 +23,7 @@ from smle.engine.sampler import DRAWS, MAX_ITER, SCORE_DRAWS, TOL
 from smle.errors import EISBreakdownError, SmleInputError
 from smle.exact_likelihood import EXACT_TOL, check_exact_tol, exact_run, resolve_method, warn_unused_settings
 from smle.models import get_model
-from smle.pareto_tail import pareto_k_hat
+from smle.pareto_tail import MIN_EXCEEDANCES, k_hat_tail_size, pareto_k_hat
 from smle.validation import (
     as_key, check_control, check_periods, check_settings, check_state_settings, checked_inputs, checked_params,
     jax_params,
@@ -290,16 +290,12 @@ DRAW_REPAIR_FACTOR = 4
 
 
 def scoring_k_hat(log_weights: np.ndarray) -> float | None:
-    """The Pareto k-hat of a run's scoring weights, or None: fewer than 100 weights (the tail fit
-    needs 20 exceedances), or weights that are all equal to rounding (an exact sampler, e.g. a
-    linear Gaussian model, where there is no tail)."""
-    if log_weights.size < K_HAT_MIN_WEIGHTS or not np.ptp(log_weights) > 1e-8:
+    """The Pareto k-hat of a run's scoring weights, or None: too few weights for the tail fit
+    (fewer than 100: :func:`~smle.pareto_tail.pareto_k_hat` needs 20 exceedances), or weights that
+    are all equal to rounding (an exact sampler, e.g. a linear Gaussian model, where there is no tail)."""
+    if k_hat_tail_size(log_weights.size) < MIN_EXCEEDANCES or not np.ptp(log_weights) > 1e-8:
         return None
     return float(pareto_k_hat(log_weights).k_hat)
-
-
-K_HAT_MIN_WEIGHTS = 100
-"""Fewest scoring weights for which a result reports its k-hat (:func:`smle.pareto_tail.pareto_k_hat`)."""
 
 
 K_HAT_UNTRUSTED = 1.0

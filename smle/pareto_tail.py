@@ -246,6 +246,11 @@ def _exceedances(relative_weights_sorted: np.ndarray, n_tail: int) -> tuple[np.n
     return relative_weights_sorted[-n_tail:] - threshold, threshold
 
 
+def k_hat_tail_size(n_weights: int) -> int:
+    """M = ceil(min(S / 5, 3 sqrt(S))): the tail k-hat is fitted to; k-hat needs M >= ``MIN_EXCEEDANCES``."""
+    return int(math.ceil(min(0.2 * n_weights, 3.0 * math.sqrt(n_weights))))
+
+
 def pareto_k_hat(log_weights) -> ParetoKHat:
     """The Pareto-smoothed importance sampling diagnostic k-hat.
 
@@ -268,7 +273,7 @@ def pareto_k_hat(log_weights) -> ParetoKHat:
     """
     lw = _check_log_weights(log_weights)
     n_weights = lw.size
-    n_tail = int(math.ceil(min(0.2 * n_weights, 3.0 * math.sqrt(n_weights))))
+    n_tail = k_hat_tail_size(n_weights)
     if n_tail < MIN_EXCEEDANCES:
         raise SmleInputError(
             f"log_weights has {n_weights} weights, leaving a tail of {n_tail}; k-hat needs "
