@@ -92,13 +92,14 @@ def test_grid_filter_refuses_a_random_walk_state():
         smle.reference.grid_loglik("local-level", dict(sigma_eta=1.0, sigma_eps=1.0), y)
 
 
-@settings(max_examples=25, deadline=None, derandomize=True)  # the same examples on every run: CI must not be flaky
-@given(
-    phi=st.floats(-0.999, 0.999),
-    sigma_eta=st.floats(0.01, 3.0),
-    mu=st.floats(-12.0, 5.0),
-    zeros=st.integers(0, 40),
-)
+# admissible sv points with some exact zero returns; the same examples on every run: CI must not be flaky
+admissible_sv_points = given(phi=st.floats(-0.999, 0.999), sigma_eta=st.floats(0.01, 3.0), mu=st.floats(-12.0, 5.0),
+                             zeros=st.integers(0, 40))
+same_examples = settings(max_examples=25, deadline=None, derandomize=True)
+
+
+@same_examples
+@admissible_sv_points
 def test_admissible_parameters_never_give_a_nan(returns, phi, sigma_eta, mu, zeros):
     # any admissible point, with some exact zero returns, yields a finite estimate and NSE
     y = returns.copy()
@@ -107,13 +108,8 @@ def test_admissible_parameters_never_give_a_nan(returns, phi, sigma_eta, mu, zer
     assert np.isfinite(result.value) and np.isfinite(result.nse)
 
 
-@settings(max_examples=25, deadline=None, derandomize=True)  # the same examples on every run: CI must not be flaky
-@given(
-    phi=st.floats(-0.999, 0.999),
-    sigma_eta=st.floats(0.01, 3.0),
-    mu=st.floats(-12.0, 5.0),
-    zeros=st.integers(0, 40),
-)
+@same_examples
+@admissible_sv_points
 def test_admissible_parameters_give_an_exact_value_or_say_the_accuracy_reached(returns, phi, sigma_eta, mu, zeros):
     # the exact method at any admissible point: a finite value with an error bound within its
     # tolerance, or a clear refusal that gives the accuracy the largest grid reached
