@@ -21,7 +21,7 @@ import tempfile
 from pathlib import Path
 
 
-from smle.cli.shared import (add_column_options, add_fix_option, add_option_flag, check_report_folder,
+from smle.cli.shared import (FIT_DRAWS, add_column_options, add_fix_option, add_option_flag, check_report_folder,
                              describe_options, model_from_args, parse_fixed, parse_model_spec, read_observations,
                              read_saved_fit, say)
 from smle.errors import SmleInputError
@@ -209,7 +209,7 @@ def _estimation_options(p, default_model="sv"):
     p.add_argument("--method", choices=["auto", "exact", "eis"], default="auto",
                    help="likelihood: exact (grid or Kalman filter, one-dimensional states), eis (simulated), or "
                         "auto (default: exact where the state is one-dimensional, eis otherwise)")
-    p.add_argument("--draws", type=int, default=64, help="EIS draws per set (default 64)")
+    p.add_argument("--draws", type=int, default=FIT_DRAWS, help=f"EIS draws per set (default {FIT_DRAWS})")
     p.add_argument("--seed", type=int, default=0, help="seed of the common random numbers (default 0)")
     p.add_argument("--seeds", type=int, default=1, help="independent refits for simulation standard errors (default 1)")
     p.add_argument("--quiet", action="store_true", help="no progress output")

@@ -60,7 +60,7 @@ def add_backtest_command(commands) -> None:
     """Register ``smle backtest`` on the ``smle`` sub-command parser."""
     import argparse
 
-    from smle.cli.shared import add_column_options, add_fix_option
+    from smle.cli.shared import FIT_DRAWS, add_column_options, add_fix_option
 
     parser = commands.add_parser(
         "backtest", help="rolling one-step forecasts with re-estimation: VaR coverage tests, log scores",
@@ -80,7 +80,8 @@ def add_backtest_command(commands) -> None:
                         help="tail probability of the VaR and ES (repeatable; default 0.01 and 0.05)")
     parser.add_argument("--paths", type=int, default=10000, help="simulated paths per forecast (default 10000)")
     parser.add_argument("--seed", type=int, default=0, help="seed of the fits' draws and the paths (default 0)")
-    parser.add_argument("--draws", type=int, default=64, help="EIS draws when a fit is simulated (default 64)")
+    parser.add_argument("--draws", type=int, default=FIT_DRAWS,
+                        help=f"EIS draws when a fit is simulated (default {FIT_DRAWS})")
     parser.add_argument("--report", help="folder for backtest.txt, backtest.json, backtest.csv and backtest.png")
     parser.add_argument("--store", metavar="FILE", help="SQLite file keeping each finished block, so that a "
                                                          "stopped backtest resumes (the same command again)")

@@ -44,7 +44,7 @@ def add_compare_command(commands) -> None:
     """Register ``smle compare`` on the ``smle`` sub-command parser."""
     import argparse
 
-    from smle.cli.shared import add_column_options, add_fix_option
+    from smle.cli.shared import FIT_DRAWS, add_column_options, add_fix_option
 
     parser = commands.add_parser(
         "compare", help="fit several models to the same data: log-likelihoods, AIC/BIC, tests of nested pairs",
@@ -59,7 +59,8 @@ def add_compare_command(commands) -> None:
     parser.add_argument("--method", choices=["auto", "exact", "eis"], default="auto",
                         help="likelihood of the latent-state models: auto (default: exact for one-dimensional states), "
                              "exact or eis")
-    parser.add_argument("--draws", type=int, default=64, help="EIS draws per set for simulated likelihoods (default 64)")
+    parser.add_argument("--draws", type=int, default=FIT_DRAWS,
+                        help=f"EIS draws per set for simulated likelihoods (default {FIT_DRAWS})")
     parser.add_argument("--seed", type=int, default=0, help="seed of the common random numbers (default 0)")
     parser.add_argument("--report", help="folder for compare.txt, compare.json and compare.png")
     parser.set_defaults(handler=_command_compare)

@@ -71,7 +71,7 @@ def add_forecast_command(commands) -> None:
     """Register ``smle forecast`` on the ``smle`` sub-command parser."""
     import argparse
 
-    from smle.cli.shared import add_column_options, add_fix_option, add_option_flag
+    from smle.cli.shared import FIT_DRAWS, add_column_options, add_fix_option, add_option_flag
 
     parser = commands.add_parser(
         "forecast", help="predictive distributions of returns and variance after the data (fan chart, VaR, ES)",
@@ -93,7 +93,8 @@ def add_forecast_command(commands) -> None:
     parser.add_argument("--parameter-draws", type=int, default=0, metavar="N",
                         help="pool the paths over N parameter vectors drawn from the estimates' asymptotic normal "
                              "law, so that the bands include the parameter error (default 0: estimates as known)")
-    parser.add_argument("--draws", type=int, default=64, help="EIS draws when the fit is simulated (default 64)")
+    parser.add_argument("--draws", type=int, default=FIT_DRAWS,
+                        help=f"EIS draws when the fit is simulated (default {FIT_DRAWS})")
     parser.add_argument("--report", help="folder for forecast.txt, forecast.json, forecast.csv and forecast.png")
     parser.add_argument("--quiet", action="store_true", help="no progress output while fitting")
     parser.set_defaults(handler=_command_forecast)

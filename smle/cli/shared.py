@@ -15,6 +15,12 @@ __all__ = ["Observations", "add_column_options", "add_fix_option", "add_option_f
            "read_saved_fit", "say", "write_result_files"]
 
 
+FIT_DRAWS = 64
+"""Default --draws of the commands that fit (fit, demo, compare, forecast, backtest): smle.fit's
+n_draws (smle.engine.sampler.FIT_DRAWS), written out so that parsing does not import the engine;
+tests/test_cli.py holds the two equal."""
+
+
 def read_saved_fit(path: str, argument: str):
     """A :class:`~smle.FitResult` from its JSON file, or an error naming ``argument`` and the file."""
     from pathlib import Path
