@@ -29,6 +29,7 @@ import numpy as np
 from jax.scipy.special import logsumexp
 
 import smle
+from eis_accuracy import DESIGNS as ACCURACY_DESIGNS  # experiments/eis_accuracy.py
 from smle.pareto_tail import pareto_k_hat
 from smle.engine import eis
 from smle.engine.kernel import _log_obs_function
@@ -37,8 +38,7 @@ from smle.models import get_model
 from smle.validation import jax_params
 
 RESULTS = Path(__file__).parent / "results"
-GARCH = dict(mu=0.03, ar1=0.05, omega=0.05, alpha=0.06, beta=0.90, gamma=-0.4, rho=0.5, **{"lambda": 1.5})
-DESIGNS = {"sv": dict(mu=-7.36, phi=0.95, sigma_eta=0.26), "garch-mix": GARCH}  # as experiments/eis_accuracy.py
+DESIGNS = {name: params for name, (_, params) in ACCURACY_DESIGNS.items()}  # eis_accuracy's designs
 SETTINGS = {"S64": eis.EISSettings(n_draws=64), "S32 score 512": eis.EISSettings(n_draws=32, n_score_draws=512)}
 
 

@@ -20,10 +20,10 @@ from pathlib import Path
 import numpy as np
 
 import smle
+from eis_accuracy import DESIGNS as ACCURACY_DESIGNS  # experiments/eis_accuracy.py
 
 RESULTS = Path(__file__).parent / "results"
-GARCH = dict(mu=0.03, ar1=0.05, omega=0.05, alpha=0.06, beta=0.90, gamma=-0.4, rho=0.5, **{"lambda": 1.5})
-DESIGNS = {"sv": dict(mu=-7.36, phi=0.95, sigma_eta=0.26), "garch-mix": GARCH}
+DESIGNS = {name: params for name, (_, params) in ACCURACY_DESIGNS.items()}  # eis_accuracy's designs
 BINS = ((0.0, 0.7), (0.7, 1.0), (1.0, np.inf))
 
 
