@@ -79,6 +79,10 @@ def remember_compile_seconds(what: str, seconds: float) -> None:
         path = _timings_path()
         known = json.loads(path.read_text()) if path.exists() else {}
         known[what] = round(float(seconds), 1)
-        path.write_text(json.dumps(known, indent=1))
+        # written whole, then renamed: processes compiling side by side (parallel test workers,
+        # study workers) never read a half-written file
+        partial = path.with_name(f"{path.name}.{os.getpid()}.tmp")
+        partial.write_text(json.dumps(known, indent=1))
+        os.replace(partial, path)
     except (OSError, ValueError, TypeError):
         pass  # a read-only or damaged cache folder: the next announcement says 10-20 s

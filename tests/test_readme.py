@@ -72,7 +72,7 @@ def ci_setup_commands() -> list[str]:
 
 def test_readme_setup_commands_are_the_ones_ci_runs():
     readme = readme_setup_commands()
-    assert readme == ['pip install . && smle demo', 'pip install ".[test]" && pytest -q']  # the two README promises
+    assert readme == ['pip install . && smle demo', 'pip install ".[test]" && pytest -q -n 2']  # the two README promises
     ci = ci_setup_commands()
     for number, (documented, run) in enumerate(zip(readme, ci), start=1):
         assert [without_ci_options(c) for c in commands(run)] == commands(documented), \
@@ -81,9 +81,9 @@ def test_readme_setup_commands_are_the_ones_ci_runs():
 
 def test_drift_between_readme_and_ci_is_caught():
     # The comparison itself: an editable install or a dropped test command is a difference.
-    documented = 'pip install ".[test]" && pytest -q'
-    assert [without_ci_options(c) for c in commands('pip install --quiet ".[test]" && pytest -q')] == commands(documented)
-    assert [without_ci_options(c) for c in commands('pip install --quiet -e ".[test]" && pytest -q')] != commands(documented)
+    documented = 'pip install ".[test]" && pytest -q -n 2'
+    assert [without_ci_options(c) for c in commands('pip install --quiet ".[test]" && pytest -q -n 2')] == commands(documented)
+    assert [without_ci_options(c) for c in commands('pip install --quiet -e ".[test]" && pytest -q -n 2')] != commands(documented)
     assert [without_ci_options(c) for c in commands('pip install --quiet ".[test]"')] != commands(documented)
 
 
