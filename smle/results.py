@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 
 from smle import report_text as layout
+from smle.models import model_title
 from smle.errors import SmleInputError, load_saved
 
 CAUTION = (
@@ -146,7 +147,7 @@ class FitResult:
     def summary(self) -> str:
         """A plain-text summary in smle's report layout (:mod:`smle.report_text`)."""
         return layout.render(
-            layout.title("fit", f"model {self.model}", f"{self.n_obs} periods",
+            layout.title("fit", f"model {model_title(self.model, self.model_options)}", f"{self.n_obs} periods",
                        f"converged: {'yes' if self.converged else 'no'}"),
             [_data_lines(self), self._estimate_block(), self._likelihood_block(), self._optimiser_block(),
              self._simulation_block()],

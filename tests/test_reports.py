@@ -185,3 +185,17 @@ def test_garch_mix_shows_its_mixing_factor():
     default_values, default_label = get_model("ar1-noise").factor_display({}, x)
     np.testing.assert_array_equal(default_values, x)
     assert default_label == get_model("ar1-noise").factor_name
+
+
+def test_titles_name_the_options_that_differ_from_the_defaults():
+    # Two fits of one ladder that differ only in an option must not share a title.
+    from smle.models import model_title
+
+    assert model_title("sv", {}) == "sv" and model_title("sv", None) == "sv"
+    assert model_title("garch-mix", {"link": "ig", "realized": False}) == "garch-mix"  # the defaults
+    assert model_title("garch-mix", {"link": "lognormal", "realized": False}) == "garch-mix (link=lognormal)"
+    assert model_title("sv", {"name": "sv"}) == "sv"  # a class attribute saved by an early version
+    import dataclasses
+
+    result = dataclasses.replace(_fit_result(ess=16.0), model="garch-mix", model_options={"link": "lognormal"})
+    assert result.summary().startswith("smle fit -- model garch-mix (link=lognormal)")

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from smle import report_text as layout
+from smle.models import model_title
 from smle.decision.report_files import finish_figure, pyplot
 from smle.results import CAUTION
 
@@ -49,7 +50,7 @@ def summary_text(backtest) -> str:
                                     f"error up to {np.max(backtest.var_se):.2g}"),
     ])
     return layout.render(
-        layout.title("backtest", f"model {backtest.model}", f"{n} one-step forecasts", span,
+        layout.title("backtest", f"model {model_title(backtest.model, backtest.model_options)}", f"{n} one-step forecasts", span,
                      f"{backtest.elapsed_seconds:.1f} s"),
         [_coverage_block(backtest), score, _refit_block(backtest)], CAUTION)
 
@@ -68,6 +69,6 @@ def backtest_figure(backtest, path=None):
     axis.set_xlabel("row of the data (forecast period)")
     axis.grid(alpha=0.3)
     axis.legend(fontsize=7, ncol=2)
-    axis.set_title(f"backtest, model {backtest.model}: window {backtest.window}, refit every {backtest.refit_every}",
+    axis.set_title(f"backtest, model {model_title(backtest.model, backtest.model_options)}: window {backtest.window}, refit every {backtest.refit_every}",
                    fontsize=10)
     return finish_figure(figure, path, 0.04)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from smle import report_text as layout
+from smle.models import model_title
 from smle.decision.report_files import finish_figure, pyplot
 from smle.results import CAUTION
 
@@ -71,7 +72,7 @@ def summary_text(forecast) -> str:
     ])
     blocks = [start] + [_quantity_block(forecast, q) for q in ("return", "cumulative return", "variance")]
     blocks.append(_monte_carlo_block(forecast))
-    return layout.render(layout.title("forecast", f"model {forecast.model}", where,
+    return layout.render(layout.title("forecast", f"model {model_title(forecast.model, forecast.model_options)}", where,
                                       f"{forecast.horizon} steps ahead"), blocks, CAUTION)
 
 
@@ -109,5 +110,5 @@ def fan_chart(forecast, path=None):
     axes[0].axvline(0.5, color="0.6", lw=0.8)
     axes[-1].set_xlabel("steps after the last observed period")
     when = f" (last period {forecast.last_date})" if forecast.last_date else ""
-    figure.suptitle(f"forecast, model {forecast.model}, {forecast.n_paths} paths{when}", fontsize=11)
+    figure.suptitle(f"forecast, model {model_title(forecast.model, forecast.model_options)}, {forecast.n_paths} paths{when}", fontsize=11)
     return finish_figure(figure, path, 0.03)

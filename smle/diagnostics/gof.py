@@ -64,8 +64,8 @@ from smle.diagnostics.filtering import (
 )
 from smle.exact_likelihood import EXACT_TOL, check_exact_tol, resolve_method
 from smle.validation import check_observations
-from smle.models import saved_model
 from smle import report_text as layout
+from smle.models import model_title, saved_model
 from smle.results import CAUTION, FitResult, exact_engine_text, low_ess_warning
 
 SIGNIFICANCE = 0.05  # common practice
@@ -163,7 +163,7 @@ class Diagnostics:
         path_level = path[0].level if path else SIGNIFICANCE
         path_note = "an exact posterior draw" if path_level == EXACT_PATH_LEVEL else "an approximate posterior draw"
         return layout.render(
-            layout.title("goodness of fit", f"model {self.model}", f"{f.filtered_mean.shape[0]} periods"),
+            layout.title("goodness of fit", f"model {model_title(self.model, self.model_options)}", f"{f.filtered_mean.shape[0]} periods"),
             [self._filter_block(),
              layout.block(f"Tests of the observations (flagged below p = {SIGNIFICANCE:g})",
                           [_test_line(t) for t in observed]),

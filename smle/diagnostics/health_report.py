@@ -17,6 +17,7 @@ from scipy import stats
 
 from smle.diagnostics import weight_tail
 from smle import report_text as layout
+from smle.models import model_title
 from smle.results import CAUTION, low_ess_warning
 
 MIN_SEEDS = 3
@@ -256,7 +257,7 @@ class HealthReport:
         """The report as plain text, in smle's report layout (:mod:`smle.report_text`)."""
         params = ", ".join(f"{k}={v:.6g}" for k, v in self.params.items())
         return layout.render(
-            layout.title("check", f"model {self.model}", f"{self.n_periods} periods", f"verdict: {self.verdict}"),
+            layout.title("check", f"model {model_title(self.model, self.model_options)}", f"{self.n_periods} periods", f"verdict: {self.verdict}"),
             [layout.block("Parameters checked", [params]), self._spread_block(), self._exact_block(),
              self._tail_block(),
              self._convergence_block(), self._scaling_block(),

@@ -8,8 +8,10 @@ with :func:`register`, imported at the bottom of this file.
 
 from __future__ import annotations
 
+import numpy as np
+
 from smle.errors import SmleInputError
-from smle.models.base import Model
+from smle.models.base import Model, model_options
 
 _REGISTRY: dict[str, type[Model]] = {}
 
@@ -54,6 +56,26 @@ def saved_model(name: str, options: dict | None) -> Model:
 
     fields = {f.name for f in dataclasses.fields(type(get_model(name)))}
     return get_model(name, **{k: v for k, v in (options or {}).items() if k in fields})
+
+
+def model_title(name: str, options: dict | None = None) -> str:
+    """The registry name with the options that differ from the model's defaults, for report titles:
+    ``garch-mix (mixing=lognormal)``, plain ``sv`` for a model with its defaults."""
+    options = dict(options or {})
+    try:
+        defaults = model_options(get_model(name))
+    except SmleInputError:
+        defaults = options  # a model without defaults for every option: show them all
+
+    def same(a, b) -> bool:
+        try:
+            return bool(np.all(np.asarray(a) == np.asarray(b))) and np.shape(a) == np.shape(b)
+        except (TypeError, ValueError):
+            return False
+
+    # keys that are not constructor options (class attributes in results saved by early versions) are left out
+    shown = [f"{k}={v}" for k, v in options.items() if k in defaults and (defaults is options or not same(v, defaults[k]))]
+    return name + (f" ({', '.join(shown)})" if shown else "")
 
 
 from smle.models import ar1_noise, garch, garch_mix, realized_sv, sv, sv_t  # noqa: E402,F401  (registration)
