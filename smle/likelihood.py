@@ -245,15 +245,15 @@ def loglik(
     """
     model, checked, y = checked_inputs(model, params, y)
     resolved = resolve_method(model, method)
+    if scoring not in SCORINGS:
+        raise SmleInputError(f"scoring = {scoring!r} is not accepted; accepted: 'paths' (importance weights of "
+                             "whole paths) or 'particles' (particle EIS, resampled)")
     warn_unused_settings(model, resolved, loglik, locals())
     # every argument is checked whichever method runs: a bad value is refused, not ignored
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws, model, y.shape[0])
     key = as_key(seed)
     if on_breakdown not in ("raise", "return"):
         raise SmleInputError(f"on_breakdown = {on_breakdown!r} is not accepted; accepted: 'raise' or 'return'")
-    if scoring not in SCORINGS:
-        raise SmleInputError(f"scoring = {scoring!r} is not accepted; accepted: 'paths' (importance weights of "
-                             "whole paths) or 'particles' (particle EIS, resampled)")
     exact_tol = check_exact_tol(exact_tol)
     if resolved == "closed form":
         return _closed_form_loglik(model, checked, y)
