@@ -220,9 +220,14 @@ def loglik(
         falls below :data:`~smle.engine.particle_eis.RESAMPLE_THRESHOLD` of them; ``log L_hat`` is
         the sum of the log weighted means (L_hat unbiased for L) and ``nse`` the sum of the
         delta-method variances of the stretches between resamplings. Its error no longer grows
-        through a heavy tail of the path weights: PARTICLE_FIGURES. Resampling makes it a
-        step function of the parameters, so it is for evaluation, not for fits. One-dimensional
-        states only (not with control variates, nor for a transition that uses the data).
+        through a heavy tail of the path weights: against the exact value, RMSE 0.030 and 0.066
+        (sv, T = 2000 and 8000) and 0.038 and 0.082 (garch-mix), against 0.105, 0.64, 0.21 and
+        1.27 for "paths", with sd / NSE 0.86-1.06 and no more CPU time per call
+        (experiments/results/particle_eis.md). Resampling makes it a step function of the
+        parameters, so it is for evaluation, not for fits; "paths" stays the default because
+        the path weights and paths are what ``k_hat``, ``smoothed_mean`` and the health check
+        read. One-dimensional states only (not with control variates, nor for a transition that
+        uses the data).
 
     A model without a latent state (``state_dim == 0``, e.g. ``garch``) has its likelihood in
     closed form: the result is exact (``method`` "closed form", ``nse`` 0) whatever ``method``
