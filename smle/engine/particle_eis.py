@@ -101,7 +101,7 @@ def particle_normals(key: jax.Array, n_periods: int, settings: EISSettings):
     return fit, normals, jax.random.uniform(uniform_key, (n_periods,))
 
 
-def systematic_ancestors(log_weights: jax.Array, uniform: jax.Array, n_out: int) -> jax.Array:
+def systematic_indices(log_weights: jax.Array, uniform: jax.Array, n_out: int) -> jax.Array:
     """``n_out`` ancestors by systematic resampling (Kitagawa 1996): stratum ``(uniform + j) / n_out``
     takes the first particle whose cumulative normalised weight exceeds it. Shape (n_out,), sorted."""
     cdf = jnp.cumsum(jnp.exp(log_weights - jnp.max(log_weights)))
@@ -170,7 +170,7 @@ def particle_eis_loglik(
         def resampled(operands):
             previous, log_w_previous, eves = operands
             # with antithetic draws each resampled ancestor starts a pair (z, -z)
-            ancestors = systematic_ancestors(log_w_previous, u, n_units)
+            ancestors = systematic_indices(log_w_previous, u, n_units)
             if antithetic:
                 ancestors = jnp.concatenate([ancestors, ancestors])
             return (previous[ancestors], jnp.full_like(log_w_previous, -log_n), eves[ancestors],
