@@ -33,7 +33,10 @@ Two single-run NSEs of ``log L_hat`` are computed:
   Du and Guyader 2021, Ann. Appl. Probab. 31) from the Eve indices (the period-1 ancestor of
   every particle), ``1 - (S / (S - 1))^(r + 1) (1 - sum_k D_k^2)`` with ``D_k`` the final weight
   descending from Eve k and r the number of resamplings. It is unbiased for multinomial
-  resampling; with systematic resampling its correction factor overstates the genealogy's drift.
+  resampling; with the systematic resampling used here its correction factor does not match the
+  genealogy's drift, and measured over seeds it was 2-4 times off (the Eves coalesce to a few
+  over T = 2000-8000), so :func:`smle.loglik` reports ``nse_blocks`` (sd / NSE 0.86-1.06,
+  experiments/results/particle_eis.md) and keeps this one as a diagnostic.
 
 Everything is a pure function: ``lax.scan`` over time, arrays over particles, float64.
 """
