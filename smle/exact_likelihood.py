@@ -62,7 +62,8 @@ def resolve_method(model: Model, method) -> str:
     return method
 
 
-EIS_SETTINGS = ("n_draws", "seed", "antithetic", "tol", "max_iter", "n_seeds", "n_score_draws", "control_variates")
+EIS_SETTINGS = ("n_draws", "seed", "antithetic", "tol", "max_iter", "n_seeds", "n_score_draws", "control_variates",
+                "scoring")
 
 
 def warn_unused_settings(model: Model, resolved: str, entry, given: dict) -> None:

@@ -18,7 +18,8 @@ import jax.numpy as jnp
 import numpy as np
 
 from smle.engine.control import control_facts
-from smle.engine.methods import compiled_closed_form, eis_entry
+from smle.engine.methods import compiled_closed_form, compiled_particle_eis, eis_entry, uses_pairs
+from smle.engine.particle_eis import RESAMPLE_THRESHOLD
 from smle.engine.sampler import DRAWS, MAX_ITER, SCORE_DRAWS, TOL
 from smle.errors import EISBreakdownError, SmleInputError
 from smle.exact_likelihood import EXACT_TOL, check_exact_tol, exact_run, resolve_method, warn_unused_settings
@@ -75,6 +76,11 @@ class LoglikResult:
         against the exact value, the designs where the flag fired on most runs had errors 1.7-2.1
         times their NSE (rms), the design where it never fired 1.05
         (experiments/results/nse_tail.md).
+      scoring: "paths" (importance weights of whole paths) or "particles" (particle EIS, see
+        :func:`loglik`); with "particles" ``log_weights`` are the particles' normalised log weights
+        at the last period, ``paths`` is empty (T, 0), ``ess`` is the mean over periods of the
+        ESS of the incremental weights, ``k_hat`` is None and ``resamplings`` counts the periods
+        after which the particles were resampled.
     """
 
     value: float
@@ -111,6 +117,8 @@ class LoglikResult:
     filtered_sd: np.ndarray | None = None
     k_hat: float | None = None
     nse_trusted: bool = True
+    scoring: str = "paths"
+    resamplings: int | None = None
 
     @property
     def value_bias_corrected(self) -> float:
@@ -121,8 +129,9 @@ class LoglikResult:
         """Posterior mean of the latent state per period from the weighted scoring paths: (T,),
         or (T, k) for a k-dimensional state. (An exact result has no paths: use
         ``smle.filter_factor`` for its smoothed factor.)"""
-        if self.method != "EIS":
-            raise SmleInputError(f"a result of method {self.method!r} has no simulated paths; smle.filter_factor "
+        if self.method != "EIS" or self.scoring != "paths":
+            what = f"method {self.method!r}" if self.method != "EIS" else "scoring 'particles'"
+            raise SmleInputError(f"a result of {what} has no simulated paths; smle.filter_factor "
                                  "gives the smoothed factor")
         w = np.exp(self.log_weights - self.log_weights.max())
         return np.tensordot(self.paths, w / w.sum(), axes=([1], [0]))
@@ -135,6 +144,10 @@ class LoglikResult:
                     f"error_bound={self.error_bound:.1e})")
         flag = "converged" if self.converged else "NOT converged"
         control = f", control_variates={self.control_variates!r}" if self.control_variates else ""
+        if self.scoring == "particles":
+            return (f"LoglikResult(value={self.value:.4f}, nse={self.nse:.4f}, scoring='particles', "
+                    f"{self.log_weights.shape[0]} particles, {self.resamplings} resamplings, {flag} in "
+                    f"{self.iterations} iterations)")
         tail = "" if self.k_hat is None else f", k_hat={self.k_hat:.2f}{'' if self.nse_trusted else ' (nse not trusted)'}"
         return (
             f"LoglikResult(value={self.value:.4f}, nse={self.nse:.4f}, ess={self.ess:.1f}/{self.log_weights.shape[0]}"
@@ -157,6 +170,7 @@ def loglik(
     on_breakdown: str = "raise",
     method: str = "auto",
     exact_tol: float = EXACT_TOL,
+    scoring: str = "paths",
 ) -> LoglikResult:
     """The log-likelihood of ``model`` at ``params`` on observations ``y``: exact where the latent
     state is one-dimensional, an EIS estimate with its measured error otherwise (see ``method``).
@@ -196,6 +210,24 @@ def loglik(
         settings above. The EIS settings are not used by the exact method.
       exact_tol: the accuracy the exact method must reach (log-likelihood units; the grid is
         refined until its error bound is below it).
+      scoring: how the EIS sampler scores the likelihood (``method="eis"``). "paths" (default):
+        importance weights of whole paths, ``log mean w`` over the ``n_score_draws`` scoring paths,
+        a smooth function of the parameters (what ``smle.fit`` maximises). "particles": particle
+        EIS (:mod:`smle.engine.particle_eis`; Scharth and Kohn 2016): the same sampler's
+        per-period conditionals propagate ``n_score_draws`` particles (antithetic pairs with
+        ``antithetic``), weighted each period by the sampler's incremental weight and resampled
+        (systematic, from fixed uniforms) when the effective sample size of the carried weights
+        falls below :data:`~smle.engine.particle_eis.RESAMPLE_THRESHOLD` of them; ``log L_hat`` is
+        the sum of the log weighted means (L_hat unbiased for L) and ``nse`` the sum of the
+        delta-method variances of the stretches between resamplings. Its error no longer grows
+        through a heavy tail of the path weights: against the exact value, RMSE 0.030 and 0.066
+        (sv, T = 2000 and 8000) and 0.038 and 0.082 (garch-mix), against 0.105, 0.64, 0.21 and
+        1.27 for "paths", with sd / NSE 0.86-1.06 and no more CPU time per call
+        (experiments/results/particle_eis.md). Resampling makes it a step function of the
+        parameters, so it is for evaluation, not for fits; "paths" stays the default because
+        the path weights and paths are what ``k_hat``, ``smoothed_mean`` and the health check
+        read. One-dimensional states only (not with control variates, nor for a transition that
+        uses the data).
 
     A model without a latent state (``state_dim == 0``, e.g. ``garch``) has its likelihood in
     closed form: the result is exact (``method`` "closed form", ``nse`` 0) whatever ``method``
@@ -218,6 +250,9 @@ def loglik(
     """
     model, checked, y = checked_inputs(model, params, y)
     resolved = resolve_method(model, method)
+    if scoring not in SCORINGS:
+        raise SmleInputError(f"scoring = {scoring!r} is not accepted; accepted: 'paths' (importance weights of "
+                             "whole paths) or 'particles' (particle EIS, resampled)")
     warn_unused_settings(model, resolved, loglik, locals())
     # every argument is checked whichever method runs: a bad value is refused, not ignored
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws, model, y.shape[0])
@@ -231,6 +266,8 @@ def loglik(
         return _exact_loglik(model, checked, y, exact_tol)
     control = check_control(model, control_variates, cv_coefficient)
     check_state_settings(model, settings)
+    if scoring == "particles":
+        return _particle_loglik(model, settings, control_variates, checked, y, key, seed)
     if on_breakdown == "return":
         out, diagnostics, extra = eis_entry(model, settings, control)(jax_params(checked), jnp.asarray(y), key)
         repairs = ()
@@ -272,6 +309,44 @@ def loglik(
         log_weight_sd=float(diagnostics["log_weight_sd"]),
         failed_regressions=int(getattr(out.info, "failed_regressions", 0)),
         damping_step=float(getattr(out.info, "step", 1.0)),
+    )
+
+
+SCORINGS = ("paths", "particles")
+"""Accepted values of ``loglik(..., scoring=)``."""
+
+PARTICLE_NSE_METHOD = "particles: delta method per stretch between resamplings, summed"
+"""How :attr:`LoglikResult.nse` is computed with ``scoring="particles"``."""
+
+
+def _particle_loglik(model, settings, control_variates, checked, y, key, seed) -> LoglikResult:
+    """``loglik(..., method="eis", scoring="particles")`` (inputs checked by :func:`loglik`)."""
+    if model.state_dim > 1 or uses_pairs(model):
+        what = (f"a {model.state_dim}-dimensional state" if model.state_dim > 1
+                else "a transition that uses the data (EIS over two consecutive states)")
+        raise SmleInputError(f"scoring = 'particles' is not available for model '{model.name}', which has {what}; "
+                             "accepted for this model: scoring='paths'")
+    if control_variates is not None:
+        raise SmleInputError(f"control_variates = {control_variates!r} cannot be combined with scoring = 'particles'; "
+                             "accepted: control_variates=None, or scoring='paths'")
+    out = compiled_particle_eis(model, settings, RESAMPLE_THRESHOLD)(jax_params(checked), jnp.asarray(y), key)
+    value = float(out.value)
+    failed = int(out.info.failed_regressions)
+    if not math.isfinite(value) or failed:
+        reason = "the estimate is not finite" if not math.isfinite(value) else \
+            f"the last EIS regressions failed in {failed} periods"
+        raise EISBreakdownError(f"the particle EIS log-likelihood of model '{model.name}' cannot be trusted at "
+                                f"params={checked}: {reason}; for a one-dimensional state the grid filter "
+                                "(method='exact') gives the exact value")
+    return LoglikResult(
+        value=value, nse=float(out.nse_blocks), ess=float(out.mean_ess), iterations=int(out.info.iterations),
+        converged=bool(out.info.converged), last_change=float(out.info.last_change), n_draws=settings.n_draws,
+        antithetic=settings.antithetic, seed=seed if isinstance(seed, int) else -1,
+        log_weights=np.asarray(out.final_log_weights), paths=np.zeros((y.shape[0], 0)),
+        b_obs=np.asarray(out.auxiliary.b_obs), c_obs=np.asarray(out.auxiliary.c_obs),
+        r_squared=np.asarray(out.info.r_squared), n_score_draws=settings.score_draws, nse_method=PARTICLE_NSE_METHOD,
+        nse_estimates={"blocks": float(out.nse_blocks), "genealogy": float(out.nse_genealogy)},
+        damping_step=float(out.info.step), scoring="particles", resamplings=int(out.resamplings),
     )
 
 

@@ -10,7 +10,7 @@ from __future__ import annotations
 import functools
 from typing import Mapping
 
-from smle.engine import eis, eis_multi, eis_pairs
+from smle.engine import eis, eis_multi, eis_pairs, particle_eis
 
 
 def eis_output(model, settings: eis.EISSettings, params: Mapping, y, key, warm=None) -> eis.EISOutput:
@@ -40,6 +40,28 @@ def eis_output_pairs(model, settings: eis.EISSettings, params: Mapping, y, key) 
         model.latent(params), _log_obs_function(model), _log_obs_function(model, "path_transition"), (params, data),
         model.mode_guess(params, data), key, settings,
     )
+
+
+def particle_output(model, settings: eis.EISSettings, params: Mapping, y, key,
+                    resample_threshold: float = particle_eis.RESAMPLE_THRESHOLD) -> particle_eis.ParticleOutput:
+    """Particle EIS evaluation of ``model`` at ``params`` (:mod:`smle.engine.particle_eis`); the
+    per-period log g_t comes from the model's ``period_data``."""
+    data = model.prepare(params, y)
+    return particle_eis.particle_eis_loglik(
+        model.latent(params), _log_obs_function(model), _period_log_obs_function(model), (params, data),
+        model.mode_guess(params, data), key, settings, resample_threshold,
+    )
+
+
+@functools.lru_cache(maxsize=None)
+def _period_log_obs_function(model):
+    """``(obs_args, t, x) -> log g_t`` at states x of shape (S,), from the model's ``period_data``."""
+
+    def period_log_obs(obs_args, t, x):
+        params, data = obs_args
+        return model.log_obs_density(params, model.period_data(data, t), x[None, :])[0]
+
+    return period_log_obs
 
 
 @functools.lru_cache(maxsize=None)

@@ -20,7 +20,7 @@ import jax
 from smle.engine import eis
 from smle.engine.control import ControlSpec, controlled_output
 from smle.errors import SmleInputError
-from smle.engine.kernel import eis_output_multi, eis_output_pairs
+from smle.engine.kernel import eis_output_multi, eis_output_pairs, particle_output
 
 
 @functools.lru_cache(maxsize=None)
@@ -70,6 +70,17 @@ def compiled_eis_multi(model, settings: eis.EISSettings):
     def run(params, y, key):
         out, extra = multi_output(model, settings, params, y, key)
         return out, eis.weight_diagnostics(out.log_weights, settings.antithetic), extra
+
+    return jax.jit(run)
+
+
+@functools.lru_cache(maxsize=None)
+def compiled_particle_eis(model, settings: eis.EISSettings, resample_threshold: float):
+    """The JIT-compiled particle EIS kernel (:mod:`smle.engine.particle_eis`): ``(params, y, key)
+    -> ParticleOutput``, for a one-dimensional state whose transition does not use the data."""
+
+    def run(params, y, key):
+        return particle_output(model, settings, params, y, key, resample_threshold)
 
     return jax.jit(run)
 
