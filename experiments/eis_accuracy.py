@@ -53,11 +53,11 @@ def exact(model, params, y):
 
 
 def run_cell(model, params, y, truth, options, n_seeds):
-    smle.loglik(model, params, y, seed=10_000, method="eis", **options)  # compile
+    smle.loglik(model, params, y, seed=10_000, method="eis", scoring="paths", **options)  # compile
     values, seconds, cpu, nses = [], [], [], {}
     for seed in range(n_seeds):
         start, start_cpu = time.perf_counter(), time.process_time()
-        result = smle.loglik(model, params, y, seed=seed, method="eis", **options)
+        result = smle.loglik(model, params, y, seed=seed, method="eis", scoring="paths", **options)
         seconds.append(time.perf_counter() - start)
         cpu.append(time.process_time() - start_cpu)
         values.append(result.value)

@@ -33,7 +33,7 @@ def run_design(name, n_periods, n_seeds):
     exact = smle.loglik(name, params, y, method="exact").value
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the untrusted-NSE warning is what is being measured
-        runs = [smle.loglik(name, params, y, method="eis", seed=s) for s in range(n_seeds)]
+        runs = [smle.loglik(name, params, y, method="eis", scoring="paths", seed=s) for s in range(n_seeds)]
     error = np.array([r.value - exact for r in runs])
     nse = np.array([r.nse for r in runs])
     k_hat = np.array([r.k_hat for r in runs])

@@ -40,7 +40,7 @@ from smle.models import get_model
 from smle.validation import as_key, checked_params, jax_params
 
 LOGLIK_SETTINGS = {
-    "paths (loglik default, 32 fit / 512 score)": dict(),
+    "paths (32 fit / 512 score)": dict(scoring="paths"),
     f"particles S512 thr {RESAMPLE_THRESHOLD:g} (scoring='particles' default)": dict(scoring="particles"),
     f"particles S1024 thr {RESAMPLE_THRESHOLD:g}": dict(scoring="particles", n_score_draws=1024),
 }

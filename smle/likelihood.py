@@ -170,7 +170,7 @@ def loglik(
     on_breakdown: str = "raise",
     method: str = "auto",
     exact_tol: float = EXACT_TOL,
-    scoring: str = "paths",
+    scoring: str = "auto",
 ) -> LoglikResult:
     """The log-likelihood of ``model`` at ``params`` on observations ``y``: exact where the latent
     state is one-dimensional, an EIS estimate with its measured error otherwise (see ``method``).
@@ -210,7 +210,10 @@ def loglik(
         settings above. The EIS settings are not used by the exact method.
       exact_tol: the accuracy the exact method must reach (log-likelihood units; the grid is
         refined until its error bound is below it).
-      scoring: how the EIS sampler scores the likelihood (``method="eis"``). "paths" (default):
+      scoring: how the EIS sampler scores the likelihood (``method="eis"``). "auto" (default):
+        "particles" for a one-dimensional state whose transition does not use the data, without
+        control variates and with ``on_breakdown="raise"``; "paths" otherwise, and also where
+        particle scoring breaks down (``repairs`` then says why). "paths":
         importance weights of whole paths, ``log mean w`` over the ``n_score_draws`` scoring paths,
         a smooth function of the parameters (what ``smle.fit`` maximises). "particles": particle
         EIS (:mod:`smle.engine.particle_eis`; Scharth and Kohn 2016): the same sampler's
@@ -224,10 +227,9 @@ def loglik(
         (sv, T = 2000 and 8000) and 0.038 and 0.082 (garch-mix), against 0.105, 0.64, 0.21 and
         1.27 for "paths", with sd / NSE 0.86-1.06 and no more CPU time per call
         (experiments/results/particle_eis.md). Resampling makes it a step function of the
-        parameters, so it is for evaluation, not for fits; "paths" stays the default because
-        the path weights and paths are what ``k_hat``, ``smoothed_mean`` and the health check
-        read. One-dimensional states only (not with control variates, nor for a transition that
-        uses the data).
+        parameters, so it is for evaluation, not for fits (which score paths). A particle result
+        has no paths: ``smoothed_mean`` and ``k_hat`` need "paths". One-dimensional states only
+        (not with control variates, nor for a transition that uses the data).
 
     A model without a latent state (``state_dim == 0``, e.g. ``garch``) has its likelihood in
     closed form: the result is exact (``method`` "closed form", ``nse`` 0) whatever ``method``
@@ -251,8 +253,8 @@ def loglik(
     model, checked, y = checked_inputs(model, params, y)
     resolved = resolve_method(model, method)
     if scoring not in SCORINGS:
-        raise SmleInputError(f"scoring = {scoring!r} is not accepted; accepted: 'paths' (importance weights of "
-                             "whole paths) or 'particles' (particle EIS, resampled)")
+        raise SmleInputError(f"scoring = {scoring!r} is not accepted; accepted: 'auto', 'paths' (importance weights "
+                             "of whole paths) or 'particles' (particle EIS, resampled)")
     warn_unused_settings(model, resolved, loglik, locals())
     # every argument is checked whichever method runs: a bad value is refused, not ignored
     settings = check_settings(n_draws, antithetic, tol, max_iter, n_score_draws, model, y.shape[0])
@@ -266,15 +268,22 @@ def loglik(
         return _exact_loglik(model, checked, y, exact_tol)
     control = check_control(model, control_variates, cv_coefficient)
     check_state_settings(model, settings)
-    if scoring == "particles":
-        return _particle_loglik(model, settings, control_variates, checked, y, key, seed)
+    repairs = ()
+    if scoring == "particles" or (scoring == "auto" and particles_apply(model, control_variates, on_breakdown)):
+        check_particles_apply(model, control_variates)
+        try:
+            return _particle_loglik(model, settings, checked, y, key, seed)
+        except EISBreakdownError as error:
+            if scoring == "particles":
+                raise
+            repairs = (f"particle scoring broke down ({error.reason}); scored by paths",)
     if on_breakdown == "return":
         out, diagnostics, extra = eis_entry(model, settings, control)(jax_params(checked), jnp.asarray(y), key)
-        repairs = ()
         if not math.isfinite(float(extra["value"])):
             raise EISBreakdownError(f"the EIS log-likelihood of model '{model.name}' is not finite at params={checked}")
     else:
-        out, diagnostics, extra, settings, repairs = _checked_run(model, settings, control, checked, y, key)
+        out, diagnostics, extra, settings, path_repairs = _checked_run(model, settings, control, checked, y, key)
+        repairs = repairs + path_repairs
     value = float(extra["value"])
     facts = control_facts(control, settings.antithetic, out, honest_nse(diagnostics), extra)
     nse = float(extra["nse"]) if facts is not None else honest_nse(diagnostics)
@@ -312,15 +321,20 @@ def loglik(
     )
 
 
-SCORINGS = ("paths", "particles")
+SCORINGS = ("auto", "paths", "particles")
 """Accepted values of ``loglik(..., scoring=)``."""
 
 PARTICLE_NSE_METHOD = "particles: delta method per stretch between resamplings, summed"
 """How :attr:`LoglikResult.nse` is computed with ``scoring="particles"``."""
 
 
-def _particle_loglik(model, settings, control_variates, checked, y, key, seed) -> LoglikResult:
-    """``loglik(..., method="eis", scoring="particles")`` (inputs checked by :func:`loglik`)."""
+def particles_apply(model, control_variates, on_breakdown) -> bool:
+    """Whether ``scoring="auto"`` scores by particles (see :func:`loglik`)."""
+    return model.state_dim == 1 and not uses_pairs(model) and control_variates is None and on_breakdown == "raise"
+
+
+def check_particles_apply(model, control_variates) -> None:
+    """Refuse ``scoring="particles"`` where it is not available, naming what is accepted."""
     if model.state_dim > 1 or uses_pairs(model):
         what = (f"a {model.state_dim}-dimensional state" if model.state_dim > 1
                 else "a transition that uses the data (EIS over two consecutive states)")
@@ -329,15 +343,25 @@ def _particle_loglik(model, settings, control_variates, checked, y, key, seed) -
     if control_variates is not None:
         raise SmleInputError(f"control_variates = {control_variates!r} cannot be combined with scoring = 'particles'; "
                              "accepted: control_variates=None, or scoring='paths'")
+
+
+def _particle_loglik(model, settings, checked, y, key, seed) -> LoglikResult:
+    """``loglik(..., method="eis")`` scored by particles; raises :class:`EISBreakdownError` (with a
+    ``reason``) where the run cannot be returned: a non-finite value, failed regressions in the last
+    EIS iteration, float64 rounding above :data:`ROUNDING_LIMIT` or an NSE above :data:`NSE_LIMIT`."""
     out = compiled_particle_eis(model, settings, RESAMPLE_THRESHOLD)(jax_params(checked), jnp.asarray(y), key)
     value = float(out.value)
-    failed = int(out.info.failed_regressions)
-    if not math.isfinite(value) or failed:
-        reason = "the estimate is not finite" if not math.isfinite(value) else \
-            f"the last EIS regressions failed in {failed} periods"
-        raise EISBreakdownError(f"the particle EIS log-likelihood of model '{model.name}' cannot be trusted at "
-                                f"params={checked}: {reason}; for a one-dimensional state the grid filter "
-                                "(method='exact') gives the exact value")
+    failed, rounding, nse = int(out.info.failed_regressions), float(out.rounding), float(out.nse_blocks)
+    reason = ("the estimate is not finite" if not math.isfinite(value) else
+              f"the last EIS regressions failed in {failed} periods" if failed else
+              f"float64 rounding alone can move it by {rounding:.3g}" if not rounding <= ROUNDING_LIMIT else
+              f"its NSE is {nse:.3g}" if not nse <= NSE_LIMIT else None)
+    if reason is not None:
+        error = EISBreakdownError(f"the particle EIS log-likelihood of model '{model.name}' cannot be trusted at "
+                                  f"params={checked}: {reason}; for a one-dimensional state the grid filter "
+                                  "(method='exact') gives the exact value")
+        error.reason = reason
+        raise error
     return LoglikResult(
         value=value, nse=float(out.nse_blocks), ess=float(out.mean_ess), iterations=int(out.info.iterations),
         converged=bool(out.info.converged), last_change=float(out.info.last_change), n_draws=settings.n_draws,

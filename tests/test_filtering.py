@@ -169,7 +169,7 @@ def test_filter_loglik_agrees_with_eis_and_the_grid_filter(sv_data):
                        for s in range(8)])
     pf_nse = values.std(ddof=1)
     assert 0 < pf_nse < 1.0
-    eis = smle.loglik("sv", PERCENT_DESIGN, y, n_draws=64, seed=0)
+    eis = smle.loglik("sv", PERCENT_DESIGN, y, n_draws=64, seed=0, method="eis")
     combined = np.sqrt(pf_nse**2 / len(values) + eis.nse**2)
     assert abs(values.mean() - eis.value) < 4 * combined
     grid = smle.reference.grid_loglik("sv", PERCENT_DESIGN, y)

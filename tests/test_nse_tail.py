@@ -25,11 +25,11 @@ CHECK_RUN = {"n_score_draws": None, **{name: inspect.signature(smle.check).param
 
 def test_the_k_hat_reported_is_the_tail_fit_of_the_scoring_weights():
     y, _ = smle.simulate("sv", SV, 500, seed=5)
-    result = smle.loglik("sv", SV, y, method="eis", seed=1)
+    result = smle.loglik("sv", SV, y, method="eis", scoring="paths", seed=1)
     assert result.log_weights.size >= 100  # the default scoring set is large enough for a tail fit
     assert result.k_hat == pytest.approx(pareto_k_hat(result.log_weights).k_hat, abs=1e-12)
     assert result.nse_trusted == (result.k_hat < K_HAT_UNTRUSTED)
-    small = smle.loglik("sv", SV, y, method="eis", seed=1, n_draws=64, **CHECK_RUN)  # 64 weights: no tail fit
+    small = smle.loglik("sv", SV, y, method="eis", scoring="paths", seed=1, n_draws=64, **CHECK_RUN)  # 64 weights: no tail fit
     assert small.k_hat is None and small.nse_trusted
 
 
@@ -54,5 +54,5 @@ def test_an_exact_sampler_has_no_tail_to_fit():
     params = {"mu_1": 0.5, "mu_2": -1.0, "phi_1": 0.8, "phi_2": 0.4, "sigma_eta_1": 0.5, "sigma_eta_2": 0.7,
               "sigma_eps_1": 0.4, "sigma_eps_2": 0.6}
     y, _ = smle.simulate(model, params, 200, seed=0)
-    result = smle.loglik(model, params, y, method="eis")
+    result = smle.loglik(model, params, y, method="eis", scoring="paths")
     assert result.k_hat is None and result.nse_trusted

@@ -46,7 +46,7 @@ def test_errors_over_seeds_are_centred_on_exact_and_scaled_by_the_nse(name):
     rms = float(np.sqrt(np.mean((errors / nse) ** 2)))
     assert 0.3 <= rms <= 2.0, rms
     # and it is the spread that path scoring cannot reach at this cost: below the paths' NSE
-    paths = smle.loglik(name, params, y, method="eis", seed=0)
+    paths = smle.loglik(name, params, y, method="eis", scoring="paths", seed=0)
     assert nse.mean() < paths.nse
 
 
@@ -83,7 +83,7 @@ def test_a_seed_reproduces_its_value_and_another_seed_does_not():
     assert first.value == again.value and first.nse == again.nse and first.resamplings == again.resamplings
     assert first.value != other.value
     # the fitted sampler is the one path scoring uses for the same seed (the same fitting draws)
-    paths = smle.loglik("sv", SV, y, method="eis", seed=3)
+    paths = smle.loglik("sv", SV, y, method="eis", scoring="paths", seed=3)
     np.testing.assert_array_equal(first.b_obs, paths.b_obs)
 
 
@@ -112,3 +112,32 @@ def test_scoring_is_reported_unused_by_the_exact_method():
     y = _data("sv", SV)
     with pytest.warns(UserWarning, match="scoring is not used"):
         smle.loglik("sv", SV, y, scoring="particles")
+
+
+def test_auto_scores_by_particles_where_they_apply_and_by_paths_elsewhere(monkeypatch):
+    y = _data("sv", SV)
+    auto = smle.loglik("sv", SV, y, method="eis", seed=5)
+    assert auto.scoring == "particles"
+    assert auto.value == smle.loglik("sv", SV, y, method="eis", scoring="particles", seed=5).value
+    assert smle.loglik("sv", SV, y, method="eis", seed=5, control_variates="draws").scoring == "paths"
+    assert smle.loglik("sv", SV, y, method="eis", seed=5, on_breakdown="return").scoring == "paths"
+    from smle import likelihood
+    from smle.errors import EISBreakdownError
+    from smle.models import get_model
+
+    # k > 1 states and pair kernels have no particle scoring: "auto" scores their paths
+    assert not likelihood.particles_apply(get_model("sv-2factor"), None, "raise")
+    assert not likelihood.particles_apply(get_model("sv-leverage"), None, "raise")
+
+    # a particle run that cannot be returned is scored by paths under "auto", and raised when asked for
+
+    def broken(*args, **kwargs):
+        error = EISBreakdownError("the particle EIS log-likelihood cannot be trusted: its NSE is 3")
+        error.reason = "its NSE is 3"
+        raise error
+
+    monkeypatch.setattr(likelihood, "_particle_loglik", broken)
+    fallback = smle.loglik("sv", SV, y, method="eis", seed=5)
+    assert fallback.scoring == "paths" and fallback.repairs[0].startswith("particle scoring broke down (its NSE is 3)")
+    with pytest.raises(EISBreakdownError, match="its NSE is 3"):
+        smle.loglik("sv", SV, y, method="eis", scoring="particles", seed=5)

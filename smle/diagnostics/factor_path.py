@@ -77,7 +77,7 @@ def posterior_path(model, result, y, seed) -> np.ndarray:
     n_draws = int(eis.get("n_draws", 64))
     lik = loglik(model, result.params, y, n_draws=n_draws, seed=int(eis.get("seed", 0)),
                  antithetic=bool(eis.get("antithetic", True)), tol=float(eis.get("tol", 1e-8)), max_iter=100,
-                 n_score_draws=max(PATH_CANDIDATES, n_draws), method="eis")
+                 n_score_draws=max(PATH_CANDIDATES, n_draws), method="eis", scoring="paths")
     weights = np.exp(lik.log_weights - lik.log_weights.max())
     index = np.random.default_rng(seed).choice(weights.shape[0], p=weights / weights.sum())
     return np.asarray(lik.paths[:, index], float)

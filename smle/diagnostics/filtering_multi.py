@@ -193,7 +193,8 @@ def smoothed_by_eis(model, params: Mapping, y, seed: int, n_paths: int = SMOOTHI
     ``smoothed_mean``, ``smoothed_sd``, ``smoothed_lower``, ``smoothed_upper``, each (T, k), the
     importance-weighted moments and 5%/95% quantiles of ``n_paths`` scoring paths (EIS defaults
     otherwise: 64 fitting draws, antithetic). ``seed``: a non-negative integer or a JAX PRNG key."""
-    lik = loglik(model, params, y, n_draws=64, seed=seed, n_score_draws=max(n_paths, 64), method="eis")
+    lik = loglik(model, params, y, n_draws=64, seed=seed, n_score_draws=max(n_paths, 64), method="eis",
+                 scoring="paths")
     weights = np.exp(lik.log_weights - lik.log_weights.max())
     weights = weights / weights.sum()
     paths = np.asarray(lik.paths)  # (T, S, k)

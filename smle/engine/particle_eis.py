@@ -73,6 +73,8 @@ class ParticleOutput(NamedTuple):
       mean_ess: mean over periods of the ESS of the incremental weights (out of S).
       distinct_eves: distinct period-1 ancestors among the final particles.
       final_log_weights: normalised log weights of the particles at period T, shape (S,).
+      rounding: float64 rounding scale of the log increments, ``eps * (|log chi_1| + sum_t max_i`` of
+        the magnitudes of their terms), as :func:`smle.engine.eis.rounding_scale` for paths.
       auxiliary, sampler, info: the EIS fixed point behind the proposal.
     """
 
@@ -84,6 +86,7 @@ class ParticleOutput(NamedTuple):
     mean_ess: jax.Array
     distinct_eves: jax.Array
     final_log_weights: jax.Array
+    rounding: jax.Array
     auxiliary: Auxiliary
     sampler: Sampler
     info: EISInfo
@@ -188,20 +191,23 @@ def particle_eis_loglik(
         if antithetic:
             z = jnp.concatenate([z, -z])
         current = intercept + slope * previous + sd * z
-        log_increment = period_log_obs_fn(obs_args, t, current) + const + linear * current \
-            - 0.5 * quadratic * current**2
+        log_obs = period_log_obs_fn(obs_args, t, current)
+        log_increment = log_obs + const + linear * current - 0.5 * quadratic * current**2
+        magnitude = jnp.max(jnp.abs(log_obs) + jnp.abs(const) + jnp.abs(linear * current)
+                            + jnp.abs(0.5 * quadratic * current**2))
         log_increment = jnp.where(jnp.isnan(log_increment), -jnp.inf, log_increment)
         log_mean = logsumexp(log_w_previous + log_increment)
         log_w = log_w_previous + log_increment - log_mean
         increment_ess = jnp.exp(2.0 * logsumexp(log_increment) - logsumexp(2.0 * log_increment))
-        return (current, log_w, eves, block_var, resamplings + resample.astype(jnp.int32)), (log_mean, increment_ess)
+        carry = (current, log_w, eves, block_var, resamplings + resample.astype(jnp.int32))
+        return carry, (log_mean, increment_ess, jnp.where(jnp.isfinite(magnitude), magnitude, 0.0))
 
     dtype = sampler.precision.dtype
     init = (jnp.zeros((n,), dtype), jnp.full((n,), -log_n, dtype), jnp.arange(n, dtype=jnp.int32),
             jnp.zeros((), dtype), jnp.zeros((), jnp.int32))
     inputs = (jnp.arange(n_periods), sampler.mean_intercept, sampler.mean_slope, scale, sampler.weight_const,
               sampler.weight_linear, sampler.weight_quadratic, normals, uniforms)
-    (_, log_w, eves, block_var, resamplings), (log_means, increment_ess) = jax.lax.scan(step, init, inputs)
+    (_, log_w, eves, block_var, resamplings), (log_means, increment_ess, magnitudes) = jax.lax.scan(step, init, inputs)
     log_means = log_means.at[0].add(sampler.log_chi_first)
     block_var = block_var + _block_variance(log_w, antithetic)
     eve_mass = jax.ops.segment_sum(jnp.exp(log_w), eves, num_segments=n)
@@ -216,6 +222,7 @@ def particle_eis_loglik(
         mean_ess=jnp.mean(increment_ess),
         distinct_eves=jnp.sum(eve_mass > 0),
         final_log_weights=log_w,
+        rounding=jnp.finfo(dtype).eps * (jnp.abs(sampler.log_chi_first) + jnp.sum(magnitudes)),
         auxiliary=auxiliary,
         sampler=sampler,
         info=info,
