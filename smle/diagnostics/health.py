@@ -54,13 +54,14 @@ from smle.diagnostics.health_report import (  # noqa: F401 (the report's names a
     AGREEMENT_LEVEL, DEGENERATE_SPREAD, FULL_TAIL_DRAWS, MIN_SEEDS, MIN_TAIL_DRAWS, NSE_LIMIT, SCALING_MIN_SEEDS,
     TOP_PERIODS, HealthReport, Period, ScalingRow,
 )
-from smle.engine import eis, eis_multi
+from smle.engine import eis, eis_multi, eis_pairs, kernel
+from smle.engine.methods import uses_pairs
 from smle.engine.multi_sampler import period_log_weights
 from smle.errors import SmleInputError, describe
 from smle.likelihood import LoglikResult, loglik
 from smle.models.base import model_options
 from smle.validation import (
-    MIN_DRAWS, check_control, check_integer, check_seed, check_settings, check_state_settings, checked_inputs,
+    MIN_DRAWS, as_key, check_control, check_integer, check_seed, check_settings, check_state_settings, checked_inputs,
     jax_params,
 )
 
@@ -131,13 +132,55 @@ def _period_terms_function(model):
     return jax.jit(run)
 
 
-def period_terms(model, params: Mapping, y, result: LoglikResult) -> np.ndarray:
+@functools.lru_cache(maxsize=None)
+def _pair_terms_function(model, settings: eis.EISSettings):
+    """Compiled ``(params, y, key) -> (per-period log-weight terms (T, S), log weights (S,))`` of a
+    run with kernels over two consecutive states (:mod:`smle.engine.eis_pairs`), rebuilt from its key.
+
+    A result keeps only the x_t terms of the pair kernels, so the run is repeated (same key and
+    settings, so the same paths). Period t's term is ``log h_t`` minus its kernel with the
+    ``chi_{t+1}`` constant, plus the cross term ``cross_t x_{t-1} x_t`` that the sampler's kernel
+    leaves to the weight; ``log w = log chi_1 + sum_t term_t`` as for one-dimensional kernels."""
+
+    def run(params, y, key):
+        out = kernel.eis_output_pairs(model, settings, params, y, key)
+        data = model.prepare(params, y)
+        log_h = eis_pairs.log_pair_terms(model.latent(params), lambda args, x: model.log_obs_density(*args, x),
+                                         lambda args, x: model.path_transition(*args, x), (params, data), out.paths)
+        terms = eis.period_log_weights(out.sampler, log_h, out.paths)
+        return terms.at[1:].add(out.auxiliary.cross[1:, None] * out.paths[:-1] * out.paths[1:]), out.log_weights
+
+    return jax.jit(run)
+
+
+PAIR_REBUILD_TOL = 1e-8
+"""Largest spread (relative to the largest log weight) of ``log w - sum_t term_t`` across the paths of
+a rebuilt pair-kernel run: a larger one means the run was not repeated (other settings)."""
+
+
+def period_terms(model, params: Mapping, y, result: LoglikResult, tol: float = 1e-6,
+                 max_iter: int = 50) -> np.ndarray:
     """Per-period terms of the log weights of ``result``'s scoring paths, shape (T, S).
 
     ``log w = log chi_1 + sum_t term_t``: term_t is ``log g_t(x_t)`` minus the sampler's Gaussian
     kernel of period t (the chi_{t+1} integrating constant included), evaluated at the paths.
+
+    For a transition that uses the data (kernels over two consecutive states) the run is repeated
+    from ``result``'s seed and draws with ``tol`` and ``max_iter`` (those of the run: the defaults
+    are :func:`check`'s), and ``log h_t`` replaces ``log g_t``; a run that does not reproduce
+    ``result``'s weights is refused.
     """
     model, checked, y = checked_inputs(model, params, y)
+    if uses_pairs(model):
+        settings = check_settings(result.n_draws, result.antithetic, tol, max_iter, result.n_score_draws)
+        terms, log_weights = (np.asarray(a) for a in _pair_terms_function(model, settings)(
+            jax_params(checked), jnp.asarray(y), as_key(result.seed)))
+        offset = np.asarray(result.log_weights) - terms.sum(axis=0)
+        if not (log_weights.shape == result.log_weights.shape
+                and np.ptp(offset) <= PAIR_REBUILD_TOL * max(np.abs(result.log_weights).max(), 1.0)):
+            raise SmleInputError(f"the run of seed {result.seed} was not reproduced with tol = {tol!r}, max_iter = "
+                                 f"{max_iter!r}; accepted: the tol and max_iter the result was computed with")
+        return terms
     terms = _period_terms_function(model)(jax_params(checked), jnp.asarray(y), jnp.asarray(result.b_obs),
                                           jnp.asarray(result.c_obs), jnp.asarray(result.paths))
     return np.asarray(terms)
@@ -175,10 +218,6 @@ def _checked_arguments(model, params, y, n_draws, n_seeds, seed, tail_draws, dra
     """The arguments of :func:`check`, validated: ``(model, params, y, settings, n_seeds, seed,
     tail_draws, grid, labels)``."""
     resolved, checked, y_array = checked_inputs(model, params, y)
-    if resolved.transition_uses_data:  # its per-period weight terms need the pair kernels' cross terms
-        raise SmleInputError(f"smle.check is not yet available for model '{resolved.name}', whose state's transition "
-                             "uses the data (EIS over two consecutive states); accepted: smle.loglik(..., "
-                             "method='eis') with several seeds, or the exact method")
     settings = check_settings(n_draws, antithetic, tol, max_iter)
     check_state_settings(resolved, settings)
     n_seeds = check_integer("n_seeds", n_seeds, MIN_SEEDS, "independent seeds for the spread; 20 or more is better")
@@ -356,7 +395,7 @@ def _report(model, checked, y, settings, seeds, main, r_squared, tail_result, ta
     if degenerate:
         shares = np.zeros(y.shape[0])
     else:
-        shares = variance_shares(period_terms(model, checked, y, tail_result))
+        shares = variance_shares(period_terms(model, checked, y, tail_result, settings.tol, settings.max_iter))
     tail_r2 = np.asarray(tail_result.r_squared)
     order = np.argsort(-shares)[:TOP_PERIODS]
     top = [Period(int(i), labels[i] if labels else "", float(shares[i]), float(tail_r2[i])) for i in order]

@@ -30,7 +30,9 @@ How the grid is chosen (:func:`choose_grid`, in Python on concrete values, befor
   filtered mass in the two outermost points on each side must stay below 1e-13 at every period,
   else the range is widened by half;
 * its spacing is ``w / 1.25``; its size the next of :data:`SIZES` (powers of two and 1.5 times
-  them, so few shapes are compiled), the spare points refining the spacing;
+  them, so few shapes are compiled), the spare points refining the spacing; a grid needing more
+  than 1.5 times ``max_size`` is refused at once (:class:`GridOutgrown`: as a transition sd goes to
+  0 the points needed grow like 1 / sd, and the largest grids cost minutes with nothing gained);
 * for large grids whose transition is time-invariant, the transition is applied as a band of
   ``2 B + 1`` entries per row around ``x_j = (x_i - intercept) / phi`` (``B`` from a 10 sd
   reach), not as a dense G x G matrix: this keeps phi = 0.999 with a small innovation scale
@@ -78,7 +80,22 @@ STATIONARY_SDS = 8.0
 BAND_REACH_SDS = 10.0
 BAND_MIN_SIZE = 512
 EDGE_MASS_TOL = 1e-13
+OUTGROWN_FACTOR = 1.5
+"""A grid that needs more than this many times ``max_size`` points is refused before it is run
+(:class:`GridOutgrown`): capped, its spacing would be above 1.2 times the narrowest width, where
+the accuracy check misses any tol below about 1e-4 (measured at 1.38 widths: 6e-3, module docstring)."""
 LOG_2PI = math.log(2.0 * math.pi)
+
+
+class GridOutgrown(SmleInputError):
+    """The grid the accuracy needs is more than :data:`OUTGROWN_FACTOR` times ``max_size``: typically a
+    transition standard deviation near zero (sv-leverage with |delta| near 1), whose width the grid
+    must resolve over the whole range of the state. Raised before any large grid is run (a dense
+    per-period transition on 4096 points costs T 4096^2 per pass: 388 s at T = 500, measured)."""
+
+    def __init__(self, message: str, transition_sd: float, needed: int):
+        super().__init__(message)
+        self.transition_sd, self.needed = transition_sd, needed
 
 
 class ExactGrid(NamedTuple):
@@ -273,7 +290,8 @@ def choose_grid(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_p
       transition_sd: the smallest transition standard deviation of a per-period transition
         (default: ``state.sigma_eta``).
       refine: divide the spacing by this factor (the accuracy loop doubles it).
-      max_size: the largest grid allowed.
+      max_size: the largest grid allowed; a grid needing more than :data:`OUTGROWN_FACTOR` times it
+        raises :class:`GridOutgrown`, a smaller excess is capped and left to the accuracy check.
       curvature_probe: x -> :func:`log_g_and_curvature` of ``log_obs`` at x, compiled by the caller (default:
         compiled here, once per call).
     """
@@ -294,7 +312,16 @@ def choose_grid(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_p
     upper = max(high + probe_step, mean0 + STATIONARY_SDS * sd0)
     sd_min = state.sigma_eta if transition_sd is None else float(transition_sd)
     width = 1.0 / math.sqrt(1.0 / sd_min**2 + kappa)
-    return _grid_for(lower, upper, width / (CELLS_PER_WIDTH * refine), state, max_size, transition_sd is not None)
+    spacing = width / (CELLS_PER_WIDTH * refine)
+    needed = (upper - lower) / spacing + 1
+    if needed > OUTGROWN_FACTOR * max_size:
+        raise GridOutgrown(
+            f"the exact grid would need about {needed:.0f} points (more than {OUTGROWN_FACTOR:g} times max_size = "
+            f"{max_size}): the state's transition standard deviation is {sd_min:.3g} against a range of {upper - lower:.3g} "
+            "the grid must cover, and its spacing must resolve that width; a transition sd near zero (e.g. a leverage "
+            "correlation near +-1) makes the state almost deterministic given the data. Accepted: parameters with a "
+            "larger transition sd, a larger max_size, or method='eis', which needs no grid", sd_min, int(needed))
+    return _grid_for(lower, upper, spacing, state, max_size, transition_sd is not None)
 
 
 @jax.jit
@@ -353,6 +380,8 @@ def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_
       curvature_probe: passed to :func:`choose_grid`.
 
     Raises:
+      GridOutgrown: the grid needed is more than :data:`OUTGROWN_FACTOR` times ``max_size`` (raised
+        before any large grid is run).
       SmleInputError: the accuracy ``tol`` is not reached within ``max_size`` points (the message
         gives the accuracy reached), or the state is not stationary.
     """
