@@ -86,8 +86,9 @@ def report(out) -> str:
              f"binomial sd of a coverage of 0.95 over {n} replications: {math.sqrt(0.95 * 0.05 / max(n, 1)):.3f}; "
              "the exact 95% interval of the count of misses is given beside each coverage", "",
              "| parameter | truth | mean EIS | mean exact | sd of EIS est. | sd of exact est. | mean s.e. EIS | "
-             "mean s.e. exact | mean abs(EIS - exact)/s.e. | coverage EIS | coverage exact | "
-             "misses expected (95% range) |", "|---|---|---|---|---|---|---|---|---|---|---|---|"]
+             "mean s.e. exact | mean abs(EIS - exact)/s.e. | s.e. EIS / s.e. exact (range) | replications "
+             "covered by one fit only | coverage EIS | coverage exact | misses expected (95% range) | "
+             "t of the exact fit's mean error |", "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|"]
     low, high = stats.binom.ppf([0.025, 0.975], n, 0.05) if n else (0, 0)
     pooled = {"eis": [], "exact": []}
     for name, truth in out["truth"].items():
@@ -97,10 +98,13 @@ def report(out) -> str:
         for m in pooled:
             pooled[m].extend(cover[m])
         gap = np.mean(np.abs(est["eis"] - est["exact"]) / se["exact"])
+        se_ratio = se["eis"] / se["exact"]
+        t_bias = (est["exact"].mean() - truth) / (est["exact"].std(ddof=1) / math.sqrt(n))
         lines.append(f"| {name} | {truth} | {est['eis'].mean():.4f} | {est['exact'].mean():.4f} | "
                      f"{est['eis'].std(ddof=1):.4f} | {est['exact'].std(ddof=1):.4f} | {se['eis'].mean():.4f} | "
-                     f"{se['exact'].mean():.4f} | {gap:.3f} | {cover['eis'].mean():.2f} | {cover['exact'].mean():.2f} | "
-                     f"{int(low)}-{int(high)} |")
+                     f"{se['exact'].mean():.4f} | {gap:.3f} | {se_ratio.mean():.3f} ({se_ratio.min():.2f}-"
+                     f"{se_ratio.max():.2f}) | {int(np.sum(cover['eis'] != cover['exact']))} | {cover['eis'].mean():.2f} | "
+                     f"{cover['exact'].mean():.2f} | {int(low)}-{int(high)} | {t_bias:+.1f} |")
     if n:
         total = len(pooled["eis"])
         lines += ["", f"pooled over the four parameters ({total} intervals, not independent within a replication): "

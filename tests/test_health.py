@@ -450,6 +450,9 @@ def test_sv_leverage_pair_kernels_are_checked_against_the_exact_value(sp500_retu
     with pytest.raises(SmleInputError, match="was not reproduced with tol = 0.5"):
         health.period_terms("sv-leverage", params, y, tail_run, tol=0.5, max_iter=1)
     assert [row.n_draws for row in report.scaling] == [16, 32]
-    # measured: VERDICT_MEASUREMENT
+    # measured: spread over 10 seeds 0.048, single-run NSE 0.065, RMSE against the exact value 0.051 (ratio
+    # 0.79, error / own NSE rms 1.12 against the honest limit 1.59), bias t 1.58 (critical 3.25), k-hat 0.24
+    # from 1000 weights (at T = 200 the same design gave error / own NSE rms 1.52, too near the limit to test)
+    assert not report.exact.understated and not report.exact.runs_understated and not report.exact.biased
+    assert report.tail.verdict == "healthy"
     assert report.verdict == "healthy", report.reason
-    print(report.summary())
