@@ -7,7 +7,10 @@ JAX differentiates it exactly). L-BFGS maximises it; at the estimate the grid is
 checked afresh (:func:`smle.exact_likelihood.exact_run`), and if that grid differs from the one
 the optimiser used by more than the accuracy asked for, the optimiser continues on the new grid
 (at most :data:`MAX_GRID_PASSES` times). The log-likelihood reported is the checked one, with its
-error bound. Standard errors come from the Hessian by central differences of the exact
+error bound. A transition that uses the data has a dense G x G kernel per period, so such a fit
+keeps its grid within :data:`DENSE_FIT_MAX_SIZE` points and otherwise stops with where it was and
+what to do (as the transition sd goes to 0 the grid needed grows like 1 / sd: sv-leverage with
+|delta| -> 1, where the likelihood of some data sets rises towards the edge). Standard errors come from the Hessian by central differences of the exact
 gradient, as for the closed form (:mod:`smle.fit`), and the smoothed factor with its 5%/95% band
 from the backward pass on the grid (or the Kalman smoother): no simulation anywhere.
 
@@ -94,12 +97,13 @@ def _rounded(params) -> str:
     return ", ".join(f"{n}={float(v):.4g}" for n, v in params.items())
 
 
-def _checked_run(model, params, y_jax, exact_tol):
+def _checked_run(model, params, y_jax, exact_tol, verbose=False):
     """:func:`exact_run` at ``params`` with the fit's grid limit (:data:`DENSE_FIT_MAX_SIZE` for a
     transition that uses the data); a grid beyond it stops the fit with what happened and what to do."""
     limit = DENSE_FIT_MAX_SIZE if model.transition_uses_data else SIZES[-1]
     try:
-        return exact_run(model, params, y_jax, exact_tol, max_size=limit)
+        say = (lambda text: print(f"    {text}", file=sys.stderr, flush=True)) if verbose else None
+        return exact_run(model, params, y_jax, exact_tol, max_size=limit, progress=say)
     except SmleInputError as error:
         near = [f"{n} = {float(params[n]):.4g}" for n, c in model.constraints().items()
                 if n in params and math.isfinite(c.upper - c.lower)
@@ -133,7 +137,7 @@ def _maximise(restriction: Restriction, y_jax, u, run, max_steps, gtol, verbose,
         at = natural(u)
         if verbose:
             print(f"  checking the grid at the estimate ({_rounded(at)})", file=sys.stderr, flush=True)
-        run = _checked_run(model, at, y_jax, exact_tol)
+        run = _checked_run(model, at, y_jax, exact_tol, verbose)
         moved = abs(-first["value"] * y_jax.shape[0] - run.loglik)
         if grid.size == 0 or moved <= max(10 * exact_tol, 2 * run.error_bound):
             break
@@ -195,7 +199,7 @@ def exact_reference(restriction: Restriction, y: np.ndarray, params: dict, fitte
     model = restriction.model
     y_jax = jnp.asarray(y)
     at = {n: jnp.asarray(v) for n, v in params.items()}
-    run = exact_run(model, at, y_jax, exact_tol)
+    run = _checked_run(model, at, y_jax, exact_tol)  # the exact fit's grid limit: minutes, not hours
     best, best_run, _ = _maximise(restriction, y_jax, restriction.free_start(params), run, max_steps, gtol, False,
                                   exact_tol)
     best_params = {n: float(v) for n, v in compiled_natural(restriction)(best["u"]).items()}
