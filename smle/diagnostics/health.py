@@ -24,6 +24,11 @@ reports, in a :class:`HealthReport`:
   1/sqrt(S), so ``NSE sqrt(S)`` is flat; where it is not, the report says so;
 * a verdict ('healthy', 'doubtful', 'unreliable') with the reasons in words.
 
+A state whose transition uses the data (``sv-leverage``: EIS with kernels over two consecutive
+states, :mod:`smle.engine.eis_pairs`) is checked the same way, against its exact grid filter; its
+per-period terms repeat the tail run from its seed (:func:`period_terms`), since a result keeps only
+the x_t terms of the pair kernels. Control variates are not available for it.
+
 Every random number derives from the ``seed`` argument: the seed runs use seeds
 ``seed, seed + 1, ..., seed + R - 1`` at every S, the tail run uses ``seed``.
 
