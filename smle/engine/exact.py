@@ -30,9 +30,8 @@ How the grid is chosen (:func:`choose_grid`, in Python on concrete values, befor
   filtered mass in the two outermost points on each side must stay below 1e-13 at every period,
   else the range is widened by half;
 * its spacing is ``w / 1.25``; its size the next of :data:`SIZES` (powers of two and 1.5 times
-  them, so few shapes are compiled), the spare points refining the spacing; a grid needing more
-  than 1.5 times ``max_size`` is refused at once (:class:`GridOutgrown`: as a transition sd goes to
-  0 the points needed grow like 1 / sd, and the largest grids cost minutes with nothing gained);
+  them, so few shapes are compiled), the spare points refining the spacing; one needing over 1.5
+  ``max_size`` is refused at once (:class:`GridOutgrown`: points needed grow like 1 / transition sd);
 * for large grids whose transition is time-invariant, the transition is applied as a band of
   ``2 B + 1`` entries per row around ``x_j = (x_i - intercept) / phi`` (``B`` from a 10 sd
   reach), not as a dense G x G matrix: this keeps phi = 0.999 with a small innovation scale
@@ -81,19 +80,15 @@ BAND_REACH_SDS = 10.0
 BAND_MIN_SIZE = 512
 EDGE_MASS_TOL = 1e-13
 OUTGROWN_FACTOR = 1.5
-"""A grid whose transition sd alone needs more than this many times ``max_size`` points is refused
-before it is run (:class:`GridOutgrown`): capped, its spacing would be above 1.2 transition sds,
-where the accuracy check misses any tol below about 1e-4 (measured at 1.38 sds: 6e-3, module
-docstring; sv, phi 0.995, sigma_eta 0.07 on MASS::SP500: 227 points needed, capped at 192 the
-accuracy reached was 0.066)."""
+"""Refuse (:class:`GridOutgrown`) a transition sd needing more than this times ``max_size`` points:
+capped, the spacing would exceed 1.2 sds, where the accuracy misses any tol below about 1e-4 (module
+docstring; sv on MASS::SP500, phi 0.995, sigma_eta 0.07: 227 points needed, 0.066 reached on 192)."""
 LOG_2PI = math.log(2.0 * math.pi)
 
 
 class GridOutgrown(SmleInputError):
-    """The grid the accuracy needs is more than :data:`OUTGROWN_FACTOR` times ``max_size``: typically a
-    transition standard deviation near zero (sv-leverage with |delta| near 1), whose width the grid
-    must resolve over the whole range of the state. Raised before any large grid is run (a dense
-    per-period transition on 4096 points costs T 4096^2 per pass: 388 s at T = 500, measured)."""
+    """The transition's sd needs more than :data:`OUTGROWN_FACTOR` times ``max_size`` points (sv-leverage
+    at |delta| near 1); raised before any large grid runs (experiments/results/leverage_edge.md)."""
 
     def __init__(self, message: str, transition_sd: float, needed: int):
         super().__init__(message)
@@ -315,16 +310,14 @@ def choose_grid(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_p
     sd_min = state.sigma_eta if transition_sd is None else float(transition_sd)
     width = 1.0 / math.sqrt(1.0 / sd_min**2 + kappa)
     spacing = width / (CELLS_PER_WIDTH * refine)
-    # the refusal counts the points the transition alone needs (its sd, not the curvature's rougher
-    # width): a kernel narrower than the spacing cannot be resolved whatever the observations say
+    # counted from the transition sd alone: a kernel narrower than the spacing is never resolved
     needed = (upper - lower) / (sd_min / CELLS_PER_WIDTH) + 1
     if needed > OUTGROWN_FACTOR * max_size:
         raise GridOutgrown(
             f"the exact grid would need about {needed:.0f} points (more than {OUTGROWN_FACTOR:g} times max_size = "
-            f"{max_size}): the state's transition standard deviation is {sd_min:.3g} against a range of {upper - lower:.3g} "
-            "the grid must cover, and its spacing must resolve that width; a transition sd near zero (e.g. a leverage "
-            "correlation near +-1) makes the state almost deterministic given the data. Accepted: parameters with a "
-            "larger transition sd, a larger max_size, or method='eis', which needs no grid", sd_min, int(needed))
+            f"{max_size}): the state's transition standard deviation is {sd_min:.3g} on a range of {upper - lower:.3g}; near "
+            "zero (a leverage correlation near +-1) the state is almost deterministic given the data. Accepted: a larger "
+            "transition sd, a larger max_size, or method='eis', which needs no grid", sd_min, int(needed))
     return _grid_for(lower, upper, spacing, state, max_size, transition_sd is not None)
 
 
@@ -383,8 +376,7 @@ def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_
       max_size: the largest grid tried.
       spec: start from this grid instead of :func:`choose_grid`'s.
       curvature_probe: passed to :func:`choose_grid`.
-      progress: called with one line of text per grid run (its size and the accuracy reached): a
-        large grid with a dense per-period transition takes minutes.
+      progress: called with a line per grid run (size, accuracy): large dense grids take minutes.
 
     Raises:
       GridOutgrown: the grid needed is more than :data:`OUTGROWN_FACTOR` times ``max_size`` (raised
@@ -421,8 +413,7 @@ def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_
         edge = float(max(edge, edge_coarse))
         error = float(jnp.sum(jnp.abs(log_pred - coarse_pred)))
         if progress is not None:
-            progress(f"exact grid of {spec.size} points (checked against {coarse.size}): accuracy {error:.3g}, "
-                     f"edge mass {edge:.3g}")
+            progress(f"exact grid of {spec.size} points (checked against {coarse.size}): accuracy {error:.3g}")
         if not math.isfinite(error):
             raise SmleInputError("the exact likelihood is not finite on the grid (an observation has zero "
                                  "density at every grid point); check the data and parameters")
