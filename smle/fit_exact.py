@@ -111,9 +111,9 @@ def _checked_run(model, params, y_jax, exact_tol, verbose=False):
         message = (
             f"the exact fit of '{model.name}' stopped at {_rounded(params)} (grid limit of the fit: {limit} points): "
             f"{error}. "
-            + (f"The estimate is heading to the edge of the parameter space ({', '.join(near)}): where the state's "
-               "transition sd shrinks towards zero there (sv-leverage: |delta| -> 1), the likelihood of these data "
-               "rises towards the edge, and its maximum may not be inside the parameter space. " if near else "")
+            + (f"The estimate is heading to the edge of the parameter space ({', '.join(near)}), where the state's "
+               "transition sd shrinks towards zero (sv-leverage: |delta| -> 1): the likelihood of these data may rise "
+               "towards that edge, its maximum then not inside the parameter space. " if near else "")
             + "What to do: hold the parameter at a value inside (fixed={name: value}), fit with method='eis' (no "
               "grid; its estimate then shows the edge and has no standard errors), or use more data")
         if isinstance(error, GridOutgrown):

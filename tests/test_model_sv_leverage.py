@@ -135,5 +135,5 @@ def test_a_leverage_near_one_is_refused_before_any_large_grid_runs():
     # fit that walks there, as on the seed-9 replication of experiments/eis_pairs_recovery.py,
     # stops the same way at its first grid check past the limit)
     with pytest.raises(GridOutgrown, match=r"stopped at delta=-0.9995.*edge of the parameter space \(delta = "
-                                           r"-0.9995\): .*fixed=\{name: value\}.*method='eis'"):
+                                           r"-0.9995\), where .*fixed=\{name: value\}.*method='eis'"):
         smle.fit("sv-leverage", y, method="exact", start={**TRUTH, "delta": -0.9995})
