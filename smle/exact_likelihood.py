@@ -152,8 +152,11 @@ def _probe(model: Model):
     return jax.jit(run)
 
 
-def exact_run(model: Model, params, y, tol: float = EXACT_TOL, spec: ExactGrid | None = None) -> ExactRun:
-    """The exact log-likelihood of ``model`` at ``params`` (JAX scalars by name) on ``y``."""
+def exact_run(model: Model, params, y, tol: float = EXACT_TOL, spec: ExactGrid | None = None,
+              max_size: int = exact.SIZES[-1], progress=None) -> ExactRun:
+    """The exact log-likelihood of ``model`` at ``params`` (JAX scalars by name) on ``y``; the grid
+    has at most ``max_size`` points, ``progress`` hears of each grid run
+    (:func:`smle.engine.exact.exact_filter`)."""
     y = jnp.asarray(y)
     if is_linear_gaussian(model):
         out = _kalman(model)(params, y)
@@ -162,7 +165,7 @@ def exact_run(model: Model, params, y, tol: float = EXACT_TOL, spec: ExactGrid |
     log_g = on_states(model)
     out = exact.exact_filter(model.latent(params), lambda x: log_g(params, y, x), y.shape[0], tol, spec=spec,
                              curvature_probe=lambda x: _probe(model)(params, y, x),
-                             transition=transition_of(model, params, y))
+                             transition=transition_of(model, params, y), max_size=max_size, progress=progress)
     return ExactRun(float(out.loglik), np.asarray(out.log_predictive), np.asarray(out.filtered_mean),
                     np.asarray(out.filtered_sd), float(out.error_bound), int(out.size), "grid filter", out.spec)
 

@@ -7,7 +7,10 @@ JAX differentiates it exactly). L-BFGS maximises it; at the estimate the grid is
 checked afresh (:func:`smle.exact_likelihood.exact_run`), and if that grid differs from the one
 the optimiser used by more than the accuracy asked for, the optimiser continues on the new grid
 (at most :data:`MAX_GRID_PASSES` times). The log-likelihood reported is the checked one, with its
-error bound. Standard errors come from the Hessian by central differences of the exact
+error bound. A transition that uses the data has a dense G x G kernel per period, so such a fit
+keeps its grid within :data:`DENSE_FIT_MAX_SIZE` points and otherwise stops with where it was and
+what to do (as the transition sd goes to 0 the grid needed grows like 1 / sd: sv-leverage with
+|delta| -> 1, where the likelihood of some data sets rises towards the edge). Standard errors come from the Hessian by central differences of the exact
 gradient, as for the closed form (:mod:`smle.fit`), and the smoothed factor with its 5%/95% band
 from the backward pass on the grid (or the Kalman smoother): no simulation anywhere.
 
@@ -25,6 +28,8 @@ import jax
 import jax.numpy as jnp
 import numpy as np
 
+from smle.engine.exact import SIZES, GridOutgrown
+from smle.errors import SmleInputError
 from smle.exact_likelihood import (
     MovingGrid, exact_run, is_linear_gaussian, kalman_loglik_of, moving_grid_loglik, smoothed_band,
 )
@@ -34,6 +39,13 @@ from smle.restricted import Restriction, compiled_natural, estimates_at
 from smle.results import FitResult
 
 MAX_GRID_PASSES = 3
+DENSE_FIT_MAX_SIZE = 1024
+"""Largest grid of a fit whose transition uses the data (a dense G x G kernel per period, rebuilt in
+the gradient): measured at T = 500 on a shared core, 2 s per evaluation at 512 points and 388 s
+for one checked run on 4096; the cost grows like T G^2, so a fit on the largest grids would take
+hours. A grid needing more than 1.5 times it stops the fit at once
+(:class:`~smle.engine.exact.GridOutgrown`), a smaller excess after the accuracy check; for
+sv-leverage with sigma_eta 0.12 the limit is near |delta| = 0.985 (1135 points needed at 0.99)."""
 KALMAN = MovingGrid(0.0, 0.0, 0, 0)
 """The 'grid' of a linear Gaussian model: none (the Kalman filter)."""
 
@@ -75,6 +87,40 @@ def _evaluator(restriction, grid: MovingGrid, y, verbose):
     return evaluate
 
 
+EDGE_FRACTION = 0.005
+"""A parameter this close to a finite bound (as a fraction of its interval) is named in the message of
+a fit stopped by its grid (the seed-9 replication of experiments/eis_pairs_recovery.py stopped at
+delta = -0.9949, phi = 0.9856: delta is named, phi is not)."""
+
+
+def _rounded(params) -> str:
+    return ", ".join(f"{n}={float(v):.4g}" for n, v in params.items())
+
+
+def _checked_run(model, params, y_jax, exact_tol, verbose=False):
+    """:func:`exact_run` at ``params`` with the fit's grid limit (:data:`DENSE_FIT_MAX_SIZE` for a
+    transition that uses the data); a grid beyond it stops the fit with what happened and what to do."""
+    limit = DENSE_FIT_MAX_SIZE if model.transition_uses_data else SIZES[-1]
+    try:
+        say = (lambda text: print(f"    {text}", file=sys.stderr, flush=True)) if verbose else None
+        return exact_run(model, params, y_jax, exact_tol, max_size=limit, progress=say)
+    except SmleInputError as error:
+        near = [f"{n} = {float(params[n]):.4g}" for n, c in model.constraints().items()
+                if n in params and math.isfinite(c.upper - c.lower)
+                and min(abs(float(params[n]) - c.lower), abs(c.upper - float(params[n]))) < EDGE_FRACTION * (c.upper - c.lower)]
+        message = (
+            f"the exact fit of '{model.name}' stopped at {_rounded(params)} (grid limit of the fit: {limit} points): "
+            f"{error}. "
+            + (f"The estimate is heading to the edge of the parameter space ({', '.join(near)}), where the state's "
+               "transition sd shrinks towards zero (sv-leverage: |delta| -> 1): the likelihood of these data may rise "
+               "towards that edge, its maximum then not inside the parameter space. " if near else "")
+            + "What to do: hold the parameter at a value inside (fixed={name: value}), fit with method='eis' (no "
+              "grid; its estimate then shows the edge and has no standard errors), or use more data")
+        if isinstance(error, GridOutgrown):
+            raise GridOutgrown(message, error.transition_sd, error.needed) from None
+        raise SmleInputError(message) from None
+
+
 def _maximise(restriction: Restriction, y_jax, u, run, max_steps, gtol, verbose, exact_tol):
     """L-BFGS from ``u`` on the grid of ``run`` (the checked run at ``u``), re-checking the grid at
     the estimate (see the module docstring). Returns the optimiser's record (steps and evaluations
@@ -89,7 +135,9 @@ def _maximise(restriction: Restriction, y_jax, u, run, max_steps, gtol, verbose,
         steps, evaluations = steps + first["steps"], evaluations + first["evaluations"]
         u = first["u"]
         at = natural(u)
-        run = exact_run(model, at, y_jax, exact_tol)
+        if verbose:
+            print(f"  checking the grid at the estimate ({_rounded(at)})", file=sys.stderr, flush=True)
+        run = _checked_run(model, at, y_jax, exact_tol, verbose)
         moved = abs(-first["value"] * y_jax.shape[0] - run.loglik)
         if grid.size == 0 or moved <= max(10 * exact_tol, 2 * run.error_bound):
             break
@@ -107,7 +155,7 @@ def fit_exact(restriction: Restriction, y: np.ndarray, start_params, max_steps, 
     y_jax = jnp.asarray(y)
     n_periods = y.shape[0]
     u = restriction.free_start(start_params)
-    run = exact_run(model, compiled_natural(restriction)(u), y_jax, exact_tol)
+    run = _checked_run(model, compiled_natural(restriction)(u), y_jax, exact_tol)
     if verbose:
         engine = "the Kalman filter" if is_linear_gaussian(model) else "the exact grid filter"
         print(f"fitting '{model.name}' to {n_periods} periods by {engine}", file=sys.stderr, flush=True)
@@ -151,7 +199,7 @@ def exact_reference(restriction: Restriction, y: np.ndarray, params: dict, fitte
     model = restriction.model
     y_jax = jnp.asarray(y)
     at = {n: jnp.asarray(v) for n, v in params.items()}
-    run = exact_run(model, at, y_jax, exact_tol)
+    run = _checked_run(model, at, y_jax, exact_tol)  # the exact fit's grid limit: minutes, not hours
     best, best_run, _ = _maximise(restriction, y_jax, restriction.free_start(params), run, max_steps, gtol, False,
                                   exact_tol)
     best_params = {n: float(v) for n, v in compiled_natural(restriction)(best["u"]).items()}

@@ -149,9 +149,9 @@ def test_what_is_not_covered_is_refused_clearly(route):
     elif route == "control_variates":
         with pytest.raises(SmleInputError, match="not yet available for EIS over two consecutive states"):
             smle.loglik("sv-leverage", TRUTH, y, method="eis", control_variates="draws")
-    elif route == "check":
-        with pytest.raises(SmleInputError, match="smle.check is not yet available for model 'sv-leverage'"):
-            smle.check("sv-leverage", TRUTH, y)
+    elif route == "check":  # the health check covers pair kernels (tests/test_health.py), not their control variates
+        with pytest.raises(SmleInputError, match="not yet available for EIS over two consecutive states"):
+            smle.check("sv-leverage", TRUTH, y, control_variates="draws")
     else:
         class GridOnly(LeverageStochasticVolatility):  # a transition given on a grid only
             path_transition = Model.path_transition

@@ -118,3 +118,22 @@ def test_the_gradient_of_a_time_varying_transition_keeps_no_kernel_per_period():
         step = jnp.zeros_like(point).at[i].set(1e-5)
         assert float(gradient[i]) == pytest.approx(float(value(point + step) - value(point - step)) / 2e-5,
                                                    rel=1e-5, abs=1e-5)
+
+
+def test_a_leverage_near_one_is_refused_before_any_large_grid_runs():
+    # as |delta| -> 1 the transition sd sigma_eta sqrt(1 - delta^2) -> 0 and the grid the exact filter
+    # needs grows like 1 / sd: here about 8000 points (sd 0.002), twice the largest. Before, the
+    # largest grid was run anyway (a dense 4096 x 4096 kernel per period: 388 s for one checked
+    # likelihood at T = 500, measured) and then missed its accuracy; now it is refused at the grid choice
+    from smle.engine.exact import GridOutgrown
+
+    y, _ = smle.simulate("sv-leverage", TRUTH, 100, seed=2)
+    with pytest.raises(GridOutgrown, match=r"would need about \d+ points .* transition standard deviation is 0.002 "):
+        smle.loglik("sv-leverage", {**TRUTH, "delta": -0.99995}, y, method="exact")
+    # the exact fit, whose grid limit is 1024 points (about 2600 needed at delta = -0.9995), says where
+    # it stopped, why, and what to do (here from a start at the edge: a
+    # fit that walks there, as on the seed-9 replication of experiments/eis_pairs_recovery.py,
+    # stops the same way at its first grid check past the limit)
+    with pytest.raises(GridOutgrown, match=r"stopped at delta=-0.9995.*edge of the parameter space \(delta = "
+                                           r"-0.9995\), where .*fixed=\{name: value\}.*method='eis'"):
+        smle.fit("sv-leverage", y, method="exact", start={**TRUTH, "delta": -0.9995})

@@ -170,10 +170,6 @@ def _demo_simulated_against_exact(model, observations, args, held) -> None:
     folder.mkdir(parents=True, exist_ok=True)
     simulated.to_json(folder / "result.json")
     (folder / "summary.txt").write_text(simulated.summary() + "\n")
-    if model.transition_uses_data:  # smle.check does not cover pair kernels yet; the summary has the exact comparison
-        print(f"\nEIS fit written to {folder}/ (result.json, summary.txt); smle.check is not yet available for a "
-              "transition that uses the data")
-        return
     report = smle.check(model, simulated.params, observations.values, n_draws=args.draws, n_seeds=5, seed=args.seed,
                         tail_draws=500, draws_grid=None, dates=observations.dates)
     print()

@@ -24,6 +24,11 @@ reports, in a :class:`HealthReport`:
   1/sqrt(S), so ``NSE sqrt(S)`` is flat; where it is not, the report says so;
 * a verdict ('healthy', 'doubtful', 'unreliable') with the reasons in words.
 
+A state whose transition uses the data (``sv-leverage``: EIS with kernels over two consecutive
+states, :mod:`smle.engine.eis_pairs`) is checked the same way, against its exact grid filter; its
+per-period terms repeat the tail run from its seed (:func:`period_terms`), since a result keeps only
+the x_t terms of the pair kernels. Control variates are not available for it.
+
 Every random number derives from the ``seed`` argument: the seed runs use seeds
 ``seed, seed + 1, ..., seed + R - 1`` at every S, the tail run uses ``seed``.
 
@@ -40,28 +45,23 @@ References:
 
 from __future__ import annotations
 
-import functools
 import math
 from typing import Callable, Mapping, NamedTuple, Sequence
 
-import jax
-import jax.numpy as jnp
 import numpy as np
 from scipy import stats
 
 from smle.diagnostics import health_exact, health_findings, weight_tail
+from smle.diagnostics.health_terms import period_terms, variance_shares
 from smle.diagnostics.health_report import (  # noqa: F401 (the report's names are the check's too)
     AGREEMENT_LEVEL, DEGENERATE_SPREAD, FULL_TAIL_DRAWS, MIN_SEEDS, MIN_TAIL_DRAWS, NSE_LIMIT, SCALING_MIN_SEEDS,
     TOP_PERIODS, HealthReport, Period, ScalingRow,
 )
-from smle.engine import eis, eis_multi
-from smle.engine.multi_sampler import period_log_weights
 from smle.errors import SmleInputError, describe
-from smle.likelihood import LoglikResult, loglik
+from smle.likelihood import loglik
 from smle.models.base import model_options
 from smle.validation import (
     MIN_DRAWS, check_control, check_integer, check_seed, check_settings, check_state_settings, checked_inputs,
-    jax_params,
 )
 
 # ---------------------------------------------------------------------------------------------
@@ -113,51 +113,6 @@ class EstimatorBreakdown(FloatingPointError):
     """The health check met a run with a non-finite estimate: the likelihood is unreliable there."""
 
 
-@functools.lru_cache(maxsize=None)
-def _period_terms_function(model):
-    """Compiled ``(params, y, b_obs, c_obs, paths) -> per-period log-weight terms, (T, S)``."""
-
-    def run(params, y, b_obs, c_obs, paths):
-        data = model.prepare(params, y)
-        log_obs = model.log_obs_density(params, data, paths)
-        if model.state_dim > 1:
-            k = model.state_dim
-            pairs = eis_multi.check_pairs(model.pairs() or eis_multi.full_pairs(k), k)
-            sampler = eis_multi.assemble(model.latent_var(params), eis_multi.AuxiliaryMulti(b_obs, c_obs), pairs)
-            return period_log_weights(sampler, log_obs, paths)
-        sampler = eis.assemble(model.latent(params), eis.Auxiliary(b_obs, c_obs))
-        return eis.period_log_weights(sampler, log_obs, paths)
-
-    return jax.jit(run)
-
-
-def period_terms(model, params: Mapping, y, result: LoglikResult) -> np.ndarray:
-    """Per-period terms of the log weights of ``result``'s scoring paths, shape (T, S).
-
-    ``log w = log chi_1 + sum_t term_t``: term_t is ``log g_t(x_t)`` minus the sampler's Gaussian
-    kernel of period t (the chi_{t+1} integrating constant included), evaluated at the paths.
-    """
-    model, checked, y = checked_inputs(model, params, y)
-    terms = _period_terms_function(model)(jax_params(checked), jnp.asarray(y), jnp.asarray(result.b_obs),
-                                          jnp.asarray(result.c_obs), jnp.asarray(result.paths))
-    return np.asarray(terms)
-
-
-def variance_shares(terms: np.ndarray) -> np.ndarray:
-    """Covariance share of each period in the variance of the total log weight, shape (T,).
-
-    ``share_t = cov(term_t, sum_s term_s) / var(sum_s term_s)`` across draws: the shares sum to
-    one, a period with a large positive share moves the total log weight, a negative share damps it.
-    """
-    total = terms.sum(axis=0)
-    centred_total = total - total.mean()
-    variance = float(np.mean(centred_total**2))
-    if variance <= 0.0:
-        return np.zeros(terms.shape[0])
-    covariance = (terms - terms.mean(axis=1, keepdims=True)) @ centred_total / terms.shape[1]
-    return covariance / variance
-
-
 def _chi2_sd_interval(sd: float, n: int, level: float) -> tuple[float, float]:
     """Interval for a normal sd from the sample sd of n values, two-sided at ``level``."""
     dof = n - 1
@@ -175,10 +130,6 @@ def _checked_arguments(model, params, y, n_draws, n_seeds, seed, tail_draws, dra
     """The arguments of :func:`check`, validated: ``(model, params, y, settings, n_seeds, seed,
     tail_draws, grid, labels)``."""
     resolved, checked, y_array = checked_inputs(model, params, y)
-    if resolved.transition_uses_data:  # its per-period weight terms need the pair kernels' cross terms
-        raise SmleInputError(f"smle.check is not yet available for model '{resolved.name}', whose state's transition "
-                             "uses the data (EIS over two consecutive states); accepted: smle.loglik(..., "
-                             "method='eis') with several seeds, or the exact method")
     settings = check_settings(n_draws, antithetic, tol, max_iter)
     check_state_settings(resolved, settings)
     n_seeds = check_integer("n_seeds", n_seeds, MIN_SEEDS, "independent seeds for the spread; 20 or more is better")
@@ -356,7 +307,7 @@ def _report(model, checked, y, settings, seeds, main, r_squared, tail_result, ta
     if degenerate:
         shares = np.zeros(y.shape[0])
     else:
-        shares = variance_shares(period_terms(model, checked, y, tail_result))
+        shares = variance_shares(period_terms(model, checked, y, tail_result, settings.tol, settings.max_iter))
     tail_r2 = np.asarray(tail_result.r_squared)
     order = np.argsort(-shares)[:TOP_PERIODS]
     top = [Period(int(i), labels[i] if labels else "", float(shares[i]), float(tail_r2[i])) for i in order]

@@ -30,7 +30,8 @@ How the grid is chosen (:func:`choose_grid`, in Python on concrete values, befor
   filtered mass in the two outermost points on each side must stay below 1e-13 at every period,
   else the range is widened by half;
 * its spacing is ``w / 1.25``; its size the next of :data:`SIZES` (powers of two and 1.5 times
-  them, so few shapes are compiled), the spare points refining the spacing;
+  them, so few shapes are compiled), the spare points refining the spacing; one needing over 1.5
+  ``max_size`` is refused at once (:class:`GridOutgrown`: points needed grow like 1 / transition sd);
 * for large grids whose transition is time-invariant, the transition is applied as a band of
   ``2 B + 1`` entries per row around ``x_j = (x_i - intercept) / phi`` (``B`` from a 10 sd
   reach), not as a dense G x G matrix: this keeps phi = 0.999 with a small innovation scale
@@ -78,7 +79,20 @@ STATIONARY_SDS = 8.0
 BAND_REACH_SDS = 10.0
 BAND_MIN_SIZE = 512
 EDGE_MASS_TOL = 1e-13
+OUTGROWN_FACTOR = 1.5
+"""Refuse (:class:`GridOutgrown`) a transition sd needing more than this times ``max_size`` points:
+capped, the spacing would exceed 1.2 sds, where the accuracy misses any tol below about 1e-4 (module
+docstring; sv on MASS::SP500, phi 0.995, sigma_eta 0.07: 227 points needed, 0.066 reached on 192)."""
 LOG_2PI = math.log(2.0 * math.pi)
+
+
+class GridOutgrown(SmleInputError):
+    """The transition's sd needs more than :data:`OUTGROWN_FACTOR` times ``max_size`` points (sv-leverage
+    at |delta| near 1); raised before any large grid runs (experiments/results/leverage_edge.md)."""
+
+    def __init__(self, message: str, transition_sd: float, needed: int):
+        super().__init__(message)
+        self.transition_sd, self.needed = transition_sd, needed
 
 
 class ExactGrid(NamedTuple):
@@ -273,7 +287,8 @@ def choose_grid(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_p
       transition_sd: the smallest transition standard deviation of a per-period transition
         (default: ``state.sigma_eta``).
       refine: divide the spacing by this factor (the accuracy loop doubles it).
-      max_size: the largest grid allowed.
+      max_size: the largest grid allowed; a grid needing more than :data:`OUTGROWN_FACTOR` times it
+        raises :class:`GridOutgrown`, a smaller excess is capped and left to the accuracy check.
       curvature_probe: x -> :func:`log_g_and_curvature` of ``log_obs`` at x, compiled by the caller (default:
         compiled here, once per call).
     """
@@ -294,7 +309,16 @@ def choose_grid(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_p
     upper = max(high + probe_step, mean0 + STATIONARY_SDS * sd0)
     sd_min = state.sigma_eta if transition_sd is None else float(transition_sd)
     width = 1.0 / math.sqrt(1.0 / sd_min**2 + kappa)
-    return _grid_for(lower, upper, width / (CELLS_PER_WIDTH * refine), state, max_size, transition_sd is not None)
+    spacing = width / (CELLS_PER_WIDTH * refine)
+    # counted from the transition sd alone: a kernel narrower than the spacing is never resolved
+    needed = (upper - lower) / (sd_min / CELLS_PER_WIDTH) + 1
+    if needed > OUTGROWN_FACTOR * max_size:
+        raise GridOutgrown(
+            f"the exact grid would need about {needed:.0f} points (more than {OUTGROWN_FACTOR:g} times max_size = "
+            f"{max_size}): the state's transition standard deviation is {sd_min:.3g} on a range of {upper - lower:.3g}; near "
+            "zero (a leverage correlation near +-1) the state is almost deterministic given the data. Accepted: a larger "
+            "transition sd, a larger max_size, or method='eis', which needs no grid", sd_min, int(needed))
+    return _grid_for(lower, upper, spacing, state, max_size, transition_sd is not None)
 
 
 @jax.jit
@@ -338,7 +362,8 @@ def _band_for(size, spacing, state, time_varying) -> int:
 def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_periods: int, tol: float = 1e-6,
                  transition: Callable[[jax.Array], PeriodTransition] | None = None,
                  max_size: int = SIZES[-1], spec: ExactGrid | None = None,
-                 curvature_probe: Callable | None = None) -> ExactFilterOutput:
+                 curvature_probe: Callable | None = None,
+                 progress: Callable[[str], None] | None = None) -> ExactFilterOutput:
     """The exact log-likelihood with an automatic, checked grid.
 
     Args:
@@ -351,8 +376,11 @@ def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_
       max_size: the largest grid tried.
       spec: start from this grid instead of :func:`choose_grid`'s.
       curvature_probe: passed to :func:`choose_grid`.
+      progress: called with a line per grid run (size, accuracy): large dense grids take minutes.
 
     Raises:
+      GridOutgrown: the grid needed is more than :data:`OUTGROWN_FACTOR` times ``max_size`` (raised
+        before any large grid is run).
       SmleInputError: the accuracy ``tol`` is not reached within ``max_size`` points (the message
         gives the accuracy reached), or the state is not stationary.
     """
@@ -384,6 +412,8 @@ def exact_filter(state: LatentAR1, log_obs: Callable[[jax.Array], jax.Array], n_
         (log_pred, mean, sd, edge), (coarse_pred, *_rest, edge_coarse) = run_on(spec), run_on(coarse)
         edge = float(max(edge, edge_coarse))
         error = float(jnp.sum(jnp.abs(log_pred - coarse_pred)))
+        if progress is not None:
+            progress(f"exact grid of {spec.size} points (checked against {coarse.size}): accuracy {error:.3g}")
         if not math.isfinite(error):
             raise SmleInputError("the exact likelihood is not finite on the grid (an observation has zero "
                                  "density at every grid point); check the data and parameters")
