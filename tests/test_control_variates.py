@@ -139,8 +139,9 @@ def test_corrected_objective_gradient_matches_finite_differences():
 def test_larger_scoring_set(garch_data):
     # the sampler is fitted on 64 draws and scored on 512: log weights of that size, an NSE
     # smaller by about sqrt(8) (measured ratio 0.3-0.4 over seeds; required below 0.7)
-    small = smle.loglik("garch-mix", GARCH, garch_data, n_draws=64, seed=3, method="eis", **MEASURED_AT)
-    large = smle.loglik("garch-mix", GARCH, garch_data, n_draws=64, seed=3, method="eis", **{**MEASURED_AT, "n_score_draws": 512})
+    small = smle.loglik("garch-mix", GARCH, garch_data, n_draws=64, seed=3, method="eis", scoring="paths", **MEASURED_AT)
+    large = smle.loglik("garch-mix", GARCH, garch_data, n_draws=64, seed=3, method="eis", scoring="paths",
+                        **{**MEASURED_AT, "n_score_draws": 512})
     assert large.log_weights.shape == (512,) and large.paths.shape == (500, 512)
     assert large.n_score_draws == 512 and small.n_score_draws == 64
     assert large.nse < 0.7 * small.nse

@@ -175,7 +175,8 @@ def no_engine(monkeypatch):
         raise AssertionError("the run reached the engine: its size was not refused")
 
     filtering = importlib.import_module("smle.diagnostics.filtering")
-    for module, name in ((likelihood, "eis_entry"), (likelihood, "_simulate_jit"), (fit, "_fit_one"),
+    for module, name in ((likelihood, "eis_entry"), (likelihood, "compiled_particle_eis"), (likelihood, "_simulate_jit"),
+                         (fit, "_fit_one"),
                          (health, "_seed_run"), (filtering, "compiled_filter")):
         monkeypatch.setattr(module, name, reached)
 
