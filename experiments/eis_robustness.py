@@ -85,10 +85,10 @@ def exact_value(model, params, y):
     return value, abs(value - previous)
 
 
-def evaluate(model, params, y, seed):
+def evaluate(model, params, y, seed, scoring="auto"):
     start = time.perf_counter()
     try:
-        result = smle.loglik(model, params, y, seed=seed)
+        result = smle.loglik(model, params, y, seed=seed, method="eis", scoring=scoring)
     except Exception as error:  # noqa: BLE001 -- what was raised is the measurement
         return {"status": "error", "error": f"{type(error).__name__}: {error}"[:300],
                 "seconds": time.perf_counter() - start}
@@ -100,7 +100,7 @@ def evaluate(model, params, y, seed):
     return out
 
 
-def run(label: str, n_per_model: int, write: bool):
+def run(label: str, n_per_model: int, write: bool, scoring: str = "auto"):
     grid_file = RESULTS / "eis_robustness_grid.json"
     grid_cache = json.loads(grid_file.read_text()) if grid_file.exists() else {}
     rows = []
@@ -112,7 +112,7 @@ def run(label: str, n_per_model: int, write: bool):
                 value, check = exact_value(model, params, y)
                 grid_cache[key] = {"exact": value, "grid_check": check}
             row = {"model": model, "index": index, "params": params, **grid_cache[key],
-                   **evaluate(model, params, y, seed=index)}
+                   **evaluate(model, params, y, seed=index, scoring=scoring)}
             if "value" in row:
                 tolerance = max(5.0 * row["nse"], 0.5)
                 row["status"] = "ok" if abs(row["value"] - row["exact"]) <= tolerance else "off"
@@ -183,5 +183,7 @@ if __name__ == "__main__":
     parser.add_argument("--label", default="after")
     parser.add_argument("--n", type=int, default=200)
     parser.add_argument("--quick", action="store_true")
+    parser.add_argument("--scoring", default="auto", choices=("auto", "paths", "particles"),
+                        help="smle.loglik's scoring (method='eis'; runs before particle scoring used the paths)")
     args = parser.parse_args()
-    run(args.label, 10 if args.quick else args.n, write=not args.quick)
+    run(args.label, 10 if args.quick else args.n, write=not args.quick, scoring=args.scoring)

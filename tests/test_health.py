@@ -35,7 +35,7 @@ PARAMS = JPR_DESIGNS["phi=0.95"]
 N_SEEDS = 10
 # the check's seed runs are smle.loglik with both draw sets of n_draws paths and the check's own
 # iteration rule (its defaults, not loglik's): the direct computations below use the same
-CHECK_RUN = {"n_score_draws": None, **{name: inspect.signature(smle.check).parameters[name].default
+CHECK_RUN = {"n_score_draws": None, "scoring": "paths", **{name: inspect.signature(smle.check).parameters[name].default
                                        for name in ("tol", "max_iter")}}
 
 

@@ -35,7 +35,7 @@ LAYERS = [
                     "smle.report_text"]),
     ("engine", ["smle.engine"]),
     ("models", ["smle.models"]),
-    ("likelihood", ["smle.validation", "smle.exact_likelihood", "smle.likelihood"]),
+    ("likelihood", ["smle.validation", "smle.exact_likelihood", "smle.likelihood_result", "smle.likelihood"]),
     ("reference", ["smle.reference"]),
     ("fitting", ["smle.optimizer", "smle.fit", "smle.fit_exact", "smle.results", "smle.restricted"]),
     ("diagnostics", ["smle.diagnostics"]),

@@ -19,7 +19,7 @@ from smle.pareto_tail import pareto_k_hat
 
 SV = dict(mu=-7.36, phi=0.95, sigma_eta=0.26)
 # the health check's run settings (tests/test_health.py uses the same: one compiled shape)
-CHECK_RUN = {"n_score_draws": None, **{name: inspect.signature(smle.check).parameters[name].default
+CHECK_RUN = {"n_score_draws": None, "scoring": "paths", **{name: inspect.signature(smle.check).parameters[name].default
                                        for name in ("tol", "max_iter")}}
 
 
@@ -29,7 +29,7 @@ def test_the_k_hat_reported_is_the_tail_fit_of_the_scoring_weights():
     assert result.log_weights.size >= 100  # the default scoring set is large enough for a tail fit
     assert result.k_hat == pytest.approx(pareto_k_hat(result.log_weights).k_hat, abs=1e-12)
     assert result.nse_trusted == (result.k_hat < K_HAT_UNTRUSTED)
-    small = smle.loglik("sv", SV, y, method="eis", scoring="paths", seed=1, n_draws=64, **CHECK_RUN)  # 64 weights: no tail fit
+    small = smle.loglik("sv", SV, y, method="eis", seed=1, n_draws=64, **CHECK_RUN)  # 64 weights: no tail fit
     assert small.k_hat is None and small.nse_trusted
 
 

@@ -131,40 +131,14 @@ def _block_variance(log_w: jax.Array, antithetic: bool) -> jax.Array:
     return (n * jnp.sum(units**2) - 1.0) / (n - 1)
 
 
-def particle_eis_loglik(
-    state: LatentAR1,
-    log_obs_fn,
-    period_log_obs_fn,
-    obs_args,
-    guess: jax.Array,
-    key: jax.Array,
-    settings: EISSettings,
-    resample_threshold: float = RESAMPLE_THRESHOLD,
-) -> ParticleOutput:
-    """Particle EIS estimate of the log-likelihood (see the module docstring).
+def _particle_step(period_log_obs_fn, obs_args, n: int, antithetic: bool, resample_threshold: float):
+    """The scan step of :func:`particle_eis_loglik`: resample (when due), move, weight, one period.
 
-    Args:
-      state, log_obs_fn, obs_args, guess, settings: as for :func:`smle.engine.eis.eis_loglik`
-        (``settings.score_draws`` is the number of particles S).
-      period_log_obs_fn: ``period_log_obs_fn(obs_args, t, x)``: log g_t at the states x of shape
-        (S,) for period t (traced), shape (S,).
-      key: JAX PRNG key (fitting draws, particle normals and resampling uniforms derive from it).
-      resample_threshold: resample when the ESS of the carried weights is below this fraction of S
-        (static; 1.0 resamples every period).
-
-    References:
-      Scharth and Kohn (2016), J. Econometrics 190; Guarniero, Johansen and Lee (2017), JASA 112;
-      Lee and Whiteley (2018), Biometrika 105; Kitagawa (1996), J. Comput. Graph. Statist. 5.
+    carry: (particles, normalised log weights, Eve indices, summed block variance, resamplings);
+    outputs: (log mean of the incremental weights, their ESS, the rounding magnitude of the terms).
     """
-    n_periods = guess.shape[0]
-    fit_normals, normals, uniforms = particle_normals(key, n_periods, settings)
-    auxiliary, info = fit_auxiliary(state, log_obs_fn, obs_args, fit_normals, guess, settings)
-    sampler = assemble(state, auxiliary)
-    n = settings.score_draws
-    antithetic = settings.antithetic
     n_units = n // 2 if antithetic else n
     log_n = math.log(n)
-    scale = jax.lax.rsqrt(sampler.precision)
     every_period = resample_threshold >= 1.0
 
     def step(carry, inputs):
@@ -202,6 +176,44 @@ def particle_eis_loglik(
         carry = (current, log_w, eves, block_var, resamplings + resample.astype(jnp.int32))
         return carry, (log_mean, increment_ess, jnp.where(jnp.isfinite(magnitude), magnitude, 0.0))
 
+    return step
+
+
+def particle_eis_loglik(
+    state: LatentAR1,
+    log_obs_fn,
+    period_log_obs_fn,
+    obs_args,
+    guess: jax.Array,
+    key: jax.Array,
+    settings: EISSettings,
+    resample_threshold: float = RESAMPLE_THRESHOLD,
+) -> ParticleOutput:
+    """Particle EIS estimate of the log-likelihood (see the module docstring).
+
+    Args:
+      state, log_obs_fn, obs_args, guess, settings: as for :func:`smle.engine.eis.eis_loglik`
+        (``settings.score_draws`` is the number of particles S).
+      period_log_obs_fn: ``period_log_obs_fn(obs_args, t, x)``: log g_t at the states x of shape
+        (S,) for period t (traced), shape (S,).
+      key: JAX PRNG key (fitting draws, particle normals and resampling uniforms derive from it).
+      resample_threshold: resample when the ESS of the carried weights is below this fraction of S
+        (static; 1.0 resamples every period).
+
+    References:
+      Scharth and Kohn (2016), J. Econometrics 190; Guarniero, Johansen and Lee (2017), JASA 112;
+      Lee and Whiteley (2018), Biometrika 105; Kitagawa (1996), J. Comput. Graph. Statist. 5.
+    """
+    n_periods = guess.shape[0]
+    fit_normals, normals, uniforms = particle_normals(key, n_periods, settings)
+    auxiliary, info = fit_auxiliary(state, log_obs_fn, obs_args, fit_normals, guess, settings)
+    sampler = assemble(state, auxiliary)
+    n = settings.score_draws
+    antithetic = settings.antithetic
+    log_n = math.log(n)
+    scale = jax.lax.rsqrt(sampler.precision)
+
+    step = _particle_step(period_log_obs_fn, obs_args, n, antithetic, resample_threshold)
     dtype = sampler.precision.dtype
     init = (jnp.zeros((n,), dtype), jnp.full((n,), -log_n, dtype), jnp.arange(n, dtype=jnp.int32),
             jnp.zeros((), dtype), jnp.zeros((), jnp.int32))
