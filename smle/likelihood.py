@@ -158,7 +158,12 @@ def loglik(
         if not math.isfinite(float(extra["value"])):
             raise EISBreakdownError(f"the EIS log-likelihood of model '{model.name}' is not finite at params={checked}")
     else:
-        out, diagnostics, extra, settings, path_repairs = _checked_run(model, settings, control, checked, y, key)
+        try:
+            out, diagnostics, extra, settings, path_repairs = _checked_run(model, settings, control, checked, y, key)
+        except EISBreakdownError as error:
+            if not repairs:
+                raise
+            raise EISBreakdownError(f"{repairs[0]}, and {error}") from None
         repairs = repairs + path_repairs
     value = float(extra["value"])
     facts = control_facts(control, settings.antithetic, out, honest_nse(diagnostics), extra)
