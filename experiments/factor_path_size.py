@@ -47,8 +47,8 @@ LAGS = (5, 10, 20)
 
 
 def sir_path(model, params, y, seed: int, score_draws: int | None = None) -> np.ndarray:
-    lik = smle.loglik(model, params, y, n_draws=64, seed=0, antithetic=True, tol=1e-8, max_iter=100,
-                      n_score_draws=score_draws)
+    lik = smle.loglik(model, params, y, method="eis", scoring="paths", n_draws=64, seed=0, antithetic=True,
+                      tol=1e-8, max_iter=100, n_score_draws=score_draws)
     weights = np.exp(lik.log_weights - lik.log_weights.max())
     index = np.random.default_rng(seed).choice(weights.shape[0], p=weights / weights.sum())
     return np.asarray(lik.paths[:, index], float)

@@ -42,7 +42,7 @@ import jax.numpy as jnp
 import numpy as np
 from jax.scipy.linalg import solve_triangular
 
-from smle.engine.eis_multi import _period_derivatives
+from smle.engine.eis_multi import period_derivatives
 from smle.engine.multi_basis import SMALL_DIM
 from smle.engine.posterior import path_quantiles, weighted_quantiles
 from smle.likelihood import loglik
@@ -74,7 +74,7 @@ def proposal_kernels_multi(model, params: Mapping, data, n_steps: int = NEWTON_S
 
     def newton(z, _):
         x = state.init_mean + z @ root.T
-        first, hessian = _period_derivatives(log_obs, x)
+        first, hessian = period_derivatives(log_obs, x)
         curvature = _psd(-hessian, 0.0)
         gradient = first @ root - z  # d/dz of log g(m + L z) - |z|^2 / 2
         precision = eye + root.T @ curvature @ root
@@ -85,7 +85,7 @@ def proposal_kernels_multi(model, params: Mapping, data, n_steps: int = NEWTON_S
     start = solve_triangular(root, (guess - state.init_mean).T, lower=True).T
     z, _ = jax.lax.scan(newton, start, None, length=n_steps)
     mode = state.init_mean + z @ root.T
-    first, hessian = _period_derivatives(log_obs, mode)
+    first, hessian = period_derivatives(log_obs, mode)
     curvature = _psd(-hessian, min_curvature)
     return first + jnp.einsum("tij,tj->ti", curvature, mode), curvature
 

@@ -69,6 +69,7 @@ __all__ = [
     "log_weights",
     "mean_path",
     "newton_start",
+    "period_derivatives",
     "standard_normals",
     "star_pairs",
     "weight_diagnostics",
@@ -96,7 +97,7 @@ class EISMultiOutput(NamedTuple):
     info: EISMultiInfo
 
 
-def _period_derivatives(log_obs_fn, point: jax.Array):
+def period_derivatives(log_obs_fn, point: jax.Array):
     """Gradient (T, k) and Hessian (T, k, k) of log g_t at one path (T, k), period by period."""
     k = point.shape[-1]
     grad_fn = jax.grad(lambda v: jnp.sum(log_obs_fn(v[:, None, :])))
@@ -119,7 +120,7 @@ def newton_start(state: LatentVAR1, log_obs_fn, guess: jax.Array, n_newton: int,
     rows, cols = pair_index(pairs)
 
     def expand(point):
-        first, hessian = _period_derivatives(log_obs_fn, point)
+        first, hessian = period_derivatives(log_obs_fn, point)
         curvature = symmetric_from_pairs(-hessian[..., rows, cols], pairs, k)
         # a period whose curvature is not positive definite is shifted by its Gershgorin bound
         # (cheap, and enough for a start: the EIS iterations refit it)
