@@ -110,7 +110,8 @@ class LoglikResult:
         ``smle.filter_factor`` for its smoothed factor.)"""
         if self.method != "EIS" or self.scoring != "paths":
             what = f"method {self.method!r}" if self.method != "EIS" else "scoring 'particles'"
-            raise SmleInputError(f"a result of {what} has no simulated paths; smle.filter_factor "
+            keep = "scoring='paths' keeps them, and " if self.method == "EIS" else ""
+            raise SmleInputError(f"a result of {what} has no simulated paths; {keep}smle.filter_factor "
                                  "gives the smoothed factor")
         w = np.exp(self.log_weights - self.log_weights.max())
         return np.tensordot(self.paths, w / w.sum(), axes=([1], [0]))

@@ -140,12 +140,8 @@ def test_bad_scoring_inputs_are_refused_naming_the_argument():
     y_leverage, _ = smle.simulate("sv-leverage", leverage, 60, seed=1)
     with pytest.raises(SmleInputError, match=r"scoring = 'particles' is not available for model 'sv-leverage'"):
         smle.loglik("sv-leverage", leverage, y_leverage, method="eis", scoring="particles")
-    two = dict(mu=0.0, phi1=0.97, sigma_eta1=0.2, phi2=0.5, sigma_eta2=0.4)
-    y_two, _ = smle.simulate("sv-2factor", two, 60, seed=1)
-    with pytest.raises(SmleInputError, match=r"2-dimensional state; accepted for this model: scoring='paths'"):
-        smle.loglik("sv-2factor", two, y_two, scoring="particles")
     result = smle.loglik("sv", SV, y, method="eis", scoring="particles", seed=0)
-    with pytest.raises(SmleInputError, match="scoring 'particles' has no simulated paths"):
+    with pytest.raises(SmleInputError, match="scoring 'particles' has no simulated paths; scoring='paths' keeps them"):
         result.smoothed_mean()
 
 
@@ -166,8 +162,8 @@ def test_auto_scores_by_particles_where_they_apply_and_by_paths_elsewhere(monkey
     from smle.errors import EISBreakdownError
     from smle.models import get_model
 
-    # k > 1 states and pair kernels have no particle scoring: "auto" scores their paths
-    assert not likelihood.particles_apply(get_model("sv-2factor"), None, "raise")
+    # k > 1 states are scored by particles too; pair kernels have no particle scoring: "auto" scores their paths
+    assert likelihood.particles_apply(get_model("sv-2factor"), None, "raise")
     assert not likelihood.particles_apply(get_model("sv-leverage"), None, "raise")
 
     # a particle run that cannot be returned is scored by paths under "auto", and raised when asked for

@@ -44,18 +44,21 @@ def eis_output_pairs(model, settings: eis.EISSettings, params: Mapping, y, key) 
 
 def particle_output(model, settings: eis.EISSettings, params: Mapping, y, key,
                     resample_threshold: float = particle_eis.RESAMPLE_THRESHOLD) -> particle_eis.ParticleOutput:
-    """Particle EIS evaluation of ``model`` at ``params`` (:mod:`smle.engine.particle_eis`); the
-    per-period log g_t comes from the model's ``period_data``."""
+    """Particle EIS evaluation of ``model`` at ``params`` (:mod:`smle.engine.particle_eis`), with a
+    one-dimensional or a k-dimensional VAR(1) state; the per-period log g_t comes from the model's
+    ``period_data``."""
     data = model.prepare(params, y)
-    return particle_eis.particle_eis_loglik(
-        model.latent(params), _log_obs_function(model), _period_log_obs_function(model), (params, data),
-        model.mode_guess(params, data), key, settings, resample_threshold,
-    )
+    common = (_log_obs_function(model), _period_log_obs_function(model), (params, data),
+              model.mode_guess(params, data), key, settings)
+    if model.state_dim > 1:
+        return particle_eis.particle_eis_loglik_multi(model.latent_var(params), *common, model.pairs(),
+                                                      resample_threshold)
+    return particle_eis.particle_eis_loglik(model.latent(params), *common, resample_threshold)
 
 
 @functools.lru_cache(maxsize=None)
 def _period_log_obs_function(model):
-    """``(obs_args, t, x) -> log g_t`` at states x of shape (S,), from the model's ``period_data``."""
+    """``(obs_args, t, x) -> log g_t`` at states x of shape (S,) (or (S, k)), from the model's ``period_data``."""
 
     def period_log_obs(obs_args, t, x):
         params, data = obs_args

@@ -77,7 +77,7 @@ def compiled_eis_multi(model, settings: eis.EISSettings):
 @functools.lru_cache(maxsize=None)
 def compiled_particle_eis(model, settings: eis.EISSettings, resample_threshold: float):
     """The JIT-compiled particle EIS kernel (:mod:`smle.engine.particle_eis`): ``(params, y, key)
-    -> ParticleOutput``, for a one-dimensional state whose transition does not use the data."""
+    -> ParticleOutput``, for a state (of any dimension) whose transition does not use the data."""
 
     def run(params, y, key):
         return particle_output(model, settings, params, y, key, resample_threshold)

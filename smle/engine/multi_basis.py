@@ -133,6 +133,39 @@ def small_solve_lower(factor, rhs, transpose: bool = False, small: int = SMALL_D
     return jnp.stack(solution)
 
 
+def column_cholesky(matrix):
+    """Lower Cholesky factors of a batch of matrices (..., p, p), column by column with array
+    operations over the batch; NaN where a matrix is not positive definite (as LAPACK's).
+
+    Used for the batched systems (one per period) instead of ``jnp.linalg.cholesky``: jaxlib's
+    batched LAPACK kernels split a batch over the intra-op thread pool and wait for the pieces, and
+    two of them in flight at once (the two regressions of an antithetic EIS iteration) deadlocked
+    on a 2-core machine (jaxlib 0.10.2, factor-sv N = 10, T = 2000: every thread waiting).
+    """
+    p = matrix.shape[-1]
+    factor = jnp.zeros_like(matrix)
+    for j in range(p):
+        column = matrix[..., j:, j] - jnp.sum(factor[..., j:, :j] * factor[..., j : j + 1, :j], axis=-1)
+        factor = factor.at[..., j:, j].set(column / jnp.sqrt(column[..., :1]))
+    return factor
+
+
+def column_solve_lower(factor, rhs, transpose: bool = False):
+    """Solve ``factor y = rhs`` (or ``factor' y = rhs``) for a batch: factor (..., p, p) lower
+    triangular, rhs (..., p, n); row by row with array operations over the batch (see
+    :func:`column_cholesky` for why no LAPACK call)."""
+    p = factor.shape[-1]
+    solution = jnp.zeros_like(rhs)
+    for i in range(p - 1, -1, -1) if transpose else range(p):
+        if transpose:
+            coefficients, done = factor[..., i + 1 :, i], solution[..., i + 1 :, :]
+        else:
+            coefficients, done = factor[..., i, :i], solution[..., :i, :]
+        value = rhs[..., i, :] - jnp.sum(coefficients[..., :, None] * done, axis=-2)
+        solution = solution.at[..., i, :].set(value / factor[..., i, i, None])
+    return solution
+
+
 def _least_squares(design, response):
     """Per period, least squares of response (T, n) on the columns of design (T, n, p), no intercept.
 
@@ -150,9 +183,14 @@ def _least_squares(design, response):
     moment = jnp.mean(design * response[..., None], axis=1)
     # a relative ridge of 1e-12 on a unit diagonal keeps an exactly collinear column finite
     gram = gram + 1e-12 * jnp.eye(gram.shape[-1], dtype=gram.dtype)
-    root = jax.vmap(lambda g: small_cholesky(g, SMALL_BASIS))(gram)
-    half = jax.vmap(lambda f, m: small_solve_lower(f, m[:, None], small=SMALL_BASIS))(root, moment)
-    standardised = jax.vmap(lambda f, h: small_solve_lower(f, h, transpose=True, small=SMALL_BASIS))(root, half)
+    if gram.shape[-1] <= SMALL_BASIS:
+        root = jax.vmap(lambda g: small_cholesky(g, SMALL_BASIS))(gram)
+        half = jax.vmap(lambda f, m: small_solve_lower(f, m[:, None], small=SMALL_BASIS))(root, moment)
+        standardised = jax.vmap(lambda f, h: small_solve_lower(f, h, transpose=True, small=SMALL_BASIS))(root, half)
+    else:
+        root = column_cholesky(gram)
+        half = column_solve_lower(root, moment[..., None])
+        standardised = column_solve_lower(root, half, transpose=True)
     return standardised[..., 0] / spread, jnp.sum(half[..., 0] ** 2, axis=-1)
 
 

@@ -38,6 +38,10 @@ Two single-run NSEs of ``log L_hat`` are computed:
   over T = 2000-8000), so :func:`smle.loglik` reports ``nse_blocks`` (sd / NSE 0.86-1.06,
   experiments/results/particle_eis.md) and keeps this one as a diagnostic.
 
+The same scoring serves a k-dimensional VAR(1) state (:func:`particle_eis_loglik_multi`, with the
+sampler of :mod:`smle.engine.eis_multi`): particles are k-vectors, moved by the sampler's
+conditional ``x_t = m_t + F_t x_{t-1} + G_t e_t`` and weighted by its per-period factors.
+
 Everything is a pure function: ``lax.scan`` over time, arrays over particles, float64.
 """
 
@@ -50,8 +54,11 @@ import jax
 import jax.numpy as jnp
 from jax.scipy.special import logsumexp
 
+from smle.engine import eis_multi, multi_sampler
 from smle.engine.fixed_point import EISInfo, fit_auxiliary
 from smle.engine.latent import LatentAR1
+from smle.engine.latent_var import LatentVAR1
+from smle.engine.multi_basis import check_draws, check_pairs, full_pairs
 from smle.engine.sampler import Auxiliary, EISSettings, Sampler, _normals, assemble
 
 
@@ -92,18 +99,24 @@ class ParticleOutput(NamedTuple):
     info: EISInfo
 
 
-def particle_normals(key: jax.Array, n_periods: int, settings: EISSettings):
+def particle_normals(key: jax.Array, n_periods: int, settings: EISSettings, k: int | None = None):
     """``(fit_normals (T, S_fit), particle_normals (T, S), uniforms (T,))`` from ``key``.
 
     The fitting set is the one :func:`smle.engine.sampler.standard_normals` gives when the scoring
     set has its own size (the default), so that the proposal is the sampler the path estimator
-    scores with; the particles' normals and resampling uniforms come from the other key.
+    scores with; the particles' normals and resampling uniforms come from the other key. With a
+    k-dimensional state (``k`` given) the normals have a last axis of size k, and the fitting set
+    is the one of :func:`smle.engine.eis_multi.standard_normals`.
     """
     fit_key, particle_key = jax.random.split(key)
     normal_key, uniform_key = jax.random.split(particle_key)
-    fit = _normals(fit_key, 1, n_periods, settings.n_draws, settings.antithetic)[0]
     half = settings.score_draws // 2 if settings.antithetic else settings.score_draws
-    normals = jax.random.normal(normal_key, (n_periods, half))
+    if k is None:
+        fit = _normals(fit_key, 1, n_periods, settings.n_draws, settings.antithetic)[0]
+        normals = jax.random.normal(normal_key, (n_periods, half))
+    else:
+        fit = eis_multi.standard_normals(key, n_periods, k, settings)[0]  # its scoring set is not used
+        normals = jax.random.normal(normal_key, (n_periods, half, k))
     return fit, normals, jax.random.uniform(uniform_key, (n_periods,))
 
 
@@ -131,11 +144,36 @@ def _block_variance(log_w: jax.Array, antithetic: bool) -> jax.Array:
     return (n * jnp.sum(units**2) - 1.0) / (n - 1)
 
 
-def _particle_step(period_log_obs_fn, obs_args, n: int, antithetic: bool, resample_threshold: float):
+def _move_scalar(sampler_t, previous, z):
+    intercept, slope, sd = sampler_t[:3]
+    return intercept + slope * previous + sd * z
+
+
+def _terms_scalar(sampler_t, current):
+    """The constant, linear and quadratic terms of the log weight factor at states (S,)."""
+    const, linear, quadratic = sampler_t[3:]
+    return const, linear * current, 0.5 * quadratic * current**2
+
+
+def _move_multi(sampler_t, previous, z):
+    intercept, slope, scale = sampler_t[:3]
+    return intercept + previous @ slope.T + z @ scale.T
+
+
+def _terms_multi(sampler_t, current):
+    """The same terms at states (S, k): ``const``, ``x' linear``, ``x' Q x / 2``."""
+    const, linear, quadratic = sampler_t[3:]
+    return const, current @ linear, 0.5 * jnp.sum((current @ quadratic) * current, axis=-1)
+
+
+def _particle_step(period_log_obs_fn, obs_args, n: int, antithetic: bool, resample_threshold: float,
+                   move=_move_scalar, terms=_terms_scalar):
     """The scan step of :func:`particle_eis_loglik`: resample (when due), move, weight, one period.
 
     carry: (particles, normalised log weights, Eve indices, summed block variance, resamplings);
-    outputs: (log mean of the incremental weights, their ESS, the rounding magnitude of the terms).
+    inputs: (t, the sampler's six per-period arrays, normals, uniform); outputs: (log mean of the
+    incremental weights, their ESS, the rounding magnitude of the terms). ``move`` and ``terms``
+    give the sampler's conditional draw and its log weight factor's terms (scalar or k-vector states).
     """
     n_units = n // 2 if antithetic else n
     log_n = math.log(n)
@@ -143,7 +181,7 @@ def _particle_step(period_log_obs_fn, obs_args, n: int, antithetic: bool, resamp
 
     def step(carry, inputs):
         previous, log_w_previous, eves, block_var, resamplings = carry
-        t, intercept, slope, sd, const, linear, quadratic, z, u = inputs
+        t, sampler_t, z, u = inputs
         ess = jnp.exp(-logsumexp(2.0 * log_w_previous))
         resample = (t > 0) & (True if every_period else ess < resample_threshold * n)
 
@@ -164,11 +202,11 @@ def _particle_step(period_log_obs_fn, obs_args, n: int, antithetic: bool, resamp
         block_var = block_var + block_increment
         if antithetic:
             z = jnp.concatenate([z, -z])
-        current = intercept + slope * previous + sd * z
+        current = move(sampler_t, previous, z)
         log_obs = period_log_obs_fn(obs_args, t, current)
-        log_increment = log_obs + const + linear * current - 0.5 * quadratic * current**2
-        magnitude = jnp.max(jnp.abs(log_obs) + jnp.abs(const) + jnp.abs(linear * current)
-                            + jnp.abs(0.5 * quadratic * current**2))
+        const, linear, quadratic = terms(sampler_t, current)
+        log_increment = log_obs + const + linear - quadratic
+        magnitude = jnp.max(jnp.abs(log_obs) + jnp.abs(const) + jnp.abs(linear) + jnp.abs(quadratic))
         log_increment = jnp.where(jnp.isnan(log_increment), -jnp.inf, log_increment)
         log_mean = logsumexp(log_w_previous + log_increment)
         log_w = log_w_previous + log_increment - log_mean
@@ -177,6 +215,40 @@ def _particle_step(period_log_obs_fn, obs_args, n: int, antithetic: bool, resamp
         return carry, (log_mean, increment_ess, jnp.where(jnp.isfinite(magnitude), magnitude, 0.0))
 
     return step
+
+
+def _score(step, sampler, scale, particle_shape, normals, uniforms, n: int, antithetic: bool, fixed_point):
+    """Run the particle pass with the sampler (the fields of ``Sampler`` or ``SamplerMulti``, its
+    conditional scale given as ``scale``) and collect a :class:`ParticleOutput`."""
+    n_periods = normals.shape[0]
+    log_n = math.log(n)
+    dtype = sampler.log_chi_first.dtype
+    init = (jnp.zeros(particle_shape, dtype), jnp.full((n,), -log_n, dtype), jnp.arange(n, dtype=jnp.int32),
+            jnp.zeros((), dtype), jnp.zeros((), jnp.int32))
+    per_period = (sampler.mean_intercept, sampler.mean_slope, scale, sampler.weight_const, sampler.weight_linear,
+                  sampler.weight_quadratic)
+    inputs = (jnp.arange(n_periods), per_period, normals, uniforms)
+    (_, log_w, eves, block_var, resamplings), (log_means, increment_ess, magnitudes) = jax.lax.scan(step, init, inputs)
+    log_means = log_means.at[0].add(sampler.log_chi_first)
+    block_var = block_var + _block_variance(log_w, antithetic)
+    eve_mass = jax.ops.segment_sum(jnp.exp(log_w), eves, num_segments=n)
+    factor = jnp.exp((resamplings + 1) * (log_n - math.log(n - 1)))
+    genealogy_var = 1.0 - factor * (1.0 - jnp.sum(eve_mass**2))
+    auxiliary, info = fixed_point
+    return ParticleOutput(
+        value=jnp.sum(log_means),
+        log_increments=log_means,
+        nse_blocks=jnp.sqrt(jnp.maximum(block_var, 0.0)),
+        nse_genealogy=jnp.sqrt(jnp.maximum(genealogy_var, 0.0)),
+        resamplings=resamplings,
+        mean_ess=jnp.mean(increment_ess),
+        distinct_eves=jnp.sum(eve_mass > 0),
+        final_log_weights=log_w,
+        rounding=jnp.finfo(dtype).eps * (jnp.abs(sampler.log_chi_first) + jnp.sum(magnitudes)),
+        auxiliary=auxiliary,
+        sampler=sampler,
+        info=info,
+    )
 
 
 def particle_eis_loglik(
@@ -209,33 +281,38 @@ def particle_eis_loglik(
     auxiliary, info = fit_auxiliary(state, log_obs_fn, obs_args, fit_normals, guess, settings)
     sampler = assemble(state, auxiliary)
     n = settings.score_draws
-    antithetic = settings.antithetic
-    log_n = math.log(n)
-    scale = jax.lax.rsqrt(sampler.precision)
+    step = _particle_step(period_log_obs_fn, obs_args, n, settings.antithetic, resample_threshold)
+    return _score(step, sampler, jax.lax.rsqrt(sampler.precision), (n,), normals, uniforms, n, settings.antithetic,
+                  (auxiliary, info))
 
-    step = _particle_step(period_log_obs_fn, obs_args, n, antithetic, resample_threshold)
-    dtype = sampler.precision.dtype
-    init = (jnp.zeros((n,), dtype), jnp.full((n,), -log_n, dtype), jnp.arange(n, dtype=jnp.int32),
-            jnp.zeros((), dtype), jnp.zeros((), jnp.int32))
-    inputs = (jnp.arange(n_periods), sampler.mean_intercept, sampler.mean_slope, scale, sampler.weight_const,
-              sampler.weight_linear, sampler.weight_quadratic, normals, uniforms)
-    (_, log_w, eves, block_var, resamplings), (log_means, increment_ess, magnitudes) = jax.lax.scan(step, init, inputs)
-    log_means = log_means.at[0].add(sampler.log_chi_first)
-    block_var = block_var + _block_variance(log_w, antithetic)
-    eve_mass = jax.ops.segment_sum(jnp.exp(log_w), eves, num_segments=n)
-    factor = jnp.exp((resamplings + 1) * (log_n - math.log(n - 1)))
-    genealogy_var = 1.0 - factor * (1.0 - jnp.sum(eve_mass**2))
-    return ParticleOutput(
-        value=jnp.sum(log_means),
-        log_increments=log_means,
-        nse_blocks=jnp.sqrt(jnp.maximum(block_var, 0.0)),
-        nse_genealogy=jnp.sqrt(jnp.maximum(genealogy_var, 0.0)),
-        resamplings=resamplings,
-        mean_ess=jnp.mean(increment_ess),
-        distinct_eves=jnp.sum(eve_mass > 0),
-        final_log_weights=log_w,
-        rounding=jnp.finfo(dtype).eps * (jnp.abs(sampler.log_chi_first) + jnp.sum(magnitudes)),
-        auxiliary=auxiliary,
-        sampler=sampler,
-        info=info,
-    )
+
+def particle_eis_loglik_multi(
+    state: LatentVAR1,
+    log_obs_fn,
+    period_log_obs_fn,
+    obs_args,
+    guess: jax.Array,
+    key: jax.Array,
+    settings: EISSettings,
+    pairs=None,
+    resample_threshold: float = RESAMPLE_THRESHOLD,
+) -> ParticleOutput:
+    """Particle EIS with a k-dimensional Gaussian VAR(1) state (see the module docstring).
+
+    Args:
+      state, log_obs_fn, obs_args, guess, settings, pairs: as for
+        :func:`smle.engine.eis_multi.eis_loglik_multi` (``settings.score_draws`` particles).
+      period_log_obs_fn: ``period_log_obs_fn(obs_args, t, x)``: log g_t at states x of shape
+        (S, k) for period t (traced), shape (S,).
+      key, resample_threshold: as for :func:`particle_eis_loglik`.
+    """
+    n_periods, k = guess.shape
+    pairs = check_pairs(full_pairs(k) if pairs is None else pairs, k)
+    check_draws(settings.n_draws, k, pairs, settings.antithetic)
+    fit_normals, normals, uniforms = particle_normals(key, n_periods, settings, k)
+    fixed_point = eis_multi.fit_auxiliary(state, log_obs_fn, obs_args, fit_normals, guess, settings, pairs)
+    sampler = multi_sampler.assemble(state, fixed_point[0], pairs)
+    n = settings.score_draws
+    step = _particle_step(period_log_obs_fn, obs_args, n, settings.antithetic, resample_threshold,
+                          _move_multi, _terms_multi)
+    return _score(step, sampler, sampler.scale, (n, k), normals, uniforms, n, settings.antithetic, fixed_point)
