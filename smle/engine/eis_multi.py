@@ -45,7 +45,7 @@ from smle.engine.eis import EISSettings, weight_diagnostics
 from smle.engine.implicit import implicit_fixed_point
 from smle.engine.latent_var import LatentVAR1
 from smle.engine.multi_basis import (
-    SMALL_DIM, column_cholesky, small_cholesky, pair_index, quadratic_forms, symmetric_from_pairs, check_draws, check_pairs, diagonal_pairs,
+    column_cholesky, pair_index, quadratic_forms, symmetric_from_pairs, check_draws, check_pairs, diagonal_pairs,
     fit_quadratic, full_pairs, star_pairs,
 )
 from smle.engine.multi_sampler import AuxiliaryMulti, SamplerMulti, assemble, draw_paths, log_weights, mean_path
@@ -125,8 +125,7 @@ def newton_start(state: LatentVAR1, log_obs_fn, guess: jax.Array, n_newton: int,
         # a period whose curvature is not positive definite is shifted by its Gershgorin bound
         # (cheap, and enough for a start: the EIS iterations refit it)
         eye = jnp.eye(k, dtype=point.dtype)
-        roots = (jax.vmap(lambda c: small_cholesky(c + 1e-10 * eye))(curvature) if k <= SMALL_DIM
-                 else column_cholesky(curvature + 1e-10 * eye))  # no batched LAPACK call (see column_cholesky)
+        roots = column_cholesky(curvature + 1e-10 * eye)  # no batched LAPACK call (see column_cholesky)
         definite = jnp.all(jnp.isfinite(roots), axis=(-2, -1))
         off_diagonal = jnp.sum(jnp.abs(curvature), axis=-1) - jnp.abs(jnp.diagonal(curvature, axis1=-2, axis2=-1))
         bound = jnp.min(jnp.diagonal(curvature, axis1=-2, axis2=-1) - off_diagonal, axis=-1)

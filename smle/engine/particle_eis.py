@@ -115,7 +115,7 @@ def particle_normals(key: jax.Array, n_periods: int, settings: EISSettings, k: i
         fit = _normals(fit_key, 1, n_periods, settings.n_draws, settings.antithetic)[0]
         normals = jax.random.normal(normal_key, (n_periods, half))
     else:
-        fit = eis_multi.standard_normals(key, n_periods, k, settings)[0]  # its scoring set is not used
+        fit = eis_multi._normals(fit_key, n_periods, settings.n_draws, k, settings.antithetic)
         normals = jax.random.normal(normal_key, (n_periods, half, k))
     return fit, normals, jax.random.uniform(uniform_key, (n_periods,))
 
@@ -217,10 +217,11 @@ def _particle_step(period_log_obs_fn, obs_args, n: int, antithetic: bool, resamp
     return step
 
 
-def _score(step, sampler, scale, particle_shape, normals, uniforms, n: int, antithetic: bool, fixed_point):
+def _score(step, sampler, scale, normals, uniforms, settings: EISSettings, fixed_point):
     """Run the particle pass with the sampler (the fields of ``Sampler`` or ``SamplerMulti``, its
     conditional scale given as ``scale``) and collect a :class:`ParticleOutput`."""
-    n_periods = normals.shape[0]
+    n_periods, n, antithetic = normals.shape[0], settings.score_draws, settings.antithetic
+    particle_shape = (n,) + normals.shape[2:]  # (S,) or (S, k)
     log_n = math.log(n)
     dtype = sampler.log_chi_first.dtype
     init = (jnp.zeros(particle_shape, dtype), jnp.full((n,), -log_n, dtype), jnp.arange(n, dtype=jnp.int32),
@@ -280,10 +281,8 @@ def particle_eis_loglik(
     fit_normals, normals, uniforms = particle_normals(key, n_periods, settings)
     auxiliary, info = fit_auxiliary(state, log_obs_fn, obs_args, fit_normals, guess, settings)
     sampler = assemble(state, auxiliary)
-    n = settings.score_draws
-    step = _particle_step(period_log_obs_fn, obs_args, n, settings.antithetic, resample_threshold)
-    return _score(step, sampler, jax.lax.rsqrt(sampler.precision), (n,), normals, uniforms, n, settings.antithetic,
-                  (auxiliary, info))
+    step = _particle_step(period_log_obs_fn, obs_args, settings.score_draws, settings.antithetic, resample_threshold)
+    return _score(step, sampler, jax.lax.rsqrt(sampler.precision), normals, uniforms, settings, (auxiliary, info))
 
 
 def particle_eis_loglik_multi(
@@ -312,7 +311,6 @@ def particle_eis_loglik_multi(
     fit_normals, normals, uniforms = particle_normals(key, n_periods, settings, k)
     fixed_point = eis_multi.fit_auxiliary(state, log_obs_fn, obs_args, fit_normals, guess, settings, pairs)
     sampler = multi_sampler.assemble(state, fixed_point[0], pairs)
-    n = settings.score_draws
-    step = _particle_step(period_log_obs_fn, obs_args, n, settings.antithetic, resample_threshold,
+    step = _particle_step(period_log_obs_fn, obs_args, settings.score_draws, settings.antithetic, resample_threshold,
                           _move_multi, _terms_multi)
-    return _score(step, sampler, sampler.scale, (n, k), normals, uniforms, n, settings.antithetic, fixed_point)
+    return _score(step, sampler, sampler.scale, normals, uniforms, settings, fixed_point)
